@@ -1,0 +1,428 @@
+"""The armed-load check: what share of netted demand each block would really disconnect,
+interval by interval, and where it falls outside its band.  ``Year + assignment → Check``.
+
+Contribution of feeder f at interval t (MW):
+
+* relay ``standard``: its net load (negative while the feeder exports: tripping it then
+  *raises* the system's net load);
+* relay ``direction_blocked``: ``max(net, 0)`` (the relay does not trip a feeder in reverse
+  power flow);
+* relay ``none`` or unarmed: 0.
+
+``armed_mw[b, t]`` sums the contributions of the feeders in block b, and
+``share_pct[b, t] = 100 · armed_mw[b, t] / demand_mw[t]``.  Intervals with demand ≤ 0 are
+counted and reported but never divided by: their shares are NaN and they are left out of
+the statistics and the compliance test.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+from functools import cached_property
+
+import numpy as np
+import pandas as pd
+
+from .domain import RELAY_DIRECTION_BLOCKED, RELAY_STANDARD, UNARMED, Block, Study
+from .year import Year
+
+
+# --------------------------------------------------------------------------------------------
+# arithmetic (pure, vectorized)
+# --------------------------------------------------------------------------------------------
+def contribution_mw(net_mw: np.ndarray, relay_code: np.ndarray) -> np.ndarray:
+    """Per-feeder tripped MW ``[feeder, interval]`` if the feeder were armed (a new array)."""
+    out = np.where((relay_code == RELAY_STANDARD)[:, None], net_mw, 0.0)
+    db = relay_code == RELAY_DIRECTION_BLOCKED
+    if db.any():
+        out[db] = np.maximum(net_mw[db], 0.0)
+    return out
+
+
+def armed_mw(net_mw: np.ndarray, relay_code: np.ndarray, block_idx: np.ndarray,
+             n_blocks: int) -> np.ndarray:
+    """Armed MW ``[block, interval]`` for an assignment ``block_idx[feeder]`` (−1 unarmed).
+
+    Computed as a one-hot ``[block, feeder]`` matrix product with the net load (standard
+    relays) plus the same with ``max(net, 0)`` for the direction-blocked rows only, so no
+    ``[feeder, interval]`` temporary is made for the whole network.
+    """
+    block_idx = np.asarray(block_idx)
+    n_t = net_mw.shape[1]
+    out = np.zeros((n_blocks, n_t))
+    armed = block_idx >= 0
+    std = np.flatnonzero(armed & (relay_code == RELAY_STANDARD))
+    if std.size:
+        onehot = np.zeros((n_blocks, net_mw.shape[0]))
+        onehot[block_idx[std], std] = 1.0
+        out += onehot @ net_mw
+    db = np.flatnonzero(armed & (relay_code == RELAY_DIRECTION_BLOCKED))
+    if db.size:
+        onehot = np.zeros((n_blocks, db.size))
+        onehot[block_idx[db], np.arange(db.size)] = 1.0
+        out += onehot @ np.maximum(net_mw[db], 0.0)
+    return out
+
+
+def share_pct(armed: np.ndarray, demand_mw: np.ndarray) -> np.ndarray:
+    """``100 · armed / demand`` ``[block, interval]``; NaN where demand ≤ 0."""
+    ok = demand_mw > 0
+    out = np.full(armed.shape, np.nan)
+    np.divide(100.0 * armed, demand_mw[None, :], out=out, where=ok[None, :])
+    return out
+
+
+def runs(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Start and end (exclusive) indices of the runs of True in a 1-D bool array."""
+    d = np.diff(np.concatenate(([0], mask.astype(np.int8), [0])))
+    return np.flatnonzero(d == 1), np.flatnonzero(d == -1)
+
+
+# --------------------------------------------------------------------------------------------
+# result
+# --------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class BlockStats:
+    block: str
+    order: int
+    pickup_hz: float
+    delay_s: float
+    rocof_hz_per_s: float | None
+    target_pct: float
+    min_pct: float
+    max_pct: float
+    min_share_pct: float
+    p1_share_pct: float
+    p5_share_pct: float
+    mean_share_pct: float
+    p95_share_pct: float
+    max_share_pct: float
+    intervals_below_min: int
+    intervals_above_max: int
+    shortfall_mwh: float
+    excess_mwh: float
+    worst_violation_pp: float  # max over intervals of the distance outside the band, pp
+    min_share_local_time: str
+    compliant: bool
+
+
+@dataclass(frozen=True)
+class Check:
+    """Result of the armed-load check.  Arrays ``[block, interval]`` in block order."""
+
+    study: Study
+    year: Year
+    block_idx: np.ndarray  # [feeder]
+    armed_mw: np.ndarray
+    share_pct: np.ndarray
+    cum_share_pct: np.ndarray
+    valid: np.ndarray  # [interval] demand > 0
+    stats: tuple[BlockStats, ...]
+    compliant: bool
+    rule: str
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def blocks(self) -> tuple[Block, ...]:
+        return self.study.blocks
+
+    @cached_property
+    def worst_violation_pp(self) -> float:
+        """Worst distance outside any block's band over all valid intervals, in pp of demand."""
+        return max((s.worst_violation_pp for s in self.stats), default=0.0)
+
+    @cached_property
+    def worst_relative_violation(self) -> float:
+        """Worst band violation relative to the block's target (the planner's objective 1)."""
+        return float(np.nanmax(band_violation_relative(self.share_pct[:, self.valid],
+                                                       self.study.blocks), initial=0.0))
+
+    @cached_property
+    def all_in_band_fraction(self) -> float:
+        lo = np.array([b.min_pct for b in self.blocks])[:, None]
+        hi = np.array([b.max_pct for b in self.blocks])[:, None]
+        s = self.share_pct[:, self.valid]
+        if s.shape[1] == 0:
+            return 0.0
+        return float(np.mean(np.all((s >= lo) & (s <= hi), axis=0)))
+
+    # ---- tables -------------------------------------------------------------------------
+    def windows(self) -> pd.DataFrame:
+        """Shortfall (below min) and excess (above max) windows, ranked by energy."""
+        return shortfall_windows(self)
+
+    def armed_load_table(self) -> pd.DataFrame:
+        y = self.year
+        cols: dict[str, object] = {
+            "timestamp_utc": y.timestamps_utc.strftime("%Y-%m-%dT%H:%M:%SZ"),
+            "local_time": y.local_times.strftime("%Y-%m-%dT%H:%M:%S%z"),
+            "demand_mw": y.demand_mw,
+        }
+        for j, b in enumerate(self.blocks):
+            cols[f"{b.name}_mw"] = self.armed_mw[j]
+            cols[f"{b.name}_pct"] = self.share_pct[j]
+            cols[f"{b.name}_cum_pct"] = self.cum_share_pct[j]
+        return pd.DataFrame(cols)
+
+
+def band_violation_relative(share: np.ndarray, blocks: tuple[Block, ...]) -> np.ndarray:
+    """Distance outside ``[min_pct, max_pct]`` divided by ``target_pct`` ``[block, interval]``;
+    0 inside the band.  A block with target 0 is measured in pp."""
+    lo = np.array([b.min_pct for b in blocks])[:, None]
+    hi = np.array([b.max_pct for b in blocks])[:, None]
+    tgt = np.array([b.target_pct if b.target_pct > 0 else 1.0 for b in blocks])[:, None]
+    return np.maximum(np.maximum(lo - share, share - hi), 0.0) / tgt
+
+
+def _percentile(x: np.ndarray, q: float) -> float:
+    return float(np.percentile(x, q)) if x.size else float("nan")
+
+
+def _compliant(rule: str, p: float | None, s: np.ndarray, b: Block) -> bool:
+    if s.size == 0:
+        return False
+    if rule == "every_interval":
+        return bool(np.all((s >= b.min_pct) & (s <= b.max_pct)))
+    if rule == "percentile":
+        return bool(np.percentile(s, p) >= b.min_pct and np.percentile(s, 100 - p) <= b.max_pct)
+    if rule == "mean":
+        m = float(s.mean())
+        return b.min_pct <= m <= b.max_pct
+    raise ValueError(f"unknown compliance rule {rule}")
+
+
+def run_check(study: Study, year: Year, block_idx: np.ndarray,
+              warnings: tuple[str, ...] | list[str] = ()) -> Check:
+    """Run the armed-load check of assignment ``block_idx[feeder]`` on ``year``."""
+    block_idx = np.asarray(block_idx, dtype=np.intp)
+    nb = len(study.blocks)
+    armed = armed_mw(year.net_mw, study.relay_code, block_idx, nb)
+    share = share_pct(armed, year.demand_mw)
+    cum = np.cumsum(share, axis=0)
+    valid = year.demand_mw > 0
+    h = year.interval_h
+    s_rule = study.settings
+    local = year.local_times
+    stats = []
+    for j, b in enumerate(study.blocks):
+        s = share[j, valid]
+        dem = year.demand_mw[valid]
+        a = armed[j, valid]
+        below = s < b.min_pct
+        above = s > b.max_pct
+        short = np.maximum(b.min_pct / 100.0 * dem - a, 0.0)
+        excess = np.maximum(a - b.max_pct / 100.0 * dem, 0.0)
+        viol = np.maximum(np.maximum(b.min_pct - s, s - b.max_pct), 0.0)
+        i_min = int(np.flatnonzero(valid)[np.argmin(s)]) if s.size else 0
+        stats.append(BlockStats(
+            block=b.name, order=b.order, pickup_hz=b.pickup_hz, delay_s=b.delay_s,
+            rocof_hz_per_s=b.rocof_hz_per_s, target_pct=b.target_pct, min_pct=b.min_pct,
+            max_pct=b.max_pct,
+            min_share_pct=float(s.min()) if s.size else float("nan"),
+            p1_share_pct=_percentile(s, 1), p5_share_pct=_percentile(s, 5),
+            mean_share_pct=float(s.mean()) if s.size else float("nan"),
+            p95_share_pct=_percentile(s, 95),
+            max_share_pct=float(s.max()) if s.size else float("nan"),
+            intervals_below_min=int(below.sum()), intervals_above_max=int(above.sum()),
+            shortfall_mwh=float(short.sum() * h), excess_mwh=float(excess.sum() * h),
+            worst_violation_pp=float(viol.max()) if s.size else float("nan"),
+            min_share_local_time=local[i_min].isoformat() if s.size else "",
+            compliant=_compliant(s_rule.compliance_rule, s_rule.compliance_percentile, s, b),
+        ))
+    return Check(study, year, block_idx, armed, share, cum, valid, tuple(stats),
+                 all(st.compliant for st in stats), s_rule.rule_text, tuple(warnings))
+
+
+# --------------------------------------------------------------------------------------------
+# windows and views
+# --------------------------------------------------------------------------------------------
+WINDOW_COLUMNS = ["rank", "block", "kind", "start_local", "end_local", "duration_h",
+                  "intervals", "worst_share_pct", "band_pct", "energy_mwh"]
+
+
+def shortfall_windows(check: Check) -> pd.DataFrame:
+    """Contiguous runs of intervals below min (``kind`` = below_min) or above max
+    (above_max) per block, with start, end (local; end = end of the last interval),
+    duration, worst share and the energy outside the band (MWh); ranked by energy then
+    duration.  Intervals with demand ≤ 0 break a run."""
+    y = check.year
+    h = y.interval_h
+    local = y.local_times
+    step = pd.Timedelta(minutes=y.interval_minutes)
+    frames = []
+    for j, b in enumerate(check.blocks):
+        s = check.share_pct[j]
+        dem = y.demand_mw
+        a = check.armed_mw[j]
+        for kind, mask, gap, band in (
+                ("below_min", check.valid & (s < b.min_pct),
+                 np.maximum(b.min_pct / 100.0 * dem - a, 0.0), b.min_pct),
+                ("above_max", check.valid & (s > b.max_pct),
+                 np.maximum(a - b.max_pct / 100.0 * dem, 0.0), b.max_pct)):
+            st, en = runs(mask)
+            if st.size == 0:
+                continue
+            s_f = np.where(mask, s, np.nan)
+            worst = (np.fmin.reduceat(s_f, st) if kind == "below_min"
+                     else np.fmax.reduceat(s_f, st))
+            energy = np.add.reduceat(np.where(mask, gap, 0.0), st) * h
+            frames.append(pd.DataFrame({
+                "block": b.name, "kind": kind,
+                "start_local": local[st].strftime("%Y-%m-%d %H:%M %Z"),
+                "end_local": (local[en - 1] + step).strftime("%Y-%m-%d %H:%M %Z"),
+                "duration_h": (en - st) * h, "intervals": en - st,
+                "worst_share_pct": worst, "band_pct": band, "energy_mwh": energy,
+                "_start": st,
+            }))
+    if not frames:
+        return pd.DataFrame(columns=WINDOW_COLUMNS + ["_start"])
+    df = pd.concat(frames, ignore_index=True)
+    df = df.sort_values(["energy_mwh", "duration_h", "block", "_start"],
+                        ascending=[False, False, True, True], kind="stable")
+    df.insert(0, "rank", np.arange(1, len(df) + 1))
+    return df.reset_index(drop=True)
+
+
+def low_load_view(check: Check, fraction: float = 0.01) -> pd.DataFrame:
+    """The ``fraction`` of valid intervals with the lowest demand and each block's share."""
+    y = check.year
+    idx = np.flatnonzero(check.valid)
+    n = max(1, int(round(fraction * idx.size)))
+    pick = idx[np.argsort(y.demand_mw[idx], kind="stable")[:n]]
+    cols: dict[str, object] = {"local_time": y.local_times[pick].strftime("%Y-%m-%d %H:%M %Z"),
+                               "demand_mw": y.demand_mw[pick]}
+    for j, b in enumerate(check.blocks):
+        cols[f"{b.name}_pct"] = check.share_pct[j, pick]
+    return pd.DataFrame(cols)
+
+
+def exporting_feeders(check: Check) -> pd.DataFrame:
+    """Armed feeders that export at some interval: how often, how much, when worst.
+
+    For ``standard`` relays the export is a negative contribution to the block; for
+    ``direction_blocked`` relays the feeder is simply not tripped while exporting (its
+    contribution is 0), reported with ``negative_contribution_mwh`` = 0."""
+    st = check.study
+    y = check.year
+    armed = np.flatnonzero(check.block_idx >= 0)
+    if armed.size == 0:
+        return pd.DataFrame(columns=["feeder_id"])
+    net = y.net_mw[armed]
+    exp = net < 0
+    has = exp.any(axis=1)
+    rows = armed[has]
+    if rows.size == 0:
+        return pd.DataFrame(columns=["feeder_id", "substation", "block", "relay",
+                                     "exporting_intervals", "exporting_hours",
+                                     "most_export_mw", "most_export_local_time",
+                                     "negative_contribution_mwh"])
+    n_sub = net[has]
+    i_min = np.argmin(n_sub, axis=1)
+    std_mask = st.relay_code[rows] == RELAY_STANDARD
+    neg_mwh = np.where(std_mask, np.where(n_sub < 0, n_sub, 0.0).sum(axis=1) * y.interval_h,
+                       0.0)
+    df = pd.DataFrame({
+        "feeder_id": [st.feeder_ids[i] for i in rows],
+        "substation": [st.feeders[i].substation for i in rows],
+        "block": [st.block_names[check.block_idx[i]] for i in rows],
+        "relay": [st.feeders[i].relay for i in rows],
+        "exporting_intervals": exp[has].sum(axis=1),
+        "exporting_hours": exp[has].sum(axis=1) * y.interval_h,
+        "most_export_mw": -n_sub[np.arange(rows.size), i_min],
+        "most_export_local_time": y.local_times[i_min].strftime("%Y-%m-%d %H:%M %Z"),
+        "negative_contribution_mwh": -neg_mwh,
+    })
+    return df.sort_values(["negative_contribution_mwh", "feeder_id"],
+                          ascending=[False, True]).reset_index(drop=True)
+
+
+def by_substation(check: Check) -> pd.DataFrame:
+    """Armed MW per substation, zone and block: mean over the year and at the interval of
+    the block's lowest share; feeder and customer counts."""
+    st = check.study
+    y = check.year
+    contrib_rows = []
+    armed = np.flatnonzero(check.block_idx >= 0)
+    if armed.size == 0:
+        return pd.DataFrame(columns=["substation", "zone", "block", "feeders", "customers",
+                                     "mean_armed_mw", "armed_mw_at_block_min"])
+    c = contribution_mw(y.net_mw[armed], st.relay_code[armed])
+    mean_c = c[:, check.valid].mean(axis=1) if check.valid.any() else np.zeros(armed.size)
+    at_min = np.empty(armed.size)
+    for j in range(len(st.blocks)):
+        sj = np.where(check.valid, check.share_pct[j], np.inf)
+        t = int(np.argmin(sj))
+        sel = check.block_idx[armed] == j
+        at_min[sel] = c[sel, t]
+    for k, i in enumerate(armed):
+        f = st.feeders[i]
+        contrib_rows.append((f.substation, f.zone or "", st.block_names[check.block_idx[i]],
+                             f.customers or 0, mean_c[k], at_min[k]))
+    df = pd.DataFrame(contrib_rows, columns=["substation", "zone", "block", "customers",
+                                             "mean_armed_mw", "armed_mw_at_block_min"])
+    df["feeders"] = 1
+    out = (df.groupby(["substation", "zone", "block"], as_index=False)
+           .agg(feeders=("feeders", "sum"), customers=("customers", "sum"),
+                mean_armed_mw=("mean_armed_mw", "sum"),
+                armed_mw_at_block_min=("armed_mw_at_block_min", "sum")))
+    return out.sort_values(["substation", "zone", "block"]).reset_index(drop=True)
+
+
+def customers_per_block(check: Check) -> dict[str, int]:
+    st = check.study
+    out = {b: 0 for b in st.block_names}
+    for i, f in enumerate(st.feeders):
+        b = int(check.block_idx[i])
+        if b != UNARMED:
+            out[st.block_names[b]] += f.customers or 0
+    return out
+
+
+def annual_statement(check: Check) -> list[dict]:
+    """Per block: the frequency setting and the % of netted demand disconnected at it, as
+    mean and minimum over the year, with the cumulative figures.
+
+    This is the content a distribution system operator reports each year to the
+    transmission system operator under Regulation (EU) 2017/2196 (network code on
+    emergency and restoration), Art. 35(1): the frequency settings at which netted demand
+    disconnection is initiated and the percentage of netted demand disconnected at each.
+    """
+    out = []
+    for j, (b, s) in enumerate(zip(check.blocks, check.stats)):
+        cum = check.cum_share_pct[j, check.valid]
+        out.append({
+            "block": b.name, "order": b.order, "pickup_hz": b.pickup_hz, "delay_s": b.delay_s,
+            "rocof_hz_per_s": b.rocof_hz_per_s,
+            "netted_demand_disconnected_mean_pct": s.mean_share_pct,
+            "netted_demand_disconnected_min_pct": s.min_share_pct,
+            "cumulative_mean_pct": float(cum.mean()) if cum.size else float("nan"),
+            "cumulative_min_pct": float(cum.min()) if cum.size else float("nan"),
+        })
+    return out
+
+
+def summary_dict(check: Check) -> dict:
+    """The ``summary.json`` content."""
+    y = check.year
+    keep = ("block", "order", "pickup_hz", "delay_s", "target_pct", "min_pct", "max_pct",
+            "min_share_pct", "p1_share_pct", "p5_share_pct", "mean_share_pct",
+            "p95_share_pct", "max_share_pct", "intervals_below_min", "intervals_above_max",
+            "shortfall_mwh", "excess_mwh", "worst_violation_pp", "min_share_local_time",
+            "compliant")
+    blocks = [{k: v for k, v in asdict(s).items() if k in keep} for s in check.stats]
+    return {
+        "utility": check.study.settings.utility,
+        "year": check.study.settings.year,
+        "rule": check.rule,
+        "compliant": check.compliant,
+        "blocks": blocks,
+        "intervals": int(y.n_intervals),
+        "interval_minutes": y.interval_minutes,
+        "demand_nonpositive_intervals": int((~check.valid).sum()),
+        "worst_violation_pp": check.worst_violation_pp,
+        "all_blocks_in_band_pct": 100.0 * check.all_in_band_fraction,
+        "data_source": y.source,
+        "annual_statement": annual_statement(check),
+        "customers_per_block": customers_per_block(check),
+        "warnings": list(check.warnings),
+    }

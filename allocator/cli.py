@@ -1,0 +1,352 @@
+"""Command line: argument parsing, progress display, atomic output folders.
+
+No arithmetic lives here; every command is a thin shell over functions a notebook user can
+call directly (``read_study``, ``build_year``, ``run_check``, ...).
+
+Exit codes: 0 success, 2 bad input (every problem listed, nothing written), 1 internal
+error (one line; the traceback only with ``--debug``), 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+import traceback
+from pathlib import Path
+
+from . import __version__
+from .errors import InputError
+from .safeio import OutputClashError
+
+EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
+
+
+# --------------------------------------------------------------------------------------------
+# shared steps
+# --------------------------------------------------------------------------------------------
+def _load(workbook: str, metered: str | None, console, quiet: bool):
+    """Read the workbook (and metered file) and build the year, with a spinner."""
+    from .workbook import read_study
+    from .year import build_year
+
+    with console.status("reading workbook", spinner="dots") if not quiet else _null():
+        study = read_study(workbook)
+    met = None
+    if metered:
+        from .metered import read_metered
+        from .year import study_intervals
+
+        s = study.settings
+        with console.status("reading metered data") if not quiet else _null():
+            met = read_metered(metered, study,
+                               study_intervals(s.year, s.timezone, s.interval_minutes))
+    with console.status("building the year of net load") if not quiet else _null():
+        year = build_year(study, met)
+    return study, year
+
+
+class _null:
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *a):
+        return False
+
+
+def _default_out(workbook: str, leaf: str) -> Path:
+    return Path("outputs") / Path(workbook).stem / leaf
+
+
+def _inputs(args) -> list[Path]:
+    return [Path(p) for p in (getattr(args, "workbook", None), getattr(args, "metered", None),
+                              getattr(args, "assignment", None)) if p]
+
+
+# --------------------------------------------------------------------------------------------
+# commands
+# --------------------------------------------------------------------------------------------
+def cmd_validate(args, console) -> int:
+    from .console import study_overview, warnings
+    from .workbook import read_study
+
+    study = read_study(args.workbook)
+    study_overview(console, study)
+    warnings(console, study.warnings)
+    console.print(f"[green]OK[/green]: {args.workbook} is a valid study workbook.")
+    return EXIT_OK
+
+
+def cmd_check(args, console) -> int:
+    from .assignment import current_assignment, read_assignment
+    from .check import run_check
+    from .console import statement_table, verdict_table, warnings, worst_windows
+    from .export import write_check_files
+    from .safeio import atomic_dir, check_out_dir
+
+    out = Path(args.out) if args.out else _default_out(args.workbook, "check")
+    check_out_dir(out, _inputs(args))
+    study, year = _load(args.workbook, args.metered, console, args.quiet)
+    if args.assignment:
+        block_idx, warns = read_assignment(args.assignment, study)
+    else:
+        block_idx, warns = current_assignment(study)
+    chk = run_check(study, year, block_idx, warns)
+    with atomic_dir(out) as tmp:
+        write_check_files(chk, tmp)
+        _reports(args, chk, tmp,
+                 previous_idx=study.current_assignment if args.assignment else None)
+    verdict_table(console, chk)
+    worst_windows(console, chk)
+    statement_table(console, chk)
+    warnings(console, list(warns) + list(year.notes))
+    console.print(f"Wrote {out}/")
+    return EXIT_OK
+
+
+def _reports(args, chk, out: Path, previous_idx=None, plan_info=None, before=None) -> None:
+    """Report outputs (report.xlsx, figures/, report.html) - see allocator.report."""
+    from .report import parse_formats, write_reports
+
+    write_reports(chk, out, previous_idx=previous_idx, plan_info=plan_info, before=before,
+                  formats=parse_formats(getattr(args, "format", None)))
+
+
+def plan_json(outcome, chk, args_info: dict) -> dict:
+    """The ``plan.json`` content: the planner's own account plus the check's numbers."""
+    changed = int((outcome.block_idx != chk.study.current_assignment).sum())
+    return {
+        "status": outcome.status,
+        "proven_optimal_worst_violation": outcome.proven,
+        "every_interval_in_band": chk.worst_violation_pp <= 1e-9,
+        "worst_violation_pp": chk.worst_violation_pp,
+        "worst_violation_pct_of_target": 100.0 * chk.worst_relative_violation,
+        "lower_bound_worst_violation_pct_of_target": (
+            None if outcome.lower_bound_worst is None else 100.0 * outcome.lower_bound_worst),
+        "all_blocks_in_band_pct_of_intervals": 100.0 * chk.all_in_band_fraction,
+        "mean_abs_deviation_pp": outcome.full_year["mad_pp"],
+        "changed_feeders": changed,
+        "objective_terms": {
+            "level_1_worst_violation_rel": outcome.full_year["worst_violation_rel"],
+            "level_2_mean_abs_deviation_pp": outcome.full_year["mad_pp"],
+            "level_3_changed_feeders": changed,
+        },
+        "levels": outcome.levels,
+        "combination": outcome.combination,
+        "rounds": outcome.rounds,
+        "intervals_in_model": {"band_rows": outcome.band_intervals,
+                               "deviation_sample": outcome.mad_intervals,
+                               "year": int(chk.year.n_intervals)},
+        "solve_seconds": outcome.seconds,
+        "solver": outcome.solver,
+        "solver_version": outcome.solver_version,
+        "heuristic_start": outcome.heuristic,
+        "explanation": outcome.explanation,
+        "events": outcome.events,
+        "alternatives": outcome.alternatives,
+        **args_info,
+    }
+
+
+def _plan_into(args, console, study, year, out_tmp: Path, quiet: bool):
+    """Plan, write plan.csv / plan.json, check the plan into out_tmp/check/."""
+    from rich.progress import Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
+
+    from .assignment import assignment_rows
+    from .check import run_check
+    from .plan import plan_allocation
+    import pandas as pd
+    from .safeio import write_csv, write_json
+    from .export import write_check_files
+
+    tl = args.time_limit if getattr(args, "time_limit", None) else study.settings.solver_time_limit_s
+    mc = args.max_changes if getattr(args, "max_changes", None) is not None \
+        else study.settings.max_changes
+    with Progress(SpinnerColumn(), TextColumn("{task.description}"), TimeElapsedColumn(),
+                  console=console, disable=quiet, transient=False) as prog:
+        task = prog.add_task("planning: heuristic start", total=None)
+
+        def cb(level, round, intervals, worst, status):
+            w = "…" if worst != worst else f"{100 * worst:.2f} % of target"
+            prog.update(task, description=f"planning: {level}, round {round}, "
+                        f"{intervals} intervals held, worst violation {w} [{status}]")
+        outcome = plan_allocation(study, year, solver=getattr(args, "solver", "highs"),
+                                  time_limit_s=tl, max_changes=mc,
+                                  seed=getattr(args, "seed", 0), progress=cb)
+        prog.update(task, description=f"planning done: {outcome.status}")
+    chk = run_check(study, year, outcome.block_idx)
+    rows = assignment_rows(study, outcome.block_idx, previous=study.current_assignment)
+    write_csv(pd.DataFrame(rows, columns=["feeder_id", "block", "previous_block", "changed"]),
+              out_tmp / "plan.csv")
+    info = plan_json(outcome, chk, {"seed": getattr(args, "seed", 0), "time_limit_s": tl,
+                                    "max_changes": mc})
+    write_json(info, out_tmp / "plan.json")
+    write_check_files(chk, out_tmp / "check")
+    return outcome, chk, info
+
+
+def _print_plan(console, outcome, chk, info) -> None:
+    from .console import verdict_table, worst_windows
+
+    verdict_table(console, chk, "Planned allocation")
+    worst_windows(console, chk)
+    colour = {"optimal": "green", "feasible": "green", "infeasible": "red"}.get(outcome.status,
+                                                                             "yellow")
+    console.print(f"Plan status: [{colour}]{outcome.status}[/{colour}]; "
+                  f"{info['changed_feeders']} feeder(s) change block; worst violation "
+                  f"{info['worst_violation_pp']:.2f} pp; solved in {outcome.seconds:.1f} s "
+                  f"({outcome.rounds} rounds, {outcome.solver_version}).")
+    for line in outcome.explanation:
+        console.print(f"  [bold]why:[/bold] {line}")
+    for line in outcome.events:
+        console.print(f"  [dim]note:[/dim] {line}")
+
+
+def cmd_plan(args, console) -> int:
+    from .safeio import atomic_dir, check_out_dir
+
+    out = Path(args.out) if args.out else _default_out(args.workbook, "plan")
+    check_out_dir(out, _inputs(args))
+    study, year = _load(args.workbook, args.metered, console, args.quiet)
+    from .assignment import current_assignment
+    from .check import run_check
+
+    cur, cur_warns = current_assignment(study)
+    before = run_check(study, year, cur, cur_warns)
+    with atomic_dir(out) as tmp:
+        outcome, chk, info = _plan_into(args, console, study, year, tmp, args.quiet)
+        _reports(args, chk, tmp / "check", previous_idx=study.current_assignment,
+                 plan_info=info, before=before)
+    _print_plan(console, outcome, chk, info)
+    console.print(f"Wrote {out}/")
+    return EXIT_OK
+
+
+def cmd_demo(args, console) -> int:
+    from .check import run_check
+    from .assignment import current_assignment
+    from .console import study_overview, verdict_table, warnings, worst_windows
+    from .demo import demo_workbook_path
+    from .export import write_check_files
+    from .safeio import atomic_dir, write_csv
+    from .year import year_summary
+
+    out = Path(args.out)
+    with atomic_dir(out) as tmp:
+        wb = demo_workbook_path(tmp / "input")
+        console.rule(f"demo: {wb.name}")
+        study, year = _load(str(wb), None, console, args.quiet)
+        study_overview(console, study)
+        warnings(console, study.warnings)
+        summary = year_summary(study, year)
+        write_csv(summary, tmp / "year_summary.csv")
+        console.print(f"Year built: {year.n_intervals} intervals × {len(study.feeders)} "
+                      f"feeders; demand {year.demand_mw.min():.1f}–{year.demand_mw.max():.1f} MW"
+                      f"; {int((summary['exporting_hours'] > 0).sum())} feeders export at some "
+                      "interval.")
+        block_idx, warns = current_assignment(study)
+        chk = run_check(study, year, block_idx, warns)
+        write_check_files(chk, tmp / "check_current")
+        verdict_table(console, chk, "Current allocation")
+        worst_windows(console, chk)
+    console.print(f"Wrote {out}/")
+    return EXIT_OK
+
+
+# --------------------------------------------------------------------------------------------
+# parser
+# --------------------------------------------------------------------------------------------
+def build_parser() -> argparse.ArgumentParser:
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--debug", action="store_true", help="show tracebacks on errors")
+    common.add_argument("--quiet", action="store_true", help="print only errors")
+    p = argparse.ArgumentParser(
+        prog="ufls-allocator",
+        description="Allocate distribution feeders to under-frequency load shedding blocks "
+                    "and prove, interval by interval, how much netted demand each block holds.",
+        parents=[common])
+    p.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+
+    v = sub.add_parser("validate", parents=[common], help="read and validate a study workbook",
+                       description="Read a study workbook, list every problem (exit 2) or "
+                                   "print what it holds and any warnings (exit 0).")
+    v.add_argument("workbook", help="study workbook (.xlsx)")
+    v.set_defaults(func=cmd_validate)
+
+    c = sub.add_parser("check", parents=[common], help="armed load per block, every interval",
+                       description="Check an allocation: armed MW and %% of netted demand per "
+                                   "block in every interval, compliance, shortfall windows, "
+                                   "exporting feeders and the annual statement.")
+    c.add_argument("workbook", help="study workbook (.xlsx)")
+    c.add_argument("--assignment", help="CSV feeder_id,block (blank = unarmed); default: the "
+                                        "workbook's current_block")
+    c.add_argument("--metered", help="metered net load (CSV or Parquet: timestamp,feeder_id,mw)")
+    c.add_argument("--out", help="output folder (default outputs/<workbook>/check/)")
+    c.add_argument("--format", help="comma list of outputs among xlsx,html,png (default all; "
+                                    "'none' for CSV/JSON only)")
+    c.set_defaults(func=cmd_check)
+
+    pl = sub.add_parser("plan", parents=[common], help="plan an allocation that holds every "
+                        "block in band in every interval",
+                        description="Choose which feeders go in which block so that every "
+                                    "block stays within its band in every interval of the year "
+                                    "(mixed-integer model, rounds over the worst intervals), "
+                                    "then check the plan.")
+    pl.add_argument("workbook", help="study workbook (.xlsx)")
+    pl.add_argument("--metered", help="metered net load (CSV or Parquet)")
+    pl.add_argument("--out", help="output folder (default outputs/<workbook>/plan/)")
+    pl.add_argument("--time-limit", type=float, help="seconds for the whole plan (default: "
+                                                      "the workbook's solver_time_limit_s)")
+    pl.add_argument("--max-changes", type=int, help="at most N feeders may change block")
+    pl.add_argument("--solver", choices=("highs", "cbc"), default="highs",
+                    help="MILP solver (default highs)")
+    pl.add_argument("--seed", type=int, default=0, help="seed for the heuristic and solver")
+    pl.add_argument("--format", help="comma list among xlsx,html,png (default all)")
+    pl.set_defaults(func=cmd_plan)
+
+    d = sub.add_parser("demo", parents=[common], help="run the whole job on the demo network",
+                       description="Run the whole job on the invented demo network.")
+    d.add_argument("--out", default="outputs/demo", help="output folder (default outputs/demo)")
+    d.add_argument("--format", help="comma list among xlsx,html,png (default all)")
+    d.set_defaults(func=cmd_demo)
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "func", None):
+        parser.print_help()
+        return EXIT_OK
+    from .console import make_console
+
+    console = make_console(quiet=args.quiet)
+    err = make_console()
+    t0 = time.perf_counter()
+    try:
+        rc = args.func(args, console)
+    except InputError as exc:
+        err.print(f"[red]error:[/red] {exc.render()}", markup=True, highlight=False)
+        err.print("Nothing was written.")
+        return EXIT_INPUT
+    except OutputClashError as exc:
+        err.print(f"[red]error:[/red] {exc}. Nothing was written.")
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        err.print("interrupted; previous outputs left as they were")
+        return EXIT_INTERRUPTED
+    except Exception as exc:  # noqa: BLE001 - the one place that turns bugs into exit 1
+        if args.debug:
+            traceback.print_exc()
+        msg = str(exc).splitlines()[0] if str(exc) else ""
+        err.print(f"[red]internal error:[/red] {type(exc).__name__}: {msg} "
+                  "(run with --debug for the traceback)")
+        return EXIT_INTERNAL
+    if not args.quiet and args.command != "validate":
+        console.print(f"[dim]done in {time.perf_counter() - t0:.1f} s[/dim]")
+    return rc
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,187 @@
+"""The study as read from the workbook: plain, frozen dataclasses.
+
+Nothing here reads files; :mod:`allocator.workbook` builds these objects and validates them.
+Per-feeder values are also exposed as numpy arrays (``Study.peak_mw`` etc.) in feeder order,
+the order of the ``feeders`` sheet, which is the row order of every ``[feeder, interval]`` array.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from functools import cached_property
+
+import numpy as np
+
+DAY_TYPES: tuple[str, ...] = ("workday", "saturday", "sunday")
+RELAY_KINDS: tuple[str, ...] = ("none", "standard", "direction_blocked")
+#: integer codes used in arrays: index into RELAY_KINDS
+RELAY_NONE, RELAY_STANDARD, RELAY_DIRECTION_BLOCKED = 0, 1, 2
+UNARMED = -1
+MINUTES_PER_DAY = 1440
+
+
+@dataclass(frozen=True)
+class Settings:
+    """The ``settings`` sheet, typed.  Percentages are percent of demand."""
+
+    utility: str
+    year: int
+    timezone: str
+    nominal_hz: float
+    interval_minutes: int
+    latitude_deg: float
+    longitude_deg: float
+    holiday_country: str | None
+    holiday_subdivision: str | None
+    demand_basis: str  # "feeders" | "metered_total"
+    pv_derate: float
+    priority_policy: str  # "exclude" | "last_block"
+    compliance_rule: str  # "every_interval" | "percentile" | "mean"
+    compliance_percentile: float | None  # P for "percentile:P"
+    max_changes: int | None
+    solver_time_limit_s: float
+    mip_gap: float
+    gap_fill: str = "profile"  # "profile" | "interpolate" | "error"
+    max_substation_share_pct: float | None = None
+
+    @property
+    def rule_text(self) -> str:
+        if self.compliance_rule == "percentile":
+            return f"percentile:{self.compliance_percentile:g}"
+        return self.compliance_rule
+
+
+@dataclass(frozen=True)
+class Block:
+    """One UFLS block (stage).  ``order`` 1 trips first (highest pickup frequency)."""
+
+    name: str
+    order: int
+    pickup_hz: float
+    delay_s: float
+    rocof_hz_per_s: float | None
+    target_pct: float
+    min_pct: float
+    max_pct: float
+    rocof_arm_hz: float | None = None
+
+
+@dataclass(frozen=True)
+class Feeder:
+    """One feeder breaker.  ``allowed_blocks``: None = any block; () = none."""
+
+    feeder_id: str
+    substation: str
+    zone: str | None
+    profile: str
+    peak_mw: float
+    pv_mw: float
+    relay: str  # one of RELAY_KINDS
+    priority: str | None
+    allowed_blocks: tuple[str, ...] | None
+    trip_group: str | None
+    current_block: str | None
+    customers: int | None
+    row: int = 0  # row in the feeders sheet (header = 1)
+
+
+@dataclass(frozen=True)
+class Profiles:
+    """Per-unit load shapes at one-minute resolution.
+
+    ``values_pu[profile, season, day_type, minute]`` is the per-unit value (of the feeder's
+    ``peak_mw``) in force at that minute of the local day; the workbook's own resolution is
+    expanded by holding each value for its interval, so averaging back to any interval length
+    that divides a day reproduces "hold if coarser, average if finer".
+    """
+
+    names: tuple[str, ...]
+    seasons: tuple[str, ...]
+    values_pu: np.ndarray  # [profile, season, day_type, minute]
+    month_season: np.ndarray  # [12] index into seasons, month 1 at position 0
+    resolution_minutes: dict[str, int] = field(default_factory=dict)
+
+    def index(self, name: str) -> int:
+        return self.names.index(name)
+
+
+@dataclass(frozen=True)
+class Study:
+    """Everything one workbook says."""
+
+    path: str
+    settings: Settings
+    blocks: tuple[Block, ...]  # sorted by order
+    feeders: tuple[Feeder, ...]
+    profiles: Profiles
+    system: dict[str, object] = field(default_factory=dict)  # {"values": {...}, "rows": {...}}
+    warnings: tuple[str, ...] = ()
+
+    # ---- per-feeder arrays, feeder order -------------------------------------------------
+    @cached_property
+    def feeder_ids(self) -> tuple[str, ...]:
+        return tuple(f.feeder_id for f in self.feeders)
+
+    @cached_property
+    def block_names(self) -> tuple[str, ...]:
+        return tuple(b.name for b in self.blocks)
+
+    @cached_property
+    def peak_mw(self) -> np.ndarray:
+        return np.array([f.peak_mw for f in self.feeders], dtype=float)
+
+    @cached_property
+    def pv_mw(self) -> np.ndarray:
+        return np.array([f.pv_mw for f in self.feeders], dtype=float)
+
+    @cached_property
+    def relay_code(self) -> np.ndarray:
+        return np.array([RELAY_KINDS.index(f.relay) for f in self.feeders], dtype=np.int8)
+
+    @cached_property
+    def profile_index(self) -> np.ndarray:
+        return np.array([self.profiles.index(f.profile) for f in self.feeders], dtype=np.intp)
+
+    @cached_property
+    def current_assignment(self) -> np.ndarray:
+        """Block index per feeder from ``current_block`` (UNARMED = -1)."""
+        idx = {b: i for i, b in enumerate(self.block_names)}
+        return np.array([idx[f.current_block] if f.current_block else UNARMED
+                         for f in self.feeders], dtype=np.intp)
+
+    @cached_property
+    def is_priority(self) -> np.ndarray:
+        return np.array([bool(f.priority) for f in self.feeders])
+
+    def allowed_matrix(self) -> np.ndarray:
+        """``[feeder, block]`` bool: may feeder f sit in block b under every hard rule.
+
+        Combines relay (``none`` → nowhere), ``allowed_blocks`` and the priority policy
+        (``exclude`` → nowhere, ``last_block`` → only the highest-order block).
+        Trip groups are a joint rule and are not part of this matrix.
+        """
+        nb = len(self.blocks)
+        allowed = np.ones((len(self.feeders), nb), dtype=bool)
+        last = nb - 1
+        for i, f in enumerate(self.feeders):
+            if f.relay == "none":
+                allowed[i, :] = False
+                continue
+            if f.allowed_blocks is not None:
+                allowed[i, :] = [b.name in f.allowed_blocks for b in self.blocks]
+            if f.priority:
+                if self.settings.priority_policy == "exclude":
+                    allowed[i, :] = False
+                else:
+                    keep = allowed[i, last]
+                    allowed[i, :] = False
+                    allowed[i, last] = keep
+        return allowed
+
+    def trip_groups(self) -> dict[str, list[int]]:
+        """Trip-group id → feeder indices (only groups named in the workbook)."""
+        groups: dict[str, list[int]] = {}
+        for i, f in enumerate(self.feeders):
+            if f.trip_group:
+                groups.setdefault(f.trip_group, []).append(i)
+        return groups

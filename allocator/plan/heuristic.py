@@ -1,0 +1,241 @@
+"""A fast start for the MILP: greedy fill, then unit-by-unit improvement sweeps.
+
+Both work on a *working set* of intervals (the ones that matter: worst and extreme ones, plus
+a systematic sample) and are re-verified on every interval of the year between sweeps; the
+working set grows with the intervals the full check shows to be worst.  Each step is
+vectorized over blocks and intervals; the loop is over units only.
+
+Score of a share matrix ``s[b, t]`` (pp), smaller is better, lexicographic in spirit:
+``1e4 · worst + 1e2 · mean violation + mean |s − target| / target + 1e-4 · changes``, where
+violations are relative to each block's target as in the planner's first objective.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from .units import Units
+
+W_WORST, W_VIOL, W_MAD, W_CHANGE = 1e4, 1e2, 1.0, 1e-4
+
+
+@dataclass(frozen=True)
+class Band:
+    target: np.ndarray  # [block] pp
+    lo: np.ndarray
+    hi: np.ndarray
+
+    @property
+    def scale(self) -> np.ndarray:
+        return np.where(self.target > 0, self.target, 1.0)
+
+
+def shares(units: Units, option: np.ndarray, cols: np.ndarray | None = None) -> np.ndarray:
+    """``[block, interval]`` shares (pp) of a unit assignment on ``cols`` (default all)."""
+    nb = units.n_blocks
+    pp = units.pp if cols is None else units.pp[:, cols]
+    onehot = np.zeros((nb, units.n))
+    armed = option < nb
+    onehot[option[armed], np.flatnonzero(armed)] = 1.0
+    return onehot @ pp
+
+
+def violation_rel(s: np.ndarray, band: Band) -> np.ndarray:
+    """Band violation relative to target ``[block, interval]`` (0 inside the band)."""
+    return np.maximum(np.maximum(band.lo[:, None] - s, s - band.hi[:, None]), 0.0) / \
+        band.scale[:, None]
+
+
+def evaluate(units: Units, option: np.ndarray, band: Band) -> tuple[float, float, float]:
+    """Full-year (worst relative violation, MAD in pp, changes) of a unit assignment."""
+    s = shares(units, option)
+    worst = float(violation_rel(s, band).max(initial=0.0))
+    mad = float(np.abs(s - band.target[:, None]).mean()) if s.size else 0.0
+    changes = float(units.change_cost[np.arange(units.n), option].sum())
+    return worst, mad, changes
+
+
+def _row_terms(s: np.ndarray, band_rows: Band, idx: np.ndarray):
+    """Per-row (worst, mean violation, mad) for rows ``s[k, :]`` belonging to blocks idx."""
+    lo = band_rows.lo[idx][:, None]
+    hi = band_rows.hi[idx][:, None]
+    sc = band_rows.scale[idx][:, None]
+    v = np.maximum(np.maximum(lo - s, s - hi), 0.0) / sc
+    return v.max(axis=1), v.mean(axis=1), (np.abs(s - band_rows.target[idx][:, None]) / sc
+                                           ).mean(axis=1)
+
+
+def _total(worst_rows, viol_rows, mad_rows, changes, nb):
+    return (W_WORST * worst_rows.max(axis=-1) + W_VIOL * viol_rows.sum(axis=-1) / nb
+            + W_MAD * mad_rows.sum(axis=-1) / nb + W_CHANGE * changes)
+
+
+def greedy(units: Units, band: Band, cols: np.ndarray, order: np.ndarray) -> np.ndarray:
+    """Add units one at a time (in ``order``) to the option that lowers the score most."""
+    nb = units.n_blocks
+    option = np.full(units.n, nb, dtype=np.intp)
+    s = np.zeros((nb, cols.size))
+    all_b = np.arange(nb)
+    w, v, m = _row_terms(s, band, all_b)
+    changes = float(units.change_cost[:, nb].sum())
+    for u in order:
+        allowed = np.flatnonzero(units.allowed[u])
+        if allowed.size == 0:
+            continue
+        p = units.pp[u, cols]
+        cand = s[allowed] + p[None, :]
+        cw, cv, cm = _row_terms(cand, band, allowed)
+        base = _total(w, v, m, changes, nb)
+        scores = np.empty(allowed.size)
+        for k, b in enumerate(allowed):
+            ww, vv, mm = w.copy(), v.copy(), m.copy()
+            ww[b], vv[b], mm[b] = cw[k], cv[k], cm[k]
+            dc = units.change_cost[u, b] - units.change_cost[u, nb]
+            scores[k] = _total(ww, vv, mm, changes + dc, nb)
+        k = int(np.argmin(scores))
+        if scores[k] < base - 1e-12:
+            b = allowed[k]
+            option[u] = b
+            s[b] = cand[k]
+            w[b], v[b], m[b] = cw[k], cv[k], cm[k]
+            changes += units.change_cost[u, b] - units.change_cost[u, nb]
+    return option
+
+
+def improve(units: Units, band: Band, cols: np.ndarray, option: np.ndarray,
+            rng: np.random.Generator, deadline: float, max_sweeps: int = 50,
+            max_changes: int | None = None) -> np.ndarray:
+    """Unit-by-unit best-option sweeps on ``cols`` until no unit can improve the score."""
+    nb = units.n_blocks
+    option = option.copy()
+    s = shares(units, option, cols)
+    all_b = np.arange(nb)
+    w, v, m = _row_terms(s, band, all_b)
+    ar = np.arange(units.n)
+    changes = float(units.change_cost[ar, option].sum())
+    movable = np.flatnonzero(units.allowed.any(axis=1))
+    for _ in range(max_sweeps):
+        improved = False
+        for u in rng.permutation(movable):
+            if time.perf_counter() > deadline:
+                return option
+            p_opt = int(option[u])
+            pu = units.pp[u, cols]
+            cur = _total(w, v, m, changes, nb)
+            # rows after removing u from its block
+            if p_opt < nb:
+                s_p = s[p_opt] - pu
+                rw, rv, rm = _row_terms(s_p[None, :], band, np.array([p_opt]))
+            allowed = np.flatnonzero(units.allowed[u])
+            cands = [q for q in list(allowed) + [nb] if q != p_opt]
+            best, best_q, best_rows = cur, None, None
+            add_rows = s[allowed] + pu[None, :]
+            aw, av, am = _row_terms(add_rows, band, allowed)
+            for q in cands:
+                ww, vv, mm = w.copy(), v.copy(), m.copy()
+                if p_opt < nb:
+                    ww[p_opt], vv[p_opt], mm[p_opt] = rw[0], rv[0], rm[0]
+                if q < nb:
+                    k = int(np.searchsorted(allowed, q))
+                    ww[q], vv[q], mm[q] = aw[k], av[k], am[k]
+                dc = units.change_cost[u, q] - units.change_cost[u, p_opt]
+                if max_changes is not None and changes + dc > max_changes + 1e-9:
+                    continue
+                sc = _total(ww, vv, mm, changes + dc, nb)
+                if sc < best - 1e-12:
+                    best, best_q, best_rows = sc, q, (ww, vv, mm, dc)
+            if best_q is not None:
+                q = best_q
+                if p_opt < nb:
+                    s[p_opt] = s_p
+                if q < nb:
+                    s[q] = s[q] + pu
+                w, v, m, dc = best_rows
+                changes += dc
+                option[u] = q
+                improved = True
+        if not improved:
+            break
+    return option
+
+
+def worst_intervals(units: Units, option: np.ndarray, band: Band, k: int) -> np.ndarray:
+    """The k worst intervals per block (by band violation, then by |deviation|)."""
+    s = shares(units, option)
+    v = violation_rel(s, band)
+    dev = np.abs(s - band.target[:, None]) / band.scale[:, None]
+    score = v * 1e3 + dev
+    k = min(k, s.shape[1])
+    idx = np.argpartition(-score, k - 1, axis=1)[:, :k]
+    return np.unique(idx)
+
+
+def systematic_sample(n_intervals: int, n_sample: int, step_hint: int = 13) -> np.ndarray:
+    """Every k-th interval with k chosen coprime to 24 and 96 so the sample walks through
+    every time of day (a stride that divides the day would see only a few hours)."""
+    if n_sample >= n_intervals:
+        return np.arange(n_intervals)
+    k = max(1, n_intervals // n_sample)
+    while k % 2 == 0 or k % 3 == 0:
+        k += 1
+    return np.arange(0, n_intervals, k)[:n_sample]
+
+
+def heuristic_plan(units: Units, band: Band, seed: int, time_budget_s: float,
+                   max_changes: int | None = None, n_work: int = 400,
+                   start: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Greedy + sweeps with a growing working set.  Returns (option, working set)."""
+    t_end = time.perf_counter() + time_budget_s
+    rng = np.random.default_rng(seed)
+    n_t = units.pp.shape[1]
+    cols = systematic_sample(n_t, n_work)
+    # extremes: the intervals where the armable total is lowest and highest
+    armable = units.allowed.any(axis=1)
+    tot = units.pp[armable].sum(axis=0)
+    cols = np.union1d(cols, np.argsort(tot)[:20])
+    order = np.argsort(-units.pp[:, cols].mean(axis=1), kind="stable")
+    candidates = []
+    cur = units.current.copy()
+    if start is not None:
+        candidates.append(start.copy())
+    if max_changes is None:
+        candidates.append(greedy(units, band, cols, order))
+    candidates.append(cur)
+    best, best_key = None, None
+    for opt in candidates:
+        opt = _repair(units, opt, max_changes)
+        for _ in range(6):
+            opt = improve(units, band, cols, opt, rng, t_end, max_changes=max_changes)
+            cols = np.union1d(cols, worst_intervals(units, opt, band, 8))
+            if time.perf_counter() > t_end:
+                break
+        key = evaluate(units, opt, band)
+        if best_key is None or _better(key, best_key):
+            best, best_key = opt, key
+        if time.perf_counter() > t_end:
+            break
+    return best, cols
+
+
+def _repair(units: Units, option: np.ndarray, max_changes: int | None) -> np.ndarray:
+    """Move units in a disallowed option to unarmed (keeps a start inside the hard rules)."""
+    nb = units.n_blocks
+    opt = option.copy()
+    bad = (opt < nb) & ~units.allowed[np.arange(units.n), np.minimum(opt, nb - 1)]
+    opt[bad] = nb
+    return opt
+
+
+def _better(a: tuple, b: tuple, tol: float = 1e-9) -> bool:
+    if a[0] < b[0] - tol:
+        return True
+    if a[0] > b[0] + tol:
+        return False
+    if a[1] < b[1] - 1e-9:
+        return True
+    if a[1] > b[1] + 1e-9:
+        return False
+    return a[2] < b[2]

@@ -1,0 +1,95 @@
+"""Report outputs of a check: ``report.xlsx``, ``figures/*.png`` and ``report.html``.
+
+``write_reports(check, out, ...)`` writes the requested formats into the (existing) folder
+``out``; ``parse_formats`` turns the ``--format`` option into the set of formats.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError, Problem
+
+FORMATS: tuple[str, ...] = ("xlsx", "html", "png")
+DEFAULT_FORMATS = frozenset(FORMATS)
+
+__all__ = ["FORMATS", "parse_formats", "write_reports"]
+
+
+def parse_formats(text: str | None) -> set[str]:
+    """``--format`` value → set of formats.  None → every format; ``none`` → no report
+    files (CSV/JSON only); otherwise a comma list of xlsx, html, png (``all`` = every one)."""
+    if text is None:
+        return set(DEFAULT_FORMATS)
+    items = [t.strip().lower() for t in str(text).split(",")]
+    items = [t for t in items if t]
+    if not items:
+        raise InputError([Problem(file="--format", message="no format given; use a comma list "
+                                  "of xlsx, html, png, or 'all' or 'none'")])
+    if items == ["none"]:
+        return set()
+    out: set[str] = set()
+    bad = []
+    for t in items:
+        if t == "all":
+            out |= DEFAULT_FORMATS
+        elif t in FORMATS:
+            out.add(t)
+        else:
+            bad.append(t)
+    if bad:
+        raise InputError([Problem(file="--format", message=f"unknown format '{b}'; choose "
+                                  "from xlsx, html, png (comma list), 'all' or 'none'"
+                                  + (" ('none' cannot be combined with others)"
+                                     if b == "none" else ""))
+                          for b in bad])
+    return out
+
+
+def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
+                  plan_info: dict | None = None, before=None,
+                  formats: set[str] | frozenset[str] = DEFAULT_FORMATS) -> dict[str, Path]:
+    """Write the report files of ``check`` into the existing folder ``out``.
+
+    ``previous_idx[feeder]``: the block index each feeder had before (the workbook's current
+    allocation) when ``check`` is of a new plan or assignment, None when ``check`` is of the
+    current allocation.  ``plan_info``: the planner's plan.json dict, if reporting a plan.
+    ``before``: the check of the current allocation, for before/after comparisons.
+    Returns ``{"xlsx": path, "html": path, "png:<name>": path, ...}`` for what was written.
+    """
+    from . import content
+
+    out = Path(out)
+    formats = set(formats)
+    unknown = formats - set(FORMATS)
+    if unknown:
+        raise ValueError(f"unknown report formats {sorted(unknown)}")
+    if previous_idx is not None:
+        previous_idx = np.asarray(previous_idx, dtype=np.intp)
+    written: dict[str, Path] = {}
+    if not formats:
+        return written
+    fc = content.feeder_contrib(check)
+    if "xlsx" in formats:
+        from .excel import write_workbook
+
+        written["xlsx"] = write_workbook(check, out / "report.xlsx", previous_idx, plan_info,
+                                         before, fc)
+    figs = None
+    if "png" in formats or "html" in formats:
+        from .figures import render_figures
+
+        fig_dir = out / "figures" if "png" in formats else None
+        figs = render_figures(check, fig_dir, before=before, fc=fc)
+        if fig_dir is not None:
+            for f in figs:
+                written[f"png:{f.name}"] = f.path
+    if "html" in formats:
+        from .html import write_html
+
+        written["html"] = write_html(check, out / "report.html", figs or [],
+                                     previous_idx=previous_idx, plan_info=plan_info,
+                                     before=before)
+    return written

@@ -1,0 +1,357 @@
+"""What the reports say, computed once for the workbook, the figures and the HTML page:
+verdict wording, the feeder table, the relay work list, assumptions and cautions.
+
+Nothing here writes files.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..check import Check, contribution_mw
+from ..domain import UNARMED
+
+#: shown in the workbook summary and the HTML page, in this order
+CAUTIONS: tuple[str, ...] = (
+    "Under-frequency load shedding disconnects customers: when a block's relays operate, "
+    "every customer on its feeders loses supply.",
+    "Priority sites - hospitals, life-support customers, water and wastewater pumping and any "
+    "other site your local rules name - must be protected as those rules require. Check that "
+    "none of them is armed against those rules before adopting an allocation.",
+    "The results are indicative and for planning support only. They rest on load profiles or "
+    "metered data and a clear-sky PV model, not on a dynamic study of the power system.",
+    "The system operator's requirements, local codes and licensed engineering practice "
+    "govern. This report does not replace them.",
+    "Verify every relay setting (pickup frequency, time delay, RoCoF) against the approved "
+    "setting sheet before any change in the field, and follow your switching and work-safety "
+    "procedures.",
+)
+
+KIND_WORDS = {"below_min": "below min", "above_max": "above max"}
+UNARMED_WORD = "unarmed"
+
+#: the summary.json rounding (allocator.safeio.write_json): 9 decimals, non-finite → empty
+JSON_DECIMALS = 9
+
+
+def json_number(x: object) -> float | None:
+    """A statistic as summary.json stores it, so the workbook shows the very same value."""
+    if x is None:
+        return None
+    f = float(x)
+    return round(f, JSON_DECIMALS) if math.isfinite(f) else None
+
+
+def rule_words(check: Check) -> str:
+    s = check.study.settings
+    if s.compliance_rule == "every_interval":
+        return "every interval of the year must lie inside the block's band"
+    if s.compliance_rule == "percentile":
+        p = s.compliance_percentile
+        return (f"the {p:g}th percentile of the share must be at least the band's minimum and "
+                f"the {100 - p:g}th percentile at most its maximum")
+    if s.compliance_rule == "mean":
+        return "the mean share over the year must lie inside the block's band"
+    return check.rule
+
+
+def verdict_words(check: Check) -> str:
+    """The overall verdict in one plain sentence."""
+    bad = [s for s in check.stats if not s.compliant]
+    if not bad:
+        return (f"Compliant: every block holds its band of netted demand under the rule "
+                f"'{check.rule}' ({rule_words(check)}).")
+    parts = []
+    for s in bad:
+        bits = []
+        if s.intervals_below_min:
+            bits.append(f"{s.intervals_below_min} intervals below {s.min_pct:g} %")
+        if s.intervals_above_max:
+            bits.append(f"{s.intervals_above_max} intervals above {s.max_pct:g} %")
+        parts.append(f"{s.block} ({', '.join(bits) or 'outside its band'})")
+    return (f"Not compliant: {len(bad)} of {len(check.stats)} blocks fall outside their band "
+            f"under the rule '{check.rule}': {'; '.join(parts)}. "
+            f"Worst distance outside a band: {check.worst_violation_pp:.2f} percentage points.")
+
+
+def block_verdict(compliant: bool) -> str:
+    return "in band" if compliant else "OUT OF BAND"
+
+
+def block_name(check: Check, idx: int) -> str:
+    return UNARMED_WORD if idx == UNARMED else check.study.block_names[idx]
+
+
+@dataclass(frozen=True)
+class PrioritySummary:
+    total: int
+    armed: tuple[str, ...]  # "feeder (kind, block)"
+
+    def words(self, policy: str) -> str:
+        if self.total == 0:
+            return "The workbook marks no feeder as a priority site."
+        if not self.armed:
+            return (f"{self.total} feeders are marked as priority sites; none of them is armed "
+                    f"in this allocation (priority policy '{policy}').")
+        shown = ", ".join(self.armed[:10]) + (" ..." if len(self.armed) > 10 else "")
+        return (f"{self.total} feeders are marked as priority sites; {len(self.armed)} of them "
+                f"are armed in this allocation (priority policy '{policy}'): {shown}. "
+                "Confirm this is allowed by your local rules.")
+
+
+def priority_summary(check: Check) -> PrioritySummary:
+    st = check.study
+    armed = []
+    total = 0
+    for i, f in enumerate(st.feeders):
+        if not f.priority:
+            continue
+        total += 1
+        b = int(check.block_idx[i])
+        if b != UNARMED:
+            armed.append(f"{f.feeder_id} ({f.priority}, {st.block_names[b]})")
+    return PrioritySummary(total, tuple(armed))
+
+
+def _previous(check: Check, previous_idx: np.ndarray | None) -> np.ndarray:
+    if previous_idx is None:
+        return np.asarray(check.block_idx, dtype=np.intp)
+    prev = np.asarray(previous_idx, dtype=np.intp)
+    if prev.shape != check.block_idx.shape:
+        raise ValueError(f"previous_idx has {prev.shape[0]} entries, the study has "
+                         f"{check.block_idx.shape[0]} feeders")
+    return prev
+
+
+@dataclass(frozen=True)
+class FeederContrib:
+    """Per-feeder figures of its tripped MW in its block (0 when unarmed), over the intervals
+    with demand > 0: mean, mean of the positive part, mean of the negative part (exports of a
+    standard relay), and the value at the interval of its block's lowest share."""
+
+    mean: np.ndarray
+    mean_pos: np.ndarray
+    mean_neg: np.ndarray
+    at_block_min: np.ndarray
+    t_min: np.ndarray  # [block] interval of each block's lowest share
+
+
+_CHUNK = 256
+
+
+def feeder_contrib(check: Check) -> FeederContrib:
+    st = check.study
+    n_f = len(st.feeders)
+    valid = check.valid
+    cur = np.asarray(check.block_idx, dtype=np.intp)
+    nb = len(st.blocks)
+    t_min = np.zeros(nb, dtype=np.intp)
+    for j in range(nb):
+        if valid.any():
+            t_min[j] = int(np.argmin(np.where(valid, check.share_pct[j], np.inf)))
+    mean = np.zeros(n_f)
+    pos = np.zeros(n_f)
+    neg = np.zeros(n_f)
+    at = np.zeros(n_f)
+    armed = np.flatnonzero(cur >= 0)
+    if valid.any():
+        for a in range(0, armed.size, _CHUNK):
+            rows = armed[a:a + _CHUNK]
+            c = contribution_mw(check.year.net_mw[rows], st.relay_code[rows])
+            at[rows] = c[np.arange(rows.size), t_min[cur[rows]]]
+            c = c[:, valid]
+            mean[rows] = c.mean(axis=1)
+            pos[rows] = np.maximum(c, 0.0).mean(axis=1)
+            neg[rows] = np.minimum(c, 0.0).mean(axis=1)
+    return FeederContrib(mean, pos, neg, at, t_min)
+
+
+def feeder_table(check: Check, previous_idx: np.ndarray | None,
+                 fc: FeederContrib | None = None) -> pd.DataFrame:
+    """One row per feeder, in workbook order.
+
+    ``mean_contribution_mw``: the feeder's mean tripped MW over the intervals with demand > 0;
+    ``share_of_block_pct``: that divided by its block's mean armed MW over the same intervals,
+    in % (the shares of a block's feeders add up to 100)."""
+    st = check.study
+    y = check.year
+    prev = _previous(check, previous_idx)
+    cur = np.asarray(check.block_idx, dtype=np.intp)
+    fc = feeder_contrib(check) if fc is None else fc
+    valid = check.valid
+    mean_c = fc.mean
+    block_mean = (check.armed_mw[:, valid].mean(axis=1) if valid.any()
+                  else np.zeros(len(st.blocks)))
+    share = np.full(len(st.feeders), np.nan)
+    for i in range(len(st.feeders)):
+        b = cur[i]
+        if b != UNARMED and block_mean[b] != 0:
+            share[i] = 100.0 * mean_c[i] / block_mean[b]
+    blocks = st.blocks
+
+    def setting(attr: str) -> list[float]:
+        return [getattr(blocks[b], attr) if b != UNARMED else np.nan for b in cur]
+
+    rocof = [blocks[b].rocof_hz_per_s if b != UNARMED and blocks[b].rocof_hz_per_s is not None
+             else np.nan for b in cur]
+    return pd.DataFrame({
+        "feeder_id": list(st.feeder_ids),
+        "substation": [f.substation for f in st.feeders],
+        "zone": [f.zone or "" for f in st.feeders],
+        "profile": [f.profile for f in st.feeders],
+        "relay": [f.relay for f in st.feeders],
+        "priority": [f.priority or "" for f in st.feeders],
+        "customers": [f.customers if f.customers is not None else np.nan for f in st.feeders],
+        "block": [block_name(check, b) for b in cur],
+        "pickup_hz": setting("pickup_hz"),
+        "delay_s": setting("delay_s"),
+        "rocof_hz_per_s": rocof,
+        "previous_block": [block_name(check, b) for b in prev],
+        "changed": cur != prev,
+        "mean_net_mw": y.net_mw.mean(axis=1),
+        "min_net_mw": y.net_mw.min(axis=1),
+        "max_net_mw": y.net_mw.max(axis=1),
+        "mean_contribution_mw": mean_c,
+        "share_of_block_pct": share,
+    })
+
+
+def relay_changes(check: Check, previous_idx: np.ndarray | None) -> pd.DataFrame:
+    """The field work list: every feeder whose block changes, sorted by substation then
+    feeder, with the settings its relay must get (blank settings when it is disarmed)."""
+    st = check.study
+    cols = ["substation", "feeder_id", "action", "from_block", "to_block", "pickup_hz",
+            "delay_s", "rocof_hz_per_s", "priority"]
+    if previous_idx is None:
+        return pd.DataFrame(columns=cols)
+    prev = _previous(check, previous_idx)
+    cur = np.asarray(check.block_idx, dtype=np.intp)
+    rows = []
+    for i in np.flatnonzero(cur != prev):
+        f = st.feeders[i]
+        b, p = int(cur[i]), int(prev[i])
+        if b == UNARMED:
+            action, hz, d, r = "disarm", np.nan, np.nan, np.nan
+        else:
+            blk = st.blocks[b]
+            action = "arm" if p == UNARMED else "move"
+            hz, d = blk.pickup_hz, blk.delay_s
+            r = blk.rocof_hz_per_s if blk.rocof_hz_per_s is not None else np.nan
+        rows.append((f.substation, f.feeder_id, action, block_name(check, p),
+                     block_name(check, b), hz, d, r, f.priority or ""))
+    df = pd.DataFrame(rows, columns=cols)
+    return df.sort_values(["substation", "feeder_id"], kind="stable").reset_index(drop=True)
+
+
+def windows_table(check: Check) -> pd.DataFrame:
+    w = check.windows().drop(columns=["_start"], errors="ignore").copy()
+    if not w.empty:
+        w["kind"] = w["kind"].map(lambda k: KIND_WORDS.get(k, k))
+    return w
+
+
+def assumptions(check: Check) -> list[tuple[str, str]]:
+    """(topic, text) pairs describing how the numbers were made."""
+    s = check.study.settings
+    y = check.year
+    basis = {"feeders": "the sum of every feeder's net load in the workbook (feeders with and "
+                        "without a UFLS relay)",
+             "metered_total": "the metered TOTAL series of the metered file"}
+    source = {"profiles": "per-unit load profiles of the workbook (season x day type x time of "
+                          "day) scaled by each feeder's peak MW",
+              "metered": "metered feeder data, with gaps filled from the profiles "
+                         f"(gap_fill '{s.gap_fill}')"}
+    nonpos = int((~check.valid).sum())
+    return [
+        ("PV", "clear-sky PV output on every day of the year at the study's latitude and "
+               f"longitude, multiplied by pv_derate {s.pv_derate:g}: the conservative case, "
+               "since clouds only lower PV and so raise the load that a block would shed."),
+        ("netted demand", f"{basis.get(s.demand_basis, s.demand_basis)}."
+                          + (f" {nonpos} intervals with demand of 0 MW or less are left out of "
+                             "the shares and the verdict." if nonpos else "")),
+        ("compliance rule", f"'{check.rule}': {rule_words(check)}."),
+        ("intervals", f"{y.n_intervals} intervals of {y.interval_minutes} minutes, local time "
+                      f"{s.timezone} (daylight-saving days have 23 or 25 hours), public "
+                      f"holidays of {s.holiday_country or 'no country'}"
+                      f"{'-' + s.holiday_subdivision if s.holiday_subdivision else ''} counted "
+                      "as Sundays."),
+        ("data source", source.get(y.source, y.source) + "."),
+        ("relays", "a 'standard' relay trips its feeder's net load, so an exporting feeder "
+                   "counts negative; a 'direction_blocked' relay does not trip in reverse power "
+                   "flow, so it counts 0 while exporting; feeders with relay 'none' never "
+                   "count."),
+        ("priority sites", f"priority policy '{s.priority_policy}'."),
+    ]
+
+
+def plan_lines(plan_info: dict | None) -> tuple[str, list[tuple[str, str]], list[str]]:
+    """(status, other (key, value) pairs, explanation lines) of a plan.json dict."""
+    if not plan_info:
+        return "", [], []
+    status = str(plan_info.get("status", ""))
+    expl = plan_info.get("explanation") or []
+    if isinstance(expl, str):
+        expl = expl.splitlines()
+    pairs: list[tuple[str, str]] = []
+
+    def fmt(v: object) -> str:
+        if isinstance(v, float):
+            return f"{v:.6g}"
+        if isinstance(v, (list, tuple)):
+            return ", ".join(fmt(x) for x in v[:20]) + (" ..." if len(v) > 20 else "")
+        return str(v)
+
+    for k, v in plan_info.items():
+        if k in ("status", "explanation"):
+            continue
+        if isinstance(v, dict):
+            for k2, v2 in v.items():
+                if not isinstance(v2, (dict, list, tuple)) or len(v2) <= 20:
+                    pairs.append((f"{k}.{k2}", fmt(v2)))
+        else:
+            pairs.append((str(k), fmt(v)))
+    return status, pairs[:60], [str(x) for x in expl]
+
+
+def all_warnings(check: Check) -> list[str]:
+    out = list(check.study.warnings) + list(check.warnings) + list(check.year.notes)
+    out += [f"feeder {fl.feeder_id}: {fl.flag} ({fl.detail})" for fl in check.year.flags]
+    seen = set()
+    uniq = []
+    for w in out:
+        if w not in seen:
+            seen.add(w)
+            uniq.append(w)
+    return uniq
+
+
+def class_breakdown(check: Check, fc: FeederContrib) -> dict[str, object]:
+    """Armed MW per block and feeder class (profile), split into the positive part and the
+    exports (negative part): as a mean over the valid intervals and at the interval of each
+    block's lowest share.  Arrays ``[block, class]``."""
+    st = check.study
+    names = list(st.profiles.names)
+    armed = np.flatnonzero(check.block_idx >= 0)
+    used = sorted({st.feeders[i].profile for i in armed}, key=names.index)
+    nb, nc = len(st.blocks), len(used)
+    out = {k: np.zeros((nb, nc)) for k in ("mean_pos", "mean_neg", "at_pos", "at_neg")}
+    for i in armed:
+        j, k = int(check.block_idx[i]), used.index(st.feeders[i].profile)
+        out["mean_pos"][j, k] += fc.mean_pos[i]
+        out["mean_neg"][j, k] += fc.mean_neg[i]
+        v = fc.at_block_min[i]
+        out["at_pos" if v >= 0 else "at_neg"][j, k] += v
+    dem = check.year.demand_mw
+    valid = check.valid
+    return {"classes": used, **out, "t_min": fc.t_min,
+            "mean_demand": float(dem[valid].mean()) if valid.any() else float("nan"),
+            "demand_at_min": dem[fc.t_min]}
+
+
+def workbook_name(check: Check) -> str:
+    return Path(check.study.path).name if check.study.path else ""

@@ -1,0 +1,430 @@
+"""The planner's workbook, ``report.xlsx``.
+
+Sheets: ``summary`` (verdicts, plan, worst windows, fill legend, cautions), ``blocks``
+(settings and the statistics of summary.json, same values), ``feeders``, ``relay_changes``
+(the field work list), ``intervals`` (the year, one row per interval), ``windows`` (runs
+outside a band), ``exports`` (armed feeders that export) and ``substations``.
+
+Cells outside a band are filled by conditional formats (orange: below the minimum, blue:
+above the maximum); the summary sheet explains the fills.  Text is always written as text,
+never as a formula (see :mod:`allocator.report.xlsxtable`).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import openpyxl
+from openpyxl.formatting.rule import CellIsRule
+from openpyxl.styles import Alignment, Font, PatternFill
+
+from .. import __version__
+from ..check import Check, by_substation, exporting_feeders, summary_dict
+from . import content, palette
+from .xlsxtable import Col, Table, put, put_text, save, table_sheet
+
+F_MW, F_PCT, F_HZ, F_S, F_MWH, F_PP, F_INT, F_H = ("0.00", "0.0", "0.00", "0.00", "0.0",
+                                                    "0.00", "0", "0.00")
+
+FILL_BELOW = PatternFill("solid", start_color=palette.FILL_BELOW, end_color=palette.FILL_BELOW)
+FILL_ABOVE = PatternFill("solid", start_color=palette.FILL_ABOVE, end_color=palette.FILL_ABOVE)
+TITLE_FONT = Font(bold=True, size=14)
+H2_FONT = Font(bold=True, size=12)
+BOLD = Font(bold=True)
+WRAP = Alignment(wrap_text=True, vertical="top")
+
+#: blocks sheet: (summary.json key, header, kind, number format); the statistics are written
+#: with the summary.json values (same rounding), so the two files show the same numbers
+BLOCK_COLUMNS: tuple[tuple[str, str, str, str | None], ...] = (
+    ("block", "block", "text", None),
+    ("order", "order", "int", F_INT),
+    ("pickup_hz", "pickup Hz", "num", "0.000"),
+    ("delay_s", "time delay s", "num", "0.000"),
+    ("rocof_hz_per_s", "RoCoF setting Hz/s", "num", "0.00"),
+    ("rocof_arm_hz", "RoCoF arming Hz", "num", "0.00"),
+    ("target_pct", "target %", "num", F_PCT),
+    ("min_pct", "band min %", "num", F_PCT),
+    ("max_pct", "band max %", "num", F_PCT),
+    ("min_share_pct", "lowest share %", "num", "0.00"),
+    ("p1_share_pct", "P1 share %", "num", "0.00"),
+    ("p5_share_pct", "P5 share %", "num", "0.00"),
+    ("mean_share_pct", "mean share %", "num", "0.00"),
+    ("p95_share_pct", "P95 share %", "num", "0.00"),
+    ("max_share_pct", "highest share %", "num", "0.00"),
+    ("intervals_below_min", "intervals below min", "int", F_INT),
+    ("intervals_above_max", "intervals above max", "int", F_INT),
+    ("shortfall_mwh", "shortfall MWh", "num", F_MWH),
+    ("excess_mwh", "excess MWh", "num", F_MWH),
+    ("worst_violation_pp", "worst distance outside band pp", "num", F_PP),
+    ("min_share_local_time", "time of lowest share (local)", "text", None),
+    ("compliant", "compliant", "bool", None),
+)
+SHARE_KEYS = ("min_share_pct", "p1_share_pct", "p5_share_pct", "mean_share_pct",
+              "p95_share_pct", "max_share_pct")
+
+SHEETS = {
+    "summary": "verdicts, plan status, worst windows, what the fills mean, cautions",
+    "blocks": "block settings and the year's statistics (the same values as summary.json)",
+    "feeders": "every feeder: its block, relay settings, net load and share of its block",
+    "relay_changes": "the field work list: feeders whose block changes, with the new settings",
+    "intervals": "every interval: netted demand, MW and % of demand armed in each block",
+    "windows": "runs of intervals outside a block's band, worst (most MWh) first",
+    "exports": "armed feeders that export at some interval",
+    "substations": "mean armed MW per substation, zone and block",
+}
+
+
+def _cf_band(ws, rng: str, lo: str, hi: str) -> None:
+    """Orange fill below ``lo``, blue fill above ``hi`` (formulas or numbers as text)."""
+    ws.conditional_formatting.add(rng, CellIsRule(operator="lessThan", formula=[lo],
+                                                  fill=FILL_BELOW))
+    ws.conditional_formatting.add(rng, CellIsRule(operator="greaterThan", formula=[hi],
+                                                  fill=FILL_ABOVE))
+
+
+def _num(v: float) -> str:
+    return repr(float(v))
+
+
+# --------------------------------------------------------------------------------------------
+# sheets
+# --------------------------------------------------------------------------------------------
+def _blocks_sheet(wb, check: Check, before: Check | None) -> Table:
+    summ = summary_dict(check)["blocks"]
+    cols = []
+    for key, header, kind, fmt in BLOCK_COLUMNS:
+        if key in ("rocof_hz_per_s", "rocof_arm_hz"):
+            vals = [getattr(b, key) for b in check.blocks]
+            vals = [np.nan if v is None else v for v in vals]
+        elif kind == "num":
+            vals = [content.json_number(r[key]) for r in summ]
+            vals = [np.nan if v is None else v for v in vals]
+        else:
+            vals = [r[key] for r in summ]
+        cols.append(Col(header, vals, kind, fmt))
+    if before is not None:
+        bs = summary_dict(before)["blocks"]
+        for key, header in (("min_share_pct", "current allocation: lowest share %"),
+                            ("mean_share_pct", "current allocation: mean share %"),
+                            ("intervals_below_min", "current allocation: intervals below min"),
+                            ("intervals_above_max", "current allocation: intervals above max")):
+            kind = "int" if key.startswith("intervals") else "num"
+            vals = [content.json_number(r[key]) for r in bs]
+            cols.append(Col(header, [np.nan if v is None else v for v in vals], kind,
+                            F_INT if kind == "int" else "0.00"))
+        cols.append(Col("current allocation: compliant", [r["compliant"] for r in bs], "bool"))
+    t = table_sheet(wb, "blocks", cols, freeze="B2")
+    lo = t.col_letter("band min %")
+    hi = t.col_letter("band max %")
+    share_headers = [h for k, h, _, _ in BLOCK_COLUMNS if k in SHARE_KEYS]
+    if before is not None:
+        share_headers += ["current allocation: lowest share %",
+                          "current allocation: mean share %"]
+    for h in share_headers:
+        _cf_band(t.ws, t.data_range(h), f"${lo}2", f"${hi}2")
+    return t
+
+
+def _feeders_sheet(wb, check: Check, previous_idx, fc) -> Table:
+    df = content.feeder_table(check, previous_idx, fc)
+    spec = [
+        ("feeder_id", "feeder", "text", None), ("substation", "substation", "text", None),
+        ("zone", "zone", "text", None), ("profile", "profile (feeder class)", "text", None),
+        ("relay", "relay", "text", None), ("priority", "priority site", "text", None),
+        ("customers", "customers", "int", F_INT), ("block", "block", "text", None),
+        ("pickup_hz", "pickup Hz", "num", "0.000"), ("delay_s", "time delay s", "num", "0.000"),
+        ("rocof_hz_per_s", "RoCoF setting Hz/s", "num", "0.00"),
+        ("previous_block", "previous block", "text", None), ("changed", "changed", "bool", None),
+        ("mean_net_mw", "mean net MW", "num", F_MW), ("min_net_mw", "min net MW", "num", F_MW),
+        ("max_net_mw", "max net MW", "num", F_MW),
+        ("mean_contribution_mw", "mean armed MW", "num", F_MW),
+        ("share_of_block_pct", "share of its block %", "num", F_PCT),
+    ]
+    cols = [Col(h, df[k].tolist() if kind in ("text", "bool") else df[k].to_numpy(), kind, fmt)
+            for k, h, kind, fmt in spec]
+    return table_sheet(wb, "feeders", cols, freeze="B2")
+
+
+def _relay_sheet(wb, check: Check, previous_idx) -> Table:
+    df = content.relay_changes(check, previous_idx)
+    spec = [("substation", "substation", "text", None), ("feeder_id", "feeder", "text", None),
+            ("action", "action", "text", None), ("from_block", "from block", "text", None),
+            ("to_block", "to block", "text", None),
+            ("pickup_hz", "new pickup Hz", "num", "0.000"),
+            ("delay_s", "new time delay s", "num", "0.000"),
+            ("rocof_hz_per_s", "new RoCoF setting Hz/s", "num", "0.00"),
+            ("priority", "priority site", "text", None)]
+    if df.empty:
+        msg = ("No relay changes: this report checks the workbook's current allocation."
+               if previous_idx is None else
+               "No relay changes: every feeder keeps the block it has now.")
+        cols = [Col(h, [msg] if j == 0 else ([None] if kind == "text" else [np.nan]), kind, fmt,
+                    width=20 if j == 0 else None)
+                for j, (k, h, kind, fmt) in enumerate(spec)]
+        return table_sheet(wb, "relay_changes", cols, autofilter=False)
+    cols = [Col(h, df[k].tolist() if kind == "text" else df[k].to_numpy(dtype=float), kind,
+                fmt) for k, h, kind, fmt in spec]
+    return table_sheet(wb, "relay_changes", cols, freeze="C2")
+
+
+def _intervals_sheet(wb, check: Check) -> Table:
+    y = check.year
+    cols = [Col(f"local time ({y.timezone})", y.local_times.tz_localize(None), "date",
+                "yyyy-mm-dd hh:mm", 17),
+            Col("UTC time", y.timestamps_utc.tz_localize(None), "date", "yyyy-mm-dd hh:mm", 17),
+            Col("netted demand MW", y.demand_mw, "num", F_MW, 11)]
+    for j, b in enumerate(check.blocks):
+        cols.append(Col(f"{b.name} armed MW", check.armed_mw[j], "num", F_MW, 10))
+        cols.append(Col(f"{b.name} share %", check.share_pct[j], "num", F_PCT, 10))
+    t = table_sheet(wb, "intervals", cols, freeze="B2")
+    for b in check.blocks:
+        _cf_band(t.ws, t.data_range(f"{b.name} share %"), _num(b.min_pct), _num(b.max_pct))
+    return t
+
+
+def _windows_sheet(wb, check: Check) -> Table:
+    w = content.windows_table(check)
+    spec = [("rank", "rank", "int", F_INT), ("block", "block", "text", None),
+            ("kind", "kind", "text", None), ("start_local", "start (local)", "text", None),
+            ("end_local", "end (local)", "text", None), ("duration_h", "duration h", "num", F_H),
+            ("intervals", "intervals", "int", F_INT),
+            ("worst_share_pct", "worst share %", "num", "0.00"),
+            ("band_pct", "band limit %", "num", F_PCT),
+            ("energy_mwh", "MWh outside band", "num", F_MWH)]
+    if w.empty:
+        cols = [Col(h, ["No interval lies outside any block's band."] if j == 0 else
+                    ([None] if kind == "text" else [np.nan]), "text" if j == 0 else kind, fmt,
+                    width=20 if j == 0 else None)
+                for j, (k, h, kind, fmt) in enumerate(spec)]
+        return table_sheet(wb, "windows", cols, autofilter=False)
+    cols = [Col(h, w[k].tolist() if kind == "text" else w[k].to_numpy(dtype=float), kind, fmt)
+            for k, h, kind, fmt in spec]
+    t = table_sheet(wb, "windows", cols)
+    # worst share: orange for below-min windows, blue for above-max ones
+    rng = t.data_range("worst share %")
+    band = t.col_letter("band limit %")
+    t.ws.conditional_formatting.add(rng, CellIsRule(operator="lessThan", formula=[f"${band}2"],
+                                                    fill=FILL_BELOW))
+    t.ws.conditional_formatting.add(rng, CellIsRule(operator="greaterThan",
+                                                    formula=[f"${band}2"], fill=FILL_ABOVE))
+    return t
+
+
+def _exports_sheet(wb, check: Check) -> Table:
+    df = exporting_feeders(check)
+    spec = [("feeder_id", "feeder", "text", None), ("substation", "substation", "text", None),
+            ("block", "block", "text", None), ("relay", "relay", "text", None),
+            ("exporting_intervals", "exporting intervals", "int", F_INT),
+            ("exporting_hours", "exporting hours h", "num", F_H),
+            ("most_export_mw", "largest export MW", "num", F_MW),
+            ("most_export_local_time", "time of largest export (local)", "text", None),
+            ("negative_contribution_mwh", "negative contribution MWh", "num", F_MWH)]
+    if df.empty or "substation" not in df.columns:
+        cols = [Col(h, ["No armed feeder exports at any interval."] if j == 0 else
+                    ([None] if kind == "text" else [np.nan]), "text" if j == 0 else kind, fmt,
+                    width=20 if j == 0 else None)
+                for j, (k, h, kind, fmt) in enumerate(spec)]
+        return table_sheet(wb, "exports", cols, autofilter=False)
+    cols = [Col(h, df[k].tolist() if kind == "text" else df[k].to_numpy(dtype=float), kind, fmt)
+            for k, h, kind, fmt in spec]
+    return table_sheet(wb, "exports", cols, freeze="B2")
+
+
+def _substations_sheet(wb, check: Check) -> Table:
+    df = by_substation(check)
+    spec = [("substation", "substation", "text", None), ("zone", "zone", "text", None),
+            ("block", "block", "text", None), ("feeders", "feeders", "int", F_INT),
+            ("customers", "customers", "int", F_INT),
+            ("mean_armed_mw", "mean armed MW", "num", F_MW),
+            ("armed_mw_at_block_min", "armed MW at the block's lowest share", "num", F_MW)]
+    if df.empty:
+        cols = [Col(h, ["No feeder is armed."] if j == 0 else
+                    ([None] if kind == "text" else [np.nan]), "text" if j == 0 else kind, fmt)
+                for j, (k, h, kind, fmt) in enumerate(spec)]
+        return table_sheet(wb, "substations", cols, autofilter=False)
+    cols = [Col(h, df[k].tolist() if kind == "text" else df[k].to_numpy(dtype=float), kind, fmt)
+            for k, h, kind, fmt in spec]
+    return table_sheet(wb, "substations", cols)
+
+
+def _summary_sheet(ws, check: Check, previous_idx, plan_info, before: Check | None) -> None:
+    s = check.study.settings
+    ws.column_dimensions["A"].width = 34
+    for col in "BCDEFGHIJK":
+        ws.column_dimensions[col].width = 14
+    r = 1
+    put_text(ws, r, 1, "UFLS armed-load report").font = TITLE_FONT
+    r += 1
+    put_text(ws, r, 1, f"{s.utility} - study year {s.year} - workbook "
+                       f"{content.workbook_name(check)} - ufls-allocator {__version__}")
+    r += 2
+
+    def pair(label: str, value: object, fmt: str | None = None, bold: bool = False) -> None:
+        nonlocal r
+        put_text(ws, r, 1, label).font = BOLD
+        c = put(ws, r, 2, value, fmt)
+        if bold:
+            c.font = BOLD
+        r += 1
+
+    what = ("a planned allocation" if plan_info else
+            "a proposed assignment" if previous_idx is not None else
+            "the workbook's current allocation")
+    pair("allocation checked", what)
+    pair("overall verdict", "COMPLIANT" if check.compliant else "NOT COMPLIANT", bold=True)
+    put_text(ws, r, 1, content.verdict_words(check))
+    r += 1
+    if before is not None:
+        pair("current allocation", "COMPLIANT" if before.compliant else "NOT COMPLIANT")
+        put_text(ws, r, 1, "Current allocation: " + content.verdict_words(before))
+        r += 1
+    pair("compliance rule", check.rule)
+    pair("utility", s.utility)
+    pair("study year", s.year)
+    pair("intervals", check.year.n_intervals, "0")
+    pair("interval length min", check.year.interval_minutes, "0")
+    pair("all blocks in band, % of intervals", 100.0 * check.all_in_band_fraction, "0.0")
+    pair("worst distance outside a band, pp", check.worst_violation_pp, "0.00")
+    pair("intervals with demand <= 0 (left out)", int((~check.valid).sum()), "0")
+    pair("data source", check.year.source)
+    pair("priority sites", content.priority_summary(check).words(s.priority_policy))
+    status, pairs, expl = content.plan_lines(plan_info)
+    if plan_info:
+        r += 1
+        put_text(ws, r, 1, "Plan").font = H2_FONT
+        r += 1
+        pair("plan status", status or "(not given)", bold=True)
+        for k, v in pairs:
+            pair(k, v)
+        if expl:
+            put_text(ws, r, 1, "explanation").font = BOLD
+            r += 1
+            for line in expl:
+                put_text(ws, r, 1, line)
+                r += 1
+    if previous_idx is not None:
+        n_changed = int(np.sum(np.asarray(previous_idx) != check.block_idx))
+        pair("feeders whose block changes", n_changed, "0")
+
+    r += 1
+    put_text(ws, r, 1, "Verdict per block").font = H2_FONT
+    r += 1
+    heads = ["block", "pickup Hz", "band min %", "band max %", "lowest share %",
+             "mean share %", "intervals below min", "intervals above max", "verdict"]
+    if before is not None:
+        heads += ["current: lowest share %", "current: verdict"]
+    for j, h in enumerate(heads, 1):
+        c = put_text(ws, r, j, h)
+        c.font, c.alignment = BOLD, WRAP
+    ws.row_dimensions[r].height = 30
+    r += 1
+    first = r
+    for k, st in enumerate(check.stats):
+        vals = [st.block, st.pickup_hz, st.min_pct, st.max_pct, st.min_share_pct,
+                st.mean_share_pct, st.intervals_below_min, st.intervals_above_max,
+                content.block_verdict(st.compliant)]
+        fmts = [None, "0.000", "0.0", "0.0", "0.00", "0.00", "0", "0", None]
+        if before is not None:
+            b = before.stats[k]
+            vals += [b.min_share_pct, content.block_verdict(b.compliant)]
+            fmts += ["0.00", None]
+        for j, (v, f) in enumerate(zip(vals, fmts), 1):
+            put(ws, r, j, v, f)
+        r += 1
+    last = r - 1
+    for col in ("E", "F") + (("J",) if before is not None else ()):
+        _cf_band(ws, f"{col}{first}:{col}{last}", f"$C{first}", f"$D{first}")
+
+    r += 1
+    put_text(ws, r, 1, "Worst windows outside the band").font = H2_FONT
+    r += 1
+    w = content.windows_table(check)
+    if w.empty:
+        put_text(ws, r, 1, "No interval lies outside any block's band.")
+        r += 1
+    else:
+        put_text(ws, r, 1, f"{len(w)} windows in all; the 10 with the most MWh outside the band "
+                           "(all of them on the 'windows' sheet):")
+        r += 1
+        heads = ["rank", "block", "kind", "start (local)", "end (local)", "duration h",
+                 "worst share %", "MWh outside band"]
+        for j, h in enumerate(heads, 1):
+            put_text(ws, r, j, h).font = BOLD
+        r += 1
+        for row in w.head(10).itertuples():
+            vals = [row.rank, row.block, row.kind, row.start_local, row.end_local,
+                    row.duration_h, row.worst_share_pct, row.energy_mwh]
+            fmts = ["0", None, None, None, None, "0.00", "0.00", "0.0"]
+            for j, (v, f) in enumerate(zip(vals, fmts), 1):
+                put(ws, r, j, v, f)
+            r += 1
+
+    r += 1
+    put_text(ws, r, 1, "What the fills mean").font = H2_FONT
+    r += 1
+    c = put_text(ws, r, 1, "below the band's minimum")
+    c.fill = FILL_BELOW
+    put_text(ws, r, 2, "the block would shed too little netted demand in that interval "
+                       "(share % columns of 'intervals', share columns of 'blocks')")
+    r += 1
+    c = put_text(ws, r, 1, "above the band's maximum")
+    c.fill = FILL_ABOVE
+    put_text(ws, r, 2, "the block would shed too much netted demand in that interval")
+    r += 1
+    put_text(ws, r, 1, "share %")
+    put_text(ws, r, 2, "armed MW of the block / netted demand MW x 100, per interval; an "
+                       "exporting feeder on a standard relay counts negative")
+    r += 2
+    put_text(ws, r, 1, "Sheets").font = H2_FONT
+    r += 1
+    for name, text in SHEETS.items():
+        put_text(ws, r, 1, name).font = BOLD
+        put_text(ws, r, 2, text)
+        r += 1
+
+    r += 1
+    put_text(ws, r, 1, "Assumptions").font = H2_FONT
+    r += 1
+    for topic, text in content.assumptions(check):
+        put_text(ws, r, 1, topic).font = BOLD
+        put_text(ws, r, 2, text)
+        r += 1
+
+    r += 1
+    put_text(ws, r, 1, "Cautions").font = H2_FONT
+    r += 1
+    for text in content.CAUTIONS:
+        put_text(ws, r, 1, "! " + text)
+        r += 1
+
+    warns = content.all_warnings(check)
+    if warns:
+        r += 1
+        put_text(ws, r, 1, f"Warnings ({len(warns)})").font = H2_FONT
+        r += 1
+        for text in warns[:200]:
+            put_text(ws, r, 1, text)
+            r += 1
+        if len(warns) > 200:
+            put_text(ws, r, 1, f"... and {len(warns) - 200} more")
+    ws.sheet_view.showGridLines = False
+
+
+def write_workbook(check: Check, path: Path, previous_idx: np.ndarray | None = None,
+                   plan_info: dict | None = None, before: Check | None = None,
+                   fc: content.FeederContrib | None = None) -> Path:
+    """Write ``report.xlsx`` to ``path`` and return it."""
+    path = Path(path)
+    fc = content.feeder_contrib(check) if fc is None else fc
+    wb = openpyxl.Workbook()
+    wb.properties.creator = f"ufls-allocator {__version__}"
+    ws = wb.active
+    ws.title = "summary"
+    _summary_sheet(ws, check, previous_idx, plan_info, before)
+    tables = [_blocks_sheet(wb, check, before), _feeders_sheet(wb, check, previous_idx, fc),
+              _relay_sheet(wb, check, previous_idx), _intervals_sheet(wb, check),
+              _windows_sheet(wb, check), _exports_sheet(wb, check),
+              _substations_sheet(wb, check)]
+    save(wb, path, tables)
+    return path

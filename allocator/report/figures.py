@@ -1,0 +1,514 @@
+"""The report's pictures (matplotlib, Agg canvas, PNG at 150 dpi).
+
+* ``share_map_<block>``: per block, share of netted demand by date (x) and local time of day
+  (y), coloured on a diverging scale centred on the block's target, with contour lines at
+  the band's minimum (solid) and maximum (dashed).
+* ``duration_curves``: every block's share sorted from highest to lowest, with min, target
+  and max lines (and the current allocation behind, when a plan is reported).
+* ``average_day``: mean share by local hour per season (columns) and block (rows), one line
+  per day type, with the season's lowest-to-highest range shaded.
+* ``feeder_classes``: which feeder classes (profiles) make up each block - mean armed MW
+  over the year and at the block's worst interval, exports below zero.
+* ``worst_windows``: the worst runs outside a band on the year's timeline.
+
+Figures are drawn on :class:`matplotlib.figure.Figure` objects attached to the Agg canvas
+(``FigureCanvasAgg``) directly.  That is the Agg backend without ``matplotlib.use("Agg")``:
+pyplot is never imported, so no GUI backend is ever chosen, and a notebook user's own
+backend is not switched under them.  PNGs carry no software/time metadata, so a rerun gives the same bytes.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import matplotlib as mpl
+import matplotlib.dates as mdates
+import numpy as np
+import pandas as pd
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.colors import TwoSlopeNorm
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
+
+from ..check import Check
+from ..domain import DAY_TYPES
+from ..safeio import safe_filename
+from . import content, palette
+
+DPI = 150
+DAY_WORDS = {"workday": "workday", "saturday": "Saturday", "sunday": "Sunday or holiday"}
+#: number of windows drawn on the timeline
+TOP_WINDOWS = 15
+
+STYLE = {
+    "font.size": 9,
+    "axes.titlesize": 10,
+    "axes.labelsize": 9,
+    "axes.edgecolor": "#555555",
+    "axes.linewidth": 0.8,
+    "axes.grid": True,
+    "grid.color": "#E3E3E3",
+    "grid.linewidth": 0.6,
+    "xtick.labelsize": 8,
+    "ytick.labelsize": 8,
+    "legend.fontsize": 8,
+    "legend.frameon": False,
+    "figure.facecolor": "white",
+    "axes.facecolor": "white",
+    "savefig.facecolor": "white",
+    "path.simplify": True,
+    "svg.hashsalt": "ufls",
+}
+
+
+@dataclass(frozen=True)
+class FigureFile:
+    """One rendered picture: ``name`` (file stem), title and caption for the HTML page,
+    ``size_in`` (inches; pixels = inches x DPI), the PNG bytes and where it was saved."""
+
+    name: str
+    title: str
+    caption: str
+    size_in: tuple[float, float]
+    png: bytes
+    path: Path | None
+
+    @property
+    def size_px(self) -> tuple[int, int]:
+        return (int(round(self.size_in[0] * DPI)), int(round(self.size_in[1] * DPI)))
+
+
+def _new(size: tuple[float, float]) -> Figure:
+    fig = Figure(figsize=size, dpi=DPI, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _png(fig: Figure) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None})
+    return buf.getvalue()
+
+
+def _month_axis(ax, year: int) -> None:
+    ax.xaxis.set_major_locator(mdates.MonthLocator())
+    ax.xaxis.set_major_formatter(mdates.DateFormatter("%b"))
+    ax.set_xlim(mdates.date2num(pd.Timestamp(year=year, month=1, day=1)),
+                mdates.date2num(pd.Timestamp(year=year + 1, month=1, day=1)))
+
+
+def _block_title(b) -> str:
+    return f"{b.name} ({b.pickup_hz:g} Hz)"
+
+
+# --------------------------------------------------------------------------------------------
+# share by date x time of day
+# --------------------------------------------------------------------------------------------
+def _day_grid(check: Check, j: int) -> tuple[np.ndarray, pd.DatetimeIndex]:
+    """``[slot, day]`` share of block j by local date and time-of-day slot (NaN where the
+    spring DST gap has no interval; the repeated autumn hour is averaged)."""
+    y = check.year
+    lt = y.local_times
+    iv = y.interval_minutes
+    n_slots = 1440 // iv
+    dates = lt.tz_localize(None).normalize()
+    days = pd.DatetimeIndex(dates.unique())
+    day_i = days.get_indexer(dates)
+    slot = ((lt.hour * 60 + lt.minute).to_numpy() // iv).astype(np.intp)
+    s = np.where(check.valid, check.share_pct[j], np.nan)
+    tot = np.zeros((n_slots, len(days)))
+    cnt = np.zeros((n_slots, len(days)))
+    ok = np.isfinite(s)
+    np.add.at(tot, (slot[ok], day_i[ok]), s[ok])
+    np.add.at(cnt, (slot[ok], day_i[ok]), 1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        grid = np.where(cnt > 0, tot / np.maximum(cnt, 1), np.nan)
+    return grid, days
+
+
+def band_norm(b) -> TwoSlopeNorm:
+    """Norm putting min at 0.25, target at 0.5 and max at 0.75 of the colour map."""
+    below = max(b.target_pct - b.min_pct, 0.25)
+    above = max(b.max_pct - b.target_pct, 0.25)
+    return TwoSlopeNorm(vcenter=b.target_pct, vmin=b.target_pct - 2 * below,
+                        vmax=b.target_pct + 2 * above)
+
+
+def share_map(check: Check, j: int) -> tuple[Figure, str, str]:
+    b = check.blocks[j]
+    st = check.stats[j]
+    grid, days = _day_grid(check, j)
+    n_slots = grid.shape[0]
+    fig = _new((11.0, 4.4))
+    ax = fig.add_subplot()
+    x0 = mdates.date2num(days[0])
+    x1 = mdates.date2num(days[-1] + pd.Timedelta(days=1))
+    norm = band_norm(b)
+    im = ax.imshow(np.ma.masked_invalid(grid), origin="lower", aspect="auto",
+                   interpolation="nearest", cmap=palette.band_colormap(), norm=norm,
+                   extent=(x0, x1, 0, 24))
+    ax.grid(False)
+    xc = x0 + 0.5 + np.arange(grid.shape[1])
+    yc = (np.arange(n_slots) + 0.5) * 24.0 / n_slots
+    g = np.ma.masked_invalid(grid)
+    handles = []
+    if np.nanmin(grid) < b.min_pct < np.nanmax(grid):
+        ax.contour(xc, yc, g, levels=[b.min_pct], colors=[palette.INK], linewidths=1.0,
+                   linestyles="solid")
+    if np.nanmin(grid) < b.max_pct < np.nanmax(grid):
+        ax.contour(xc, yc, g, levels=[b.max_pct], colors=[palette.INK], linewidths=1.0,
+                   linestyles="dashed")
+    handles.append(Line2D([], [], color=palette.INK, lw=1.0, ls="solid",
+                          label=f"edge of min {b.min_pct:g} %"))
+    handles.append(Line2D([], [], color=palette.INK, lw=1.0, ls="dashed",
+                          label=f"edge of max {b.max_pct:g} %"))
+    handles.append(Patch(facecolor=palette.VERMILION, label="below min"))
+    handles.append(Patch(facecolor=palette.BLUE, label="above max"))
+    ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(0.0, -0.12), ncols=4,
+              frameon=False)
+    _month_axis(ax, check.study.settings.year)
+    ax.set_ylim(0, 24)
+    ax.set_yticks(range(0, 25, 3))
+    ax.set_yticklabels([f"{h:02d}:00" for h in range(0, 25, 3)])
+    ax.set_xlabel("date")
+    ax.set_ylabel(f"local time of day (h, {check.year.timezone})")
+    cb = fig.colorbar(im, ax=ax, extend="both", pad=0.01, fraction=0.04)
+    cb.set_label("share of netted demand armed (%)")
+    ticks = sorted({norm.vmin, b.min_pct, b.target_pct, b.max_pct, norm.vmax})
+    cb.set_ticks(ticks)
+    cb.set_ticklabels([f"{t:g}" for t in ticks])
+    n_out = st.intervals_below_min + st.intervals_above_max
+    ax.set_title(f"Block {_block_title(b)}: share of netted demand through the year - "
+                 f"band {b.min_pct:g}-{b.max_pct:g} %, target {b.target_pct:g} %; "
+                 f"{n_out} intervals outside the band", loc="left")
+    title = f"Block {b.name}: share of demand by date and time of day"
+    caption = (f"Each cell is one interval: date left to right, local time of day bottom to "
+               f"top. Pale cells are inside the band {b.min_pct:g}-{b.max_pct:g} %; strong "
+               f"orange cells hold less than the minimum, strong blue cells more than the "
+               f"maximum. The solid line encloses the areas below the minimum, the dashed line "
+               f"those above the maximum. Grey: no interval (daylight-saving gap) or demand "
+               f"of 0 MW or less.")
+    return fig, title, caption
+
+
+# --------------------------------------------------------------------------------------------
+# duration curves
+# --------------------------------------------------------------------------------------------
+def _grid_shape(n: int, max_cols: int = 3) -> tuple[int, int]:
+    cols = min(max_cols, max(n, 1))
+    return math.ceil(max(n, 1) / cols), cols
+
+
+def duration_size(n_blocks: int) -> tuple[float, float]:
+    rows, cols = _grid_shape(n_blocks)
+    return (11.0, 1.0 + 2.9 * rows)
+
+
+def duration_curves(check: Check, before: Check | None) -> tuple[Figure, str, str]:
+    nb = len(check.blocks)
+    rows, cols = _grid_shape(nb)
+    fig = _new(duration_size(nb))
+    axes = fig.subplots(rows, cols, squeeze=False, sharex=True)
+    for k in range(rows * cols):
+        ax = axes[k // cols][k % cols]
+        if k >= nb:
+            ax.set_visible(False)
+            continue
+        b, st = check.blocks[k], check.stats[k]
+        s = np.sort(check.share_pct[k, check.valid])[::-1]
+        x = (np.arange(s.size) + 0.5) / max(s.size, 1) * 100.0
+        ax.axhspan(b.min_pct, b.max_pct, color=palette.BAND_SHADE, alpha=0.5, lw=0)
+        if before is not None:
+            sb = np.sort(before.share_pct[k, before.valid])[::-1]
+            xb = (np.arange(sb.size) + 0.5) / max(sb.size, 1) * 100.0
+            ax.plot(xb, sb, color=palette.BEFORE, lw=1.4, ls=(0, (4, 2)),
+                    label="current allocation")
+        ax.plot(x, s, color=palette.INK, lw=1.6,
+                label="this plan, sorted" if before is not None else "share, sorted")
+        ax.axhline(b.min_pct, color=palette.BELOW, lw=1.1, ls="solid", label="band minimum")
+        ax.axhline(b.target_pct, color=palette.TARGET, lw=0.9, ls="dotted", label="target")
+        ax.axhline(b.max_pct, color=palette.ABOVE, lw=1.1, ls="dashed", label="band maximum")
+        n = max(int(check.valid.sum()), 1)
+        below = 100.0 * st.intervals_below_min / n
+        above = 100.0 * st.intervals_above_max / n
+        verdict = content.block_verdict(st.compliant)
+        ax.set_title(f"{_block_title(b)} - {verdict}\n{below:.1f} % of intervals below min, "
+                     f"{above:.1f} % above max", loc="left", fontsize=9,
+                     fontweight="normal" if st.compliant else "bold")
+        ax.set_xlim(0, 100)
+        lo = min(np.nanmin(s) if s.size else b.min_pct, b.min_pct)
+        hi = max(np.nanmax(s) if s.size else b.max_pct, b.max_pct)
+        pad = 0.08 * (hi - lo if hi > lo else 1.0)
+        ax.set_ylim(lo - pad, hi + pad)
+        if k % cols == 0:
+            ax.set_ylabel("share of netted demand (%)")
+        if k // cols == rows - 1 or k + cols >= nb:
+            ax.set_xlabel("intervals with at least this share (% of the year)")
+            ax.tick_params(labelbottom=True)
+    h, lab = axes[0][0].get_legend_handles_labels()
+    fig.legend(h, lab, loc="outside lower center", ncols=len(lab))
+    fig.suptitle("How much of the year each block holds a given share of netted demand "
+                 "(sorted from highest to lowest share)", x=0.01, ha="left", fontsize=11)
+    title = "Duration curves of each block's share"
+    caption = ("Each block's share of netted demand, sorted from the highest interval to the "
+               "lowest. Where the black curve drops under the orange min line, the block sheds "
+               "too little for that part of the year; above the blue dashed line, too much. "
+               "The grey band is the allowed range.")
+    if before is not None:
+        caption += " The grey dashed curve is the current allocation, for comparison."
+    return fig, title, caption
+
+
+# --------------------------------------------------------------------------------------------
+# average day per season
+# --------------------------------------------------------------------------------------------
+def average_day_size(n_blocks: int, n_seasons: int) -> tuple[float, float]:
+    return (min(2.9 * n_seasons + 1.2, 14.0), 1.0 + 2.0 * n_blocks)
+
+
+def average_day(check: Check) -> tuple[Figure, str, str]:
+    y = check.year
+    seasons = check.study.profiles.seasons
+    nb, ns = len(check.blocks), len(seasons)
+    iv = y.interval_minutes
+    n_slots = 1440 // iv
+    lt = y.local_times
+    slot = ((lt.hour * 60 + lt.minute).to_numpy() // iv).astype(np.intp)
+    hours = (np.arange(n_slots) + 0.5) * iv / 60.0
+    fig = _new(average_day_size(nb, ns))
+    axes = fig.subplots(nb, ns, squeeze=False, sharex=True, sharey="row")
+    day_colors = [palette.BLUE, palette.ORANGE, palette.GREEN]
+    day_styles = ["solid", "dashed", "dashdot"]
+    for j, b in enumerate(check.blocks):
+        s_all = np.where(check.valid, check.share_pct[j], np.nan)
+        for k, season in enumerate(seasons):
+            ax = axes[j][k]
+            ax.axhspan(b.min_pct, b.max_pct, color=palette.BAND_SHADE, alpha=0.5, lw=0)
+            ax.axhline(b.target_pct, color=palette.TARGET, lw=0.7, ls="dotted")
+            ax.axhline(b.min_pct, color=palette.BELOW, lw=0.8, ls="solid")
+            ax.axhline(b.max_pct, color=palette.ABOVE, lw=0.8, ls="dashed")
+            in_season = y.season_index == k
+            if in_season.any():
+                sel = in_season & np.isfinite(s_all)
+                lo = np.full(n_slots, np.nan)
+                hi = np.full(n_slots, np.nan)
+                for q in range(n_slots):
+                    v = s_all[sel & (slot == q)]
+                    if v.size:
+                        lo[q], hi[q] = v.min(), v.max()
+                ax.fill_between(hours, lo, hi, color=palette.SKY, alpha=0.18, lw=0,
+                                label="lowest to highest day")
+                for d, dname in enumerate(DAY_TYPES):
+                    m = sel & (y.day_type_index == d)
+                    if not m.any():
+                        continue
+                    tot = np.bincount(slot[m], weights=s_all[m], minlength=n_slots)
+                    cnt = np.bincount(slot[m], minlength=n_slots)
+                    with np.errstate(invalid="ignore", divide="ignore"):
+                        mean = np.where(cnt > 0, tot / np.maximum(cnt, 1), np.nan)
+                    ax.plot(hours, mean, color=day_colors[d], ls=day_styles[d], lw=1.3,
+                            label=f"mean {DAY_WORDS.get(dname, dname)}")
+            else:
+                ax.text(0.5, 0.5, "no days in this season", transform=ax.transAxes,
+                        ha="center", va="center", color=palette.MUTED)
+            ax.set_xlim(0, 24)
+            ax.set_xticks(range(0, 25, 6))
+            if j == 0:
+                ax.set_title(season, fontsize=10)
+            if k == 0:
+                ax.set_ylabel(f"{b.name} share (%)\nband {b.min_pct:g}-{b.max_pct:g}")
+            if j == nb - 1:
+                ax.set_xlabel("local hour (h)")
+    h, lab = axes[0][0].get_legend_handles_labels()
+    h += [Patch(facecolor=palette.BAND_SHADE, alpha=0.5),
+          Line2D([], [], color=palette.BELOW, lw=0.8),
+          Line2D([], [], color=palette.ABOVE, lw=0.8, ls="dashed")]
+    lab += ["band", "band minimum", "band maximum"]
+    fig.legend(h, lab, loc="outside lower center", ncols=len(lab))
+    fig.suptitle("Average day: each block's share of netted demand by local hour, per season "
+                 "and day type", x=0.01, ha="left", fontsize=11)
+    title = "Average day per season"
+    caption = ("Rows are blocks, columns seasons. The lines are the mean share at each local "
+               "hour for workdays, Saturdays and Sundays (public holidays count as Sundays); "
+               "the light blue area spans the lowest to the highest day of the season at that "
+               "hour. The grey band is the allowed range.")
+    return fig, title, caption
+
+
+# --------------------------------------------------------------------------------------------
+# feeder classes per block
+# --------------------------------------------------------------------------------------------
+def classes_size(n_blocks: int) -> tuple[float, float]:
+    return (max(9.0, min(14.0, 4.0 + 1.4 * n_blocks)), 5.4)
+
+
+def feeder_classes(check: Check, fc: content.FeederContrib) -> tuple[Figure, str, str]:
+    cb = content.class_breakdown(check, fc)
+    classes = cb["classes"]
+    nb = len(check.blocks)
+    fig = _new(classes_size(nb))
+    axes = fig.subplots(1, 2, sharey=False)
+    x = np.arange(nb)
+    names = [b.name for b in check.blocks]
+    panels = (("mean_pos", "mean_neg", "Mean over the year"),
+              ("at_pos", "at_neg", "At each block's lowest-share interval"))
+    for ax, (kp, kn, head) in zip(axes, panels):
+        pos, neg = cb[kp], cb[kn]
+        up = np.zeros(nb)
+        down = np.zeros(nb)
+        for c, cname in enumerate(classes):
+            color, hatch = palette.category(c)
+            ax.bar(x, pos[:, c], bottom=up, color=color, hatch=hatch, edgecolor="white",
+                   lw=0.5, label=cname, width=0.65)
+            up += pos[:, c]
+            if np.any(neg[:, c] < 0):
+                ax.bar(x, neg[:, c], bottom=down, color=color, hatch=hatch or "//",
+                       edgecolor="white", lw=0.5, width=0.65, alpha=0.75)
+                down += neg[:, c]
+        net = up + down
+        ax.plot(x, net, ls="none", marker="D", color=palette.INK, ms=5, label="net armed MW")
+        if kp == "mean_pos":
+            need = np.array([b.min_pct / 100.0 * cb["mean_demand"] for b in check.blocks])
+        else:
+            need = np.array([b.min_pct / 100.0 * cb["demand_at_min"][j]
+                             for j, b in enumerate(check.blocks)])
+        ax.plot(x, need, ls="none", marker="_", color=palette.BELOW, ms=22, mew=2.2,
+                label="band minimum (MW)")
+        ax.axhline(0, color=palette.INK, lw=0.8)
+        ax.set_xticks(x)
+        if kp == "at_pos":
+            lt = check.year.local_times
+            ax.set_xticklabels([f"{nm}\n{lt[int(cb['t_min'][j])]:%d %b %H:%M}"
+                                for j, nm in enumerate(names)])
+            ax.set_xlabel("block and the local time of its lowest share")
+        else:
+            ax.set_xticklabels(names)
+            ax.set_xlabel("block")
+        ax.set_ylabel("armed MW (exports below 0)")
+        ax.set_title(head, loc="left")
+        ax.grid(axis="x", visible=False)
+    h, lab = axes[0].get_legend_handles_labels()
+    order = list(range(2, len(h))) + [0, 1]  # classes first, then the markers
+    h, lab = [h[i] for i in order], [lab[i] for i in order]
+    if any(np.any(cb[k] < 0) for k in ("mean_neg", "at_neg")):
+        h.append(Patch(facecolor="#BBBBBB", hatch="//", edgecolor="white"))
+        lab.append("below 0: exports through standard relays")
+    fig.legend(h, lab, loc="outside lower center", ncols=min(len(h), 5))
+    fig.suptitle("Which feeder classes (profiles) make up each block's armed load",
+                 x=0.01, ha="left", fontsize=11)
+    title = "Feeder classes in each block"
+    caption = ("Armed MW of each block split by feeder class (the workbook's profile). Left: "
+               "mean over the year; right: at the interval where the block's share is lowest "
+               "(its date and time under each bar). Parts below zero are feeders exporting "
+               "through standard relays, which would raise the system's net load if tripped. "
+               "The diamond is the net armed MW, the orange bar the MW the band's minimum "
+               "needs.")
+    return fig, title, caption
+
+
+# --------------------------------------------------------------------------------------------
+# worst windows on the year's timeline
+# --------------------------------------------------------------------------------------------
+def windows_size(n: int) -> tuple[float, float]:
+    return (11.0, 1.9 + 0.3 * (max(n, 3) + 1.5))
+
+
+def worst_windows(check: Check) -> tuple[Figure, str, str]:
+    w = check.windows()
+    top = w.head(TOP_WINDOWS)
+    n = len(top)
+    fig = _new(windows_size(n))
+    ax = fig.add_subplot()
+    year = check.study.settings.year
+    _month_axis(ax, year)
+    ax.set_xlabel("date")
+    if n == 0:
+        ax.set_yticks([])
+        ax.text(0.5, 0.5, "No interval lies outside any block's band.", transform=ax.transAxes,
+                ha="center", va="center", fontsize=11)
+        ax.set_title("Worst windows outside the band", loc="left")
+    else:
+        lt = check.year.local_times
+        step = pd.Timedelta(minutes=check.year.interval_minutes)
+        labels = []
+        starts = top["_start"].to_numpy(dtype=np.intp)
+        for i, r in enumerate(top.drop(columns=["_start"]).itertuples()):
+            st = int(starts[i])
+            t0 = lt[st].tz_localize(None)
+            t1 = lt[st + int(r.intervals) - 1].tz_localize(None) + step
+            below = r.kind == "below_min"
+            color = palette.BELOW if below else palette.ABOVE
+            yv = n - 1 - i
+            x0, x1 = mdates.date2num(t0), mdates.date2num(t1)
+            ax.plot([x0, x1], [yv, yv], color=color, lw=6, solid_capstyle="butt")
+            ax.plot([(x0 + x1) / 2], [yv], ls="none", color=color, mec=palette.INK, mew=0.6,
+                    marker="v" if below else "^", ms=8)
+            kind = content.KIND_WORDS.get(r.kind, r.kind)
+            end = f"{t1:%H:%M}" if t1.normalize() == t0.normalize() or t1 == \
+                t0.normalize() + pd.Timedelta(days=1) else f"{t1:%a %d %b %H:%M}"
+            labels.append(f"#{r.rank} {r.block} {kind}: {t0:%a %d %b %H:%M}-{end}, "
+                          f"{r.duration_h:g} h, {r.energy_mwh:.1f} MWh")
+        # every window, as a rug under the ranked rows
+        all_st = w["_start"].to_numpy(dtype=np.intp)
+        all_x = mdates.date2num(lt[all_st].tz_localize(None))
+        kinds = w["kind"].to_numpy()
+        for kname, color in (("below_min", palette.BELOW), ("above_max", palette.ABOVE)):
+            m = kinds == kname
+            if m.any():
+                ax.plot(all_x[m], np.full(m.sum(), -1.3), ls="none", marker="|", ms=12,
+                        mew=1.0, color=color, alpha=0.8)
+        ax.set_yticks(list(range(n)) + [-1.3])
+        ax.set_yticklabels(labels[::-1] + [f"start of each of all {len(w)} windows"],
+                           fontsize=7.5)
+        ax.set_ylim(-2.0, n - 0.3)
+        ax.axhline(-0.65, color="#BBBBBB", lw=0.8)
+        ax.grid(axis="y", visible=False)
+        handles = [Line2D([], [], ls="none", marker="v", color=palette.BELOW, mec=palette.INK,
+                          label="below min (too little load shed)"),
+                   Line2D([], [], ls="none", marker="^", color=palette.ABOVE, mec=palette.INK,
+                          label="above max (too much load shed)")]
+        fig.legend(handles=handles, loc="outside lower center", ncols=2)
+        ax.set_title(f"The {n} worst windows outside a band (most MWh outside the band first; "
+                     f"{len(w)} windows in all)", loc="left")
+    title = "Worst windows on the year's timeline"
+    caption = (f"The {min(TOP_WINDOWS, len(w))} runs of consecutive intervals outside a block's "
+               "band with the most energy outside it, placed on the year. Each row names the "
+               "block, the date and local time, the duration and the MWh outside the band; "
+               "the full list is in the windows table below and on the workbook's windows "
+               "sheet.")
+    return fig, title, caption
+
+
+# --------------------------------------------------------------------------------------------
+def render_figures(check: Check, out_dir: Path | None, before: Check | None = None,
+                   fc: content.FeederContrib | None = None) -> list[FigureFile]:
+    """Render every figure; save PNGs into ``out_dir`` (created) unless it is None."""
+    fc = content.feeder_contrib(check) if fc is None else fc
+    jobs = []
+    for j, b in enumerate(check.blocks):
+        jobs.append((f"share_map_{b.order:02d}_{safe_filename(b.name, 40)}",
+                     lambda j=j: share_map(check, j)))
+    jobs += [("duration_curves", lambda: duration_curves(check, before)),
+             ("average_day", lambda: average_day(check)),
+             ("feeder_classes", lambda: feeder_classes(check, fc)),
+             ("worst_windows", lambda: worst_windows(check))]
+    if out_dir is not None:
+        out_dir = Path(out_dir)
+        out_dir.mkdir(parents=True, exist_ok=True)
+    out = []
+    with mpl.rc_context(STYLE):
+        for name, make in jobs:
+            fig, title, caption = make()
+            size = tuple(float(v) for v in fig.get_size_inches())
+            data = _png(fig)
+            fig.clear()
+            path = None
+            if out_dir is not None:
+                path = out_dir / f"{name}.png"
+                path.write_bytes(data)
+            out.append(FigureFile(name, title, caption, size, data, path))
+    return out

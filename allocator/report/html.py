@@ -1,0 +1,334 @@
+"""``report.html``: one self-contained page that opens offline.
+
+Pictures are embedded as ``data:image/png;base64`` URIs, the style sheet is inline, there is
+no script, no web font and no link to anything outside the file.  Every piece of text that
+comes from the workbook or the plan is escaped with :func:`html.escape`.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import math
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..check import Check, annual_statement, exporting_feeders
+from . import content
+
+#: windows listed in the page (all of them are in the workbook)
+WINDOWS_SHOWN = 25
+
+CSS = """
+:root { --ink:#1a1a1a; --muted:#5f5f5f; --line:#c9ced3; --head:#e4e8ec;
+        --below:#f6c89f; --above:#a6d3f2; --ok:#0b6e4f; --bad:#a33c00; }
+* { box-sizing: border-box; }
+body { font-family: system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial,
+       sans-serif; color: var(--ink); margin: 0 auto; max-width: 1180px; padding: 18px 22px 40px;
+       line-height: 1.45; font-size: 15px; background: #fff; }
+h1 { font-size: 1.6em; margin: 0 0 4px; }
+h2 { font-size: 1.25em; margin: 28px 0 8px; padding-bottom: 3px;
+     border-bottom: 2px solid var(--line); }
+h3 { font-size: 1.05em; margin: 18px 0 6px; }
+p.meta { color: var(--muted); margin: 0 0 14px; }
+.caution-strip { border: 1px solid #b8860b; background: #fff8e6; padding: 8px 12px;
+                 margin: 10px 0 16px; }
+.verdict { border: 3px solid; padding: 12px 16px; margin: 12px 0 16px; }
+.verdict.ok { border-color: var(--ok); background: #eef7f3; }
+.verdict.bad { border-color: var(--bad); background: #fdf1ea; }
+.verdict .word { font-size: 1.5em; font-weight: 700; letter-spacing: .02em; }
+.verdict.ok .word { color: var(--ok); }
+.verdict.bad .word { color: var(--bad); }
+table { border-collapse: collapse; margin: 6px 0 12px; font-size: .88em; }
+th, td { border: 1px solid var(--line); padding: 3px 6px; vertical-align: top; }
+th { background: var(--head); text-align: left; }
+td.n { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+td.below { background: var(--below); }
+td.above { background: var(--above); }
+td.bad { font-weight: 700; color: var(--bad); white-space: nowrap; }
+td.good { color: var(--ok); white-space: nowrap; }
+div.wide { overflow-x: auto; max-width: 100%; }
+.key span { display: inline-block; padding: 1px 8px; margin-right: 10px;
+            border: 1px solid var(--line); }
+figure { margin: 14px 0 22px; }
+figure img { max-width: 100%; height: auto; border: 1px solid #e2e2e2; }
+figcaption { color: var(--muted); font-size: .92em; max-width: 900px; }
+dl.kv { display: grid; grid-template-columns: max-content 1fr; gap: 3px 14px; margin: 6px 0; }
+dl.kv dt { font-weight: 600; }
+dl.kv dd { margin: 0; }
+ul.cautions li { margin-bottom: 5px; }
+.small { font-size: .9em; color: var(--muted); }
+pre.expl { white-space: pre-wrap; background: #f6f7f8; border: 1px solid var(--line);
+           padding: 8px 10px; font-size: .9em; }
+@media print {
+  body { max-width: none; padding: 0; font-size: 11pt; }
+  h2 { break-after: avoid; }
+  figure, table, .verdict { break-inside: avoid; }
+  .caution-strip, .verdict, th, td.below, td.above { -webkit-print-color-adjust: exact;
+                                                     print-color-adjust: exact; }
+}
+"""
+
+
+def esc(value: object) -> str:
+    return html.escape(str(value), quote=True)
+
+
+def _n(x: object, fmt: str = ".2f") -> str:
+    if x is None:
+        return "-"
+    try:
+        f = float(x)
+    except (TypeError, ValueError):
+        return esc(x)
+    if not math.isfinite(f):
+        return "-"
+    if fmt == "d":
+        return str(int(round(f)))
+    return format(f, fmt)
+
+
+def _td(x: object, fmt: str = ".2f", cls: str = "") -> str:
+    c = f' class="n {cls}"' if cls else ' class="n"'
+    return f"<td{c}>{_n(x, fmt)}</td>"
+
+
+def _band_cls(v: float, lo: float, hi: float) -> str:
+    if v is None or not math.isfinite(float(v)):
+        return ""
+    return "below" if v < lo else "above" if v > hi else ""
+
+
+def _table(headers: list[str], rows: list[str]) -> str:
+    head = "".join(f"<th>{esc(h)}</th>" for h in headers)
+    return (f'<div class="wide"><table><thead><tr>{head}</tr></thead>'
+            f"<tbody>{''.join(rows)}</tbody></table></div>")
+
+
+def _verdict_box(check: Check, label: str) -> str:
+    ok = check.compliant
+    word = "COMPLIANT" if ok else "NOT COMPLIANT"
+    return (f'<div class="verdict {"ok" if ok else "bad"}"><div class="small">{esc(label)}'
+            f'</div><div class="word">{word}</div><p>{esc(content.verdict_words(check))}</p>'
+            f'<p class="small">All blocks are in their bands together in '
+            f'{100 * check.all_in_band_fraction:.1f} % of the {check.year.n_intervals} '
+            f'intervals.</p></div>')
+
+
+def _block_table(check: Check, before: Check | None) -> str:
+    heads = ["block", "pickup Hz", "time delay s", "RoCoF Hz/s", "band %", "target %",
+             "lowest %", "P5 %", "mean %", "highest %", "intervals below min",
+             "intervals above max", "shortfall MWh", "verdict"]
+    if before is not None:
+        heads += ["current: lowest %", "current: intervals below min", "current: verdict"]
+    rows = []
+    for k, s in enumerate(check.stats):
+        b = check.blocks[k]
+        lo, hi = s.min_pct, s.max_pct
+        cells = [f"<td>{esc(s.block)}</td>", _td(s.pickup_hz, ".3f"), _td(s.delay_s, ".3f"),
+                 _td(b.rocof_hz_per_s, ".2f"),
+                 f'<td class="n">{_n(lo, "g")}-{_n(hi, "g")}</td>', _td(s.target_pct, "g")]
+        for v in (s.min_share_pct, s.p5_share_pct, s.mean_share_pct, s.max_share_pct):
+            cells.append(_td(v, ".2f", _band_cls(v, lo, hi)))
+        cells += [_td(s.intervals_below_min, "d"), _td(s.intervals_above_max, "d"),
+                  _td(s.shortfall_mwh, ".1f"),
+                  f'<td class="{"good" if s.compliant else "bad"}">'
+                  f'{content.block_verdict(s.compliant)}</td>']
+        if before is not None:
+            bs = before.stats[k]
+            cells += [_td(bs.min_share_pct, ".2f", _band_cls(bs.min_share_pct, lo, hi)),
+                      _td(bs.intervals_below_min, "d"),
+                      f'<td class="{"good" if bs.compliant else "bad"}">'
+                      f'{content.block_verdict(bs.compliant)}</td>']
+        rows.append("<tr>" + "".join(cells) + "</tr>")
+    key = ('<p class="key small"><span style="background:var(--below)">below the band\'s '
+           'minimum</span><span style="background:var(--above)">above the band\'s maximum'
+           '</span> Share = armed MW of the block / netted demand, per interval.</p>')
+    return _table(heads, rows) + key
+
+
+def _windows(check: Check) -> str:
+    w = content.windows_table(check)
+    if w.empty:
+        return "<p>No interval lies outside any block's band.</p>"
+    heads = ["rank", "block", "kind", "start (local)", "end (local)", "hours", "worst share %",
+             "band limit %", "MWh outside band"]
+    rows = []
+    for r in w.head(WINDOWS_SHOWN).itertuples():
+        cls = "below" if r.kind == "below min" else "above"
+        rows.append(f"<tr>{_td(r.rank, 'd')}<td>{esc(r.block)}</td><td>{esc(r.kind)}</td>"
+                    f"<td>{esc(r.start_local)}</td><td>{esc(r.end_local)}</td>"
+                    f"{_td(r.duration_h, 'g')}{_td(r.worst_share_pct, '.2f', cls)}"
+                    f"{_td(r.band_pct, 'g')}{_td(r.energy_mwh, '.1f')}</tr>")
+    more = (f'<p class="small">{len(w)} windows in all; the {WINDOWS_SHOWN} with the most MWh '
+            "outside the band are listed. The full list is on the workbook's windows sheet."
+            "</p>" if len(w) > WINDOWS_SHOWN else
+            f'<p class="small">{len(w)} windows in all.</p>')
+    return _table(heads, rows) + more
+
+
+def _relay_changes(check: Check, previous_idx) -> str:
+    if previous_idx is None:
+        return ("<p>No relay changes: this report checks the workbook's current allocation."
+                "</p>")
+    df = content.relay_changes(check, previous_idx)
+    if df.empty:
+        return "<p>No relay changes: every feeder keeps the block it has now.</p>"
+    heads = ["substation", "feeder", "action", "from block", "to block", "new pickup Hz",
+             "new time delay s", "new RoCoF Hz/s", "priority site"]
+    rows = []
+    for r in df.itertuples():
+        rows.append(f"<tr><td>{esc(r.substation)}</td><td>{esc(r.feeder_id)}</td>"
+                    f"<td>{esc(r.action)}</td><td>{esc(r.from_block)}</td>"
+                    f"<td>{esc(r.to_block)}</td>{_td(r.pickup_hz, '.3f')}"
+                    f"{_td(r.delay_s, '.3f')}{_td(r.rocof_hz_per_s, '.2f')}"
+                    f"<td>{esc(r.priority)}</td></tr>")
+    n_sub = df["substation"].nunique()
+    return (f"<p>{len(df)} feeders at {n_sub} substations change block. Sorted by substation, "
+            "then feeder. 'disarm' means the feeder's UFLS trip is taken out of the scheme."
+            "</p>" + _table(heads, rows))
+
+
+def _exports(check: Check, limit: int = 15) -> str:
+    df = exporting_feeders(check)
+    if df.empty or "substation" not in df.columns:
+        return "<p>No armed feeder exports at any interval.</p>"
+    heads = ["feeder", "substation", "block", "relay", "exporting hours", "largest export MW",
+             "time of largest export (local)", "negative contribution MWh"]
+    rows = []
+    for r in df.head(limit).itertuples():
+        rows.append(f"<tr><td>{esc(r.feeder_id)}</td><td>{esc(r.substation)}</td>"
+                    f"<td>{esc(r.block)}</td><td>{esc(r.relay)}</td>"
+                    f"{_td(r.exporting_hours, 'g')}{_td(r.most_export_mw, '.2f')}"
+                    f"<td>{esc(r.most_export_local_time)}</td>"
+                    f"{_td(r.negative_contribution_mwh, '.1f')}</tr>")
+    note = (f"<p>{len(df)} armed feeders export at some interval (PV above load). On a standard "
+            "relay an exporting feeder lowers its block's share: tripping it would raise the "
+            "system's net load. A direction-blocked relay does not trip it while it exports."
+            + (f" The {limit} with the largest negative contribution are listed; all are on "
+               "the workbook's exports sheet." if len(df) > limit else "") + "</p>")
+    return note + _table(heads, rows)
+
+
+def _statement(check: Check) -> str:
+    heads = ["block", "frequency setting (pickup) Hz", "time delay s",
+             "netted demand disconnected, mean %", "netted demand disconnected, minimum %",
+             "cumulative mean %", "cumulative minimum %"]
+    rows = []
+    for r in annual_statement(check):
+        rows.append(f"<tr><td>{esc(r['block'])}</td>{_td(r['pickup_hz'], '.3f')}"
+                    f"{_td(r['delay_s'], '.3f')}"
+                    f"{_td(r['netted_demand_disconnected_mean_pct'], '.2f')}"
+                    f"{_td(r['netted_demand_disconnected_min_pct'], '.2f')}"
+                    f"{_td(r['cumulative_mean_pct'], '.2f')}{_td(r['cumulative_min_pct'], '.2f')}"
+                    "</tr>")
+    return ("<p>For the annual notification under Regulation (EU) 2017/2196 (network code on "
+            "emergency and restoration), Art. 35(1): each frequency setting at which netted "
+            "demand disconnection starts and the percentage of netted demand disconnected at "
+            "it, as the mean and the minimum over the study year. Cumulative = this block and "
+            "all blocks that trip before it.</p>" + _table(heads, rows))
+
+
+def _kv(pairs: list[tuple[str, str]]) -> str:
+    return ('<dl class="kv">' + "".join(f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>" for k, v in pairs)
+            + "</dl>")
+
+
+def _plan(plan_info: dict | None) -> str:
+    if not plan_info:
+        return ""
+    status, pairs, expl = content.plan_lines(plan_info)
+    out = [f"<h3>Plan</h3><p>Status: <strong>{esc(status or '(not given)')}</strong></p>"]
+    if expl:
+        out.append('<pre class="expl">' + esc("\n".join(expl)) + "</pre>")
+    if pairs:
+        out.append(_kv(pairs))
+    return "".join(out)
+
+
+def _figures(figs) -> str:
+    if not figs:
+        return "<p>No figures were rendered.</p>"
+    out = []
+    for f in figs:
+        b64 = base64.b64encode(f.png).decode("ascii")
+        w, h = f.size_px
+        out.append(f'<figure><h3>{esc(f.title)}</h3><img alt="{esc(f.title)}" width="{w}" '
+                   f'height="{h}" src="data:image/png;base64,{b64}">'
+                   f"<figcaption>{esc(f.caption)}</figcaption></figure>")
+    return "".join(out)
+
+
+def render_html(check: Check, figs, previous_idx: np.ndarray | None = None,
+                plan_info: dict | None = None, before: Check | None = None) -> str:
+    s = check.study.settings
+    what = ("a planned allocation" if plan_info else
+            "a proposed assignment" if previous_idx is not None else
+            "the workbook's current allocation")
+    title = f"UFLS armed-load report - {s.utility}, study year {s.year}"
+    parts = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        # no network at all: images only from data: URIs, no scripts, fonts or frames
+        '<meta http-equiv="Content-Security-Policy" content="default-src \'none\'; '
+        'img-src data:; style-src \'unsafe-inline\'">',
+        f"<title>{esc(title)}</title><style>{CSS}</style></head><body>",
+        f"<h1>{esc(title)}</h1>",
+        f'<p class="meta">Workbook {esc(content.workbook_name(check))}; this report checks '
+        f"{esc(what)}; rule {esc(check.rule)}; {check.year.n_intervals} intervals of "
+        f"{check.year.interval_minutes} min; ufls-allocator {esc(__version__)}.</p>",
+        '<div class="caution-strip"><strong>Caution:</strong> UFLS disconnects customers. '
+        "Protect priority sites (hospitals, life-support customers, water pumping) as your "
+        "local rules require. These results are indicative planning support; the system "
+        "operator's requirements, local codes and licensed engineering practice govern. "
+        "Verify relay settings before any change in the field. See the cautions at the end."
+        "</div>",
+        "<h2>Verdict</h2>",
+        _verdict_box(check, "Planned allocation (after)" if before is not None
+                     else "Allocation checked"),
+    ]
+    if before is not None:
+        parts.append(_verdict_box(before, "Current allocation (before)"))
+        parts.append(f"<p>All blocks in band together: {100 * before.all_in_band_fraction:.1f} % "
+                     f"of intervals before, {100 * check.all_in_band_fraction:.1f} % after; "
+                     f"worst distance outside a band {before.worst_violation_pp:.2f} pp before, "
+                     f"{check.worst_violation_pp:.2f} pp after.</p>")
+    if previous_idx is not None:
+        n = int(np.sum(np.asarray(previous_idx) != check.block_idx))
+        parts.append(f"<p>{n} feeders change block compared with the current allocation.</p>")
+    parts.append(f"<p>{esc(content.priority_summary(check).words(s.priority_policy))}</p>")
+    parts.append(_plan(plan_info))
+    parts.append("<h3>Per block</h3>")
+    parts.append(_block_table(check, before))
+    parts.append("<h2>Pictures</h2>")
+    parts.append(_figures(figs))
+    parts.append("<h2>Windows outside the band</h2>")
+    parts.append(_windows(check))
+    parts.append("<h2>Exporting feeders</h2>")
+    parts.append(_exports(check))
+    parts.append("<h2>Relay changes (field work list)</h2>")
+    parts.append(_relay_changes(check, previous_idx))
+    parts.append("<h2>Annual statement: frequency settings and netted demand disconnected</h2>")
+    parts.append(_statement(check))
+    parts.append("<h2>Assumptions</h2>")
+    parts.append(_kv(content.assumptions(check)))
+    warns = content.all_warnings(check)
+    if warns:
+        parts.append(f"<h2>Warnings ({len(warns)})</h2><ul>"
+                     + "".join(f"<li>{esc(w)}</li>" for w in warns[:200]) + "</ul>"
+                     + (f"<p>... and {len(warns) - 200} more.</p>" if len(warns) > 200 else ""))
+    parts.append("<h2>Cautions</h2><ul class=\"cautions\">"
+                 + "".join(f"<li>{esc(c)}</li>" for c in content.CAUTIONS) + "</ul>")
+    parts.append("</body></html>\n")
+    return "\n".join(parts)
+
+
+def write_html(check: Check, path: Path, figs, previous_idx: np.ndarray | None = None,
+               plan_info: dict | None = None, before: Check | None = None) -> Path:
+    path = Path(path)
+    path.write_text(render_html(check, figs, previous_idx, plan_info, before),
+                    encoding="utf-8")
+    return path

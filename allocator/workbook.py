@@ -1,0 +1,721 @@
+"""Read and validate the study workbook (xlsx) into a :class:`~allocator.domain.Study`.
+
+Every problem is collected with its file, sheet, row and column, and raised together as one
+:class:`~allocator.errors.InputError`.  The file is size-checked and recognised as an xlsx
+(zip) container before any parsing; openpyxl parses XML through defusedxml when it is
+installed, which this package requires (guards against entity-expansion attacks).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import zipfile
+from dataclasses import dataclass
+from datetime import datetime, time
+from pathlib import Path
+from zoneinfo import ZoneInfo, available_timezones
+
+import numpy as np
+
+from .domain import (
+    DAY_TYPES,
+    MINUTES_PER_DAY,
+    RELAY_KINDS,
+    Block,
+    Feeder,
+    Profiles,
+    Settings,
+    Study,
+)
+from .errors import Collector, InputError
+
+#: refuse workbooks larger than this before parsing (bytes); override with UFLS_MAX_WORKBOOK_MB
+DEFAULT_MAX_WORKBOOK_MB = 50.0
+#: refuse zip members whose uncompressed total exceeds this (bytes) - zip-bomb guard
+MAX_UNCOMPRESSED_MB = 500.0
+
+REQUIRED_SHEETS = ("settings", "blocks", "feeders", "profiles", "seasons")
+BLOCK_COLUMNS = ("block", "order", "pickup_hz", "delay_s", "target_pct", "min_pct", "max_pct")
+BLOCK_OPTIONAL = ("rocof_hz_per_s", "rocof_arm_hz")
+FEEDER_COLUMNS = ("feeder_id", "substation", "profile", "peak_mw", "pv_mw", "relay")
+FEEDER_OPTIONAL = ("zone", "priority", "allowed_blocks", "trip_group", "current_block", "customers")
+PROFILE_COLUMNS = ("profile", "season", "day_type", "time", "value")
+SEASON_COLUMNS = ("season", "months")
+SETTING_KEYS_REQUIRED = ("utility", "year", "timezone", "nominal_hz", "interval_minutes",
+                         "latitude", "longitude", "demand_basis", "priority_policy",
+                         "compliance_rule")
+SETTING_KEYS_OPTIONAL = ("holiday_country", "holiday_subdivision", "pv_derate", "max_changes",
+                         "solver_time_limit_s", "mip_gap", "gap_fill",
+                         "max_substation_share_pct")
+
+
+def max_workbook_bytes() -> int:
+    """The workbook size limit in bytes (``UFLS_MAX_WORKBOOK_MB`` overrides the default;
+    a value that is not a positive number is ignored)."""
+    try:
+        mb = float(os.environ.get("UFLS_MAX_WORKBOOK_MB", DEFAULT_MAX_WORKBOOK_MB))
+        if not mb > 0:
+            raise ValueError
+    except ValueError:
+        mb = DEFAULT_MAX_WORKBOOK_MB
+    return int(mb * 1024 * 1024)
+
+
+# --------------------------------------------------------------------------------------------
+# cell helpers
+# --------------------------------------------------------------------------------------------
+@dataclass
+class Row:
+    number: int  # spreadsheet row (header = 1)
+    values: dict[str, object]
+
+
+def _blank(v: object) -> bool:
+    if v is None:
+        return True
+    if isinstance(v, float) and math.isnan(v):
+        return True
+    return isinstance(v, str) and v.strip() == ""
+
+
+def _text(v: object) -> str:
+    if isinstance(v, float) and v.is_integer():
+        return str(int(v))
+    return str(v).strip()
+
+
+class _Cells:
+    """Typed access to one sheet's cells that records problems instead of raising."""
+
+    def __init__(self, col: Collector, sheet: str):
+        self.col = col
+        self.sheet = sheet
+
+    def text(self, row: Row, name: str, required: bool = True) -> str | None:
+        v = row.values.get(name)
+        if _blank(v):
+            if required:
+                self.col.add("required value is blank", self.sheet, row.number, name)
+            return None
+        return _text(v)
+
+    def number(self, row: Row, name: str, required: bool = True, minimum: float | None = None,
+               maximum: float | None = None, what: str = "a number") -> float | None:
+        v = row.values.get(name)
+        if _blank(v):
+            if required:
+                self.col.add(f"required value is blank; expected {what}", self.sheet,
+                             row.number, name)
+            return None
+        if isinstance(v, bool):
+            self.col.add(f"expected {what}, found {v!r}", self.sheet, row.number, name)
+            return None
+        if isinstance(v, (int, float)):
+            x = float(v)
+        else:
+            try:
+                x = float(str(v).strip().replace(",", "."))
+            except ValueError:
+                self.col.add(f"expected {what}, found text {str(v)[:40]!r}", self.sheet,
+                             row.number, name)
+                return None
+        if not math.isfinite(x):
+            self.col.add(f"expected {what}, found {x}", self.sheet, row.number, name)
+            return None
+        if minimum is not None and x < minimum:
+            self.col.add(f"expected {what} ≥ {minimum:g}, found {x:g}", self.sheet, row.number,
+                         name)
+            return None
+        if maximum is not None and x > maximum:
+            self.col.add(f"expected {what} ≤ {maximum:g}, found {x:g}", self.sheet, row.number,
+                         name)
+            return None
+        return x
+
+
+def _read_sheets(path: Path, col: Collector) -> dict[str, tuple[list[str], list[Row]]]:
+    """Open the workbook and return every sheet as (header, rows).  Raises on unreadable files."""
+    size = path.stat().st_size
+    limit = max_workbook_bytes()
+    if size > limit:
+        col.add(f"file is {size / 1048576:.3g} MB, over the {limit / 1048576:.3g} MB limit for "
+                "a workbook (refused before parsing; set UFLS_MAX_WORKBOOK_MB to raise it)")
+        col.raise_if_any()
+    if not zipfile.is_zipfile(path):
+        col.add("not an xlsx workbook (an .xlsx file is a zip container; this file is not). "
+                "Save it from the spreadsheet program as 'Excel Workbook (.xlsx)'")
+        col.raise_if_any()
+    try:
+        with zipfile.ZipFile(path) as zf:
+            total = sum(i.file_size for i in zf.infolist())
+            names = set(zf.namelist())
+    except (zipfile.BadZipFile, OSError) as exc:
+        col.add(f"cannot open as an xlsx workbook: {exc}")
+        col.raise_if_any()
+    if total > MAX_UNCOMPRESSED_MB * 1048576:
+        col.add(f"workbook expands to {total / 1048576:.0f} MB uncompressed, over the "
+                f"{MAX_UNCOMPRESSED_MB:.0f} MB limit (refused before parsing)")
+        col.raise_if_any()
+    if "xl/workbook.xml" not in names:
+        col.add("not an xlsx workbook: the zip has no xl/workbook.xml "
+                "(.xlsm/.xlsb/.ods are not read; save as .xlsx)")
+        col.raise_if_any()
+
+    import openpyxl  # imported late: keeps CLI start-up fast
+    from openpyxl.xml import DEFUSEDXML
+
+    if not DEFUSEDXML:  # pragma: no cover - dependency guaranteed by pyproject
+        raise RuntimeError("defusedxml is required to read workbooks safely")
+    try:
+        wb = openpyxl.load_workbook(path, read_only=True, data_only=True)
+    except Exception as exc:  # openpyxl raises many types for malformed files
+        col.add(f"cannot read the workbook: {type(exc).__name__}: {str(exc)[:200]}")
+        col.raise_if_any()
+    out: dict[str, tuple[list[str], list[Row]]] = {}
+    try:
+        for ws in wb.worksheets:
+            name = ws.title.strip().lower()
+            it = ws.iter_rows(values_only=True)
+            try:
+                header_cells = next(it)
+            except StopIteration:
+                out[name] = ([], [])
+                continue
+            header = ["" if _blank(h) else str(h).strip().lower() for h in header_cells]
+            seen: set[str] = set()
+            for j, h in enumerate(header):
+                if h and h in seen:
+                    col.add(f"column '{h}' appears twice in the header", ws.title, 1, h)
+                seen.add(h)
+            rows: list[Row] = []
+            for i, cells in enumerate(it, start=2):
+                if cells is None or all(_blank(c) for c in cells):
+                    continue
+                vals = {h: cells[j] if j < len(cells) else None
+                        for j, h in enumerate(header) if h}
+                rows.append(Row(i, vals))
+            out[name] = (header, rows)
+    except Exception as exc:
+        col.add(f"cannot read the workbook: {type(exc).__name__}: {str(exc)[:200]}")
+        col.raise_if_any()
+    finally:
+        wb.close()
+    return out
+
+
+def _require_columns(col: Collector, sheet: str, header: list[str], required: tuple[str, ...]
+                     ) -> bool:
+    missing = [c for c in required if c not in header]
+    for c in missing:
+        col.add(f"missing column '{c}' (the header row must name it)", sheet, 1, c)
+    return not missing
+
+
+# --------------------------------------------------------------------------------------------
+# sheets
+# --------------------------------------------------------------------------------------------
+def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, list[str]]:
+    sheet = "settings"
+    cells = _Cells(col, sheet)
+    kv: dict[str, Row] = {}
+    for r in rows:
+        k = r.values.get("key")
+        if _blank(k):
+            col.add("blank key", sheet, r.number, "key")
+            continue
+        key = _text(k).lower()
+        if key in kv:
+            col.add(f"key '{key}' appears twice (also row {kv[key].number})", sheet, r.number,
+                    "key")
+            continue
+        if key not in SETTING_KEYS_REQUIRED + SETTING_KEYS_OPTIONAL:
+            col.add(f"unknown key '{key}'; expected one of "
+                    f"{', '.join(SETTING_KEYS_REQUIRED + SETTING_KEYS_OPTIONAL)}", sheet,
+                    r.number, "key")
+            continue
+        kv[key] = Row(r.number, {"value": r.values.get("value")})
+    for k in SETTING_KEYS_REQUIRED:
+        if k not in kv:
+            col.add(f"missing required key '{k}'", sheet, None, "key")
+    warnings: list[str] = []
+    n_before = len(col.problems)
+
+    def txt(k: str) -> str | None:
+        if k not in kv:
+            return None
+        return cells.text(kv[k], "value", required=k in SETTING_KEYS_REQUIRED)
+
+    def num(k: str, **kw) -> float | None:
+        if k not in kv:
+            return None
+        kw.setdefault("required", k in SETTING_KEYS_REQUIRED)
+        return cells.number(kv[k], "value", **kw)
+
+    def bad(k: str, msg: str) -> None:
+        col.add(msg, sheet, kv[k].number if k in kv else None, "value")
+
+    utility = txt("utility")
+    year = num("year", minimum=1900, maximum=2200, what="a year such as 2025")
+    if year is not None and not float(year).is_integer():
+        bad("year", f"expected a whole year, found {year}")
+    tz = txt("timezone")
+    if tz is not None:
+        try:
+            if tz not in available_timezones():
+                raise KeyError(tz)
+            ZoneInfo(tz)
+        except Exception:
+            bad("timezone", f"unknown time zone '{tz}'; expected an IANA name such as "
+                "'Europe/Vienna' or 'America/Chicago'")
+            tz = None
+    nominal = num("nominal_hz", what="50 or 60")
+    if nominal is not None and nominal not in (50.0, 60.0):
+        bad("nominal_hz", f"expected 50 or 60, found {nominal:g}")
+    interval = num("interval_minutes", what="15, 30 or 60")
+    if interval is not None and interval not in (15.0, 30.0, 60.0):
+        bad("interval_minutes", f"expected 15, 30 or 60, found {interval:g}")
+    lat = num("latitude", minimum=-90, maximum=90, what="latitude in degrees")
+    lon = num("longitude", minimum=-180, maximum=180, what="longitude in degrees")
+    country = txt("holiday_country")
+    subdiv = txt("holiday_subdivision")
+    if country is not None:
+        import holidays as _hol
+
+        supported = _hol.list_supported_countries()
+        if country.upper() not in supported:
+            bad("holiday_country", f"unknown holiday country '{country}'; expected an ISO "
+                "3166 alpha-2 code supported by the 'holidays' package, e.g. DE, FR, US")
+            country = None
+        else:
+            country = country.upper()
+            if subdiv is not None and subdiv.upper() not in {s.upper() for s in
+                                                              supported[country]}:
+                bad("holiday_subdivision", f"unknown subdivision '{subdiv}' for {country}; "
+                    f"expected one of {', '.join(supported[country][:20])}")
+                subdiv = None
+    else:
+        warnings.append("no holiday_country: public holidays are treated as ordinary days")
+    basis = txt("demand_basis")
+    if basis is not None and basis not in ("feeders", "metered_total"):
+        bad("demand_basis", f"expected 'feeders' or 'metered_total', found '{basis}'")
+    derate = num("pv_derate", minimum=0, maximum=1.5, what="a factor between 0 and 1.5")
+    derate = 0.8 if derate is None else derate
+    policy = txt("priority_policy")
+    if policy is not None and policy not in ("exclude", "last_block"):
+        bad("priority_policy", f"expected 'exclude' or 'last_block', found '{policy}'")
+    rule_raw = txt("compliance_rule")
+    rule, pct = None, None
+    if rule_raw is not None:
+        m = re.fullmatch(r"percentile\s*:\s*([0-9.]+)", rule_raw)
+        if rule_raw in ("every_interval", "mean"):
+            rule = rule_raw
+        elif m:
+            p = float(m.group(1))
+            if 0 < p < 50:
+                rule, pct = "percentile", p
+            else:
+                bad("compliance_rule", "percentile:P takes the tail share P allowed outside "
+                    f"the band, 0 < P < 50 (e.g. percentile:5), found {p:g}")
+        else:
+            bad("compliance_rule", "expected 'every_interval', 'percentile:P' (e.g. "
+                f"percentile:95) or 'mean', found '{rule_raw}'")
+    max_changes = num("max_changes", required=False, minimum=0, what="a whole number ≥ 0")
+    if max_changes is not None and not float(max_changes).is_integer():
+        bad("max_changes", f"expected a whole number, found {max_changes}")
+    tlim = num("solver_time_limit_s", required=False, minimum=1, what="seconds ≥ 1")
+    gap = num("mip_gap", required=False, minimum=0, maximum=1, what="a fraction 0..1")
+    gap_fill = txt("gap_fill") or "profile"
+    if gap_fill not in ("profile", "interpolate", "error"):
+        bad("gap_fill", f"expected 'profile', 'interpolate' or 'error', found '{gap_fill}'")
+    mss = num("max_substation_share_pct", required=False, minimum=0, maximum=100,
+              what="a percentage 0..100")
+    if len(col.problems) > n_before or any(
+            v is None for v in (utility, year, tz, nominal, interval, lat, lon, basis, policy,
+                                rule)):
+        return None, warnings
+    return Settings(
+        utility=utility, year=int(year), timezone=tz, nominal_hz=float(nominal),
+        interval_minutes=int(interval), latitude_deg=lat, longitude_deg=lon,
+        holiday_country=country, holiday_subdivision=subdiv.upper() if subdiv else None,
+        demand_basis=basis, pv_derate=float(derate if derate is not None else 0.8),
+        priority_policy=policy, compliance_rule=rule, compliance_percentile=pct,
+        max_changes=int(max_changes) if max_changes is not None else None,
+        solver_time_limit_s=float(tlim) if tlim is not None else 120.0,
+        mip_gap=float(gap) if gap is not None else 1e-4, gap_fill=gap_fill,
+        max_substation_share_pct=mss,
+    ), warnings
+
+
+def _parse_blocks(col: Collector, rows: list[Row]) -> list[Block]:
+    sheet = "blocks"
+    cells = _Cells(col, sheet)
+    blocks: list[tuple[Block, int]] = []
+    names: dict[str, int] = {}
+    orders: dict[int, int] = {}
+    for r in rows:
+        n0 = len(col.problems)
+        name = cells.text(r, "block")
+        order = cells.number(r, "order", minimum=1, what="a whole number ≥ 1")
+        pickup = cells.number(r, "pickup_hz", minimum=40, maximum=70, what="a frequency in Hz")
+        delay = cells.number(r, "delay_s", minimum=0, maximum=60, what="seconds ≥ 0")
+        rocof = cells.number(r, "rocof_hz_per_s", required=False, minimum=0, maximum=10,
+                             what="a rate in Hz/s")
+        rarm = cells.number(r, "rocof_arm_hz", required=False, minimum=40, maximum=70,
+                            what="a frequency in Hz")
+        tgt = cells.number(r, "target_pct", minimum=0, maximum=100, what="a percentage 0..100")
+        lo = cells.number(r, "min_pct", minimum=0, maximum=100, what="a percentage 0..100")
+        hi = cells.number(r, "max_pct", minimum=0, maximum=100, what="a percentage 0..100")
+        if order is not None and not float(order).is_integer():
+            col.add(f"expected a whole number, found {order}", sheet, r.number, "order")
+        if name is not None:
+            if name.lower() in ("none", ""):
+                col.add("'none' is reserved and cannot name a block", sheet, r.number, "block")
+            elif name in names:
+                col.add(f"block '{name}' appears twice (also row {names[name]})", sheet,
+                        r.number, "block")
+            names.setdefault(name, r.number)
+        if order is not None:
+            if int(order) in orders:
+                col.add(f"order {int(order)} appears twice (also row {orders[int(order)]})",
+                        sheet, r.number, "order")
+            orders.setdefault(int(order), r.number)
+        if None not in (tgt, lo, hi) and not (lo <= tgt <= hi):
+            col.add(f"expected min_pct ≤ target_pct ≤ max_pct, found {lo:g} ≤ {tgt:g} ≤ "
+                    f"{hi:g}", sheet, r.number, "target_pct")
+        if len(col.problems) == n0:
+            blocks.append((Block(name, int(order), pickup, delay, rocof, tgt, lo, hi, rarm),
+                           r.number))
+    if not rows:
+        col.add("no blocks defined", sheet, None, None)
+    blocks.sort(key=lambda br: br[0].order)
+    for (a, _), (b, rb) in zip(blocks, blocks[1:]):
+        if not b.pickup_hz < a.pickup_hz:
+            col.add(f"pickup_hz must fall strictly as order rises: block '{b.name}' (order "
+                    f"{b.order}) has {b.pickup_hz:g} Hz, block '{a.name}' (order {a.order}) "
+                    f"has {a.pickup_hz:g} Hz", sheet, rb, "pickup_hz")
+    return [b for b, _ in blocks]
+
+
+def _parse_time(v: object) -> int | None:
+    """Minute of day from 'HH:MM', a datetime.time, or an Excel day fraction."""
+    if isinstance(v, time):
+        return v.hour * 60 + v.minute
+    if isinstance(v, datetime):
+        return v.hour * 60 + v.minute
+    if isinstance(v, (int, float)) and not isinstance(v, bool) and 0 <= v < 1:
+        m = round(float(v) * MINUTES_PER_DAY)
+        return m if m < MINUTES_PER_DAY else None
+    if isinstance(v, str):
+        m = re.fullmatch(r"\s*(\d{1,2}):(\d{2})(?::00)?\s*", v)
+        if m and int(m.group(1)) < 24 and int(m.group(2)) < 60:
+            return int(m.group(1)) * 60 + int(m.group(2))
+    return None
+
+
+def _parse_seasons(col: Collector, rows: list[Row]) -> tuple[list[str], np.ndarray]:
+    sheet = "seasons"
+    cells = _Cells(col, sheet)
+    names: list[str] = []
+    month_owner: dict[int, tuple[str, int]] = {}
+    month_season = np.full(12, -1, dtype=np.intp)
+    for r in rows:
+        name = cells.text(r, "season")
+        months_raw = cells.text(r, "months")
+        if name is None or months_raw is None:
+            continue
+        if name in names:
+            col.add(f"season '{name}' appears twice", sheet, r.number, "season")
+            continue
+        names.append(name)
+        for tok in re.split(r"[,;\s]+", months_raw.strip()):
+            if not tok:
+                continue
+            try:
+                m = int(float(tok))
+                if not 1 <= m <= 12:
+                    raise ValueError
+            except ValueError:
+                col.add(f"expected month numbers 1..12 separated by commas, found '{tok}'",
+                        sheet, r.number, "months")
+                continue
+            if m in month_owner:
+                col.add(f"month {m} is in two seasons: '{month_owner[m][0]}' (row "
+                        f"{month_owner[m][1]}) and '{name}'", sheet, r.number, "months")
+                continue
+            month_owner[m] = (name, r.number)
+            month_season[m - 1] = len(names) - 1
+    missing = [m for m in range(1, 13) if m not in month_owner]
+    if missing:
+        col.add(f"month(s) {', '.join(map(str, missing))} belong to no season; every month "
+                "must be in exactly one season", sheet, None, "months")
+    return names, month_season
+
+
+def _parse_profiles(col: Collector, rows: list[Row], seasons: list[str]
+                    ) -> Profiles | None:
+    sheet = "profiles"
+    cells = _Cells(col, sheet)
+    entries: dict[tuple[str, str, str], dict[int, tuple[float, int]]] = {}
+    names: list[str] = []
+    for r in rows:
+        n0 = len(col.problems)
+        prof = cells.text(r, "profile")
+        season = cells.text(r, "season")
+        dt = cells.text(r, "day_type")
+        tv = r.values.get("time")
+        minute = None
+        if _blank(tv):
+            col.add("required value is blank; expected a time HH:MM", sheet, r.number, "time")
+        else:
+            minute = _parse_time(tv)
+            if minute is None:
+                col.add(f"expected a time HH:MM (00:00..23:59), found {str(tv)[:20]!r}", sheet,
+                        r.number, "time")
+        val = cells.number(r, "value", minimum=-10, maximum=10, what="a per-unit value")
+        if season is not None and seasons and season not in seasons:
+            col.add(f"unknown season '{season}'; seasons sheet has {', '.join(seasons)}", sheet,
+                    r.number, "season")
+        if dt is not None and dt.lower() not in DAY_TYPES:
+            col.add(f"unknown day type '{dt}'; expected workday, saturday or sunday", sheet,
+                    r.number, "day_type")
+        if len(col.problems) > n0:
+            continue
+        key = (prof, season, dt.lower())
+        d = entries.setdefault(key, {})
+        if minute in d:
+            col.add(f"time {minute // 60:02d}:{minute % 60:02d} appears twice for {prof}/"
+                    f"{season}/{dt} (also row {d[minute][1]})", sheet, r.number, "time")
+            continue
+        d[minute] = (val, r.number)
+        if prof not in names:
+            names.append(prof)
+    if not names:
+        if not rows:
+            col.add("no profile rows", sheet, None, None)
+        return None
+    values = np.full((len(names), len(seasons), len(DAY_TYPES), MINUTES_PER_DAY), np.nan)
+    resolution: dict[str, int] = {}
+    for p_i, p in enumerate(names):
+        for s_i, s in enumerate(seasons):
+            for d_i, d in enumerate(DAY_TYPES):
+                pts = entries.get((p, s, d))
+                if not pts:
+                    col.add(f"profile '{p}' has no rows for season '{s}', day type '{d}'", sheet,
+                            None, "day_type")
+                    continue
+                mins = sorted(pts)
+                step = mins[1] - mins[0] if len(mins) > 1 else MINUTES_PER_DAY
+                expected = list(range(0, MINUTES_PER_DAY, step)) if step > 0 else []
+                if (step <= 0 or MINUTES_PER_DAY % step or mins != expected):
+                    have = len(mins)
+                    col.add(f"profile '{p}' / {s} / {d}: times must cover the whole day at one "
+                            f"resolution that divides 24 h, starting 00:00 (found {have} "
+                            f"times, first {mins[0] // 60:02d}:{mins[0] % 60:02d})", sheet,
+                            pts[mins[0]][1], "time")
+                    continue
+                if resolution.setdefault(p, step) != step:
+                    col.add(f"profile '{p}' uses {step}-minute times for {s}/{d} but "
+                            f"{resolution[p]}-minute times elsewhere", sheet, pts[mins[0]][1],
+                            "time")
+                    continue
+                vals = np.array([pts[m][0] for m in mins])
+                values[p_i, s_i, d_i, :] = np.repeat(vals, step)
+    return Profiles(tuple(names), tuple(seasons), values, np.zeros(12, dtype=np.intp),
+                    resolution)
+
+
+_ALLOWED_SPLIT = re.compile(r"[,;]")
+
+
+def _parse_feeders(col: Collector, rows: list[Row], block_names: set[str],
+                   profile_names: set[str] | None) -> list[Feeder]:
+    sheet = "feeders"
+    cells = _Cells(col, sheet)
+    feeders: list[Feeder] = []
+    seen: dict[str, int] = {}
+    for r in rows:
+        n0 = len(col.problems)
+        fid = cells.text(r, "feeder_id")
+        sub = cells.text(r, "substation")
+        zone = cells.text(r, "zone", required=False)
+        prof = cells.text(r, "profile")
+        peak = cells.number(r, "peak_mw", minimum=0, maximum=1000, what="MW ≥ 0")
+        pv = cells.number(r, "pv_mw", required=False, minimum=0, maximum=1000, what="MW ≥ 0")
+        relay = cells.text(r, "relay")
+        prio = cells.text(r, "priority", required=False)
+        allowed_raw = cells.text(r, "allowed_blocks", required=False)
+        tg = cells.text(r, "trip_group", required=False)
+        cur = cells.text(r, "current_block", required=False)
+        cust = cells.number(r, "customers", required=False, minimum=0, what="a count ≥ 0")
+        if fid is not None:
+            if fid in seen:
+                col.add(f"duplicate feeder_id '{fid}' (also row {seen[fid]})", sheet, r.number,
+                        "feeder_id")
+            seen.setdefault(fid, r.number)
+        if prof is not None and profile_names is not None and prof not in profile_names:
+            col.add(f"unknown profile '{prof}'; the profiles sheet defines "
+                    f"{', '.join(sorted(profile_names)) or 'none'}", sheet, r.number, "profile")
+        if relay is not None:
+            relay = relay.lower()
+            if relay not in RELAY_KINDS:
+                col.add(f"unknown relay '{relay}'; expected standard, direction_blocked or "
+                        "none", sheet, r.number, "relay")
+        if prio is not None and prio.lower() in ("no", "none", "false", "0"):
+            prio = None
+        allowed: tuple[str, ...] | None = None
+        if allowed_raw is not None:
+            if allowed_raw.lower() == "none":
+                allowed = ()
+            else:
+                toks = tuple(t.strip() for t in _ALLOWED_SPLIT.split(allowed_raw) if t.strip())
+                unknown = [t for t in toks if t not in block_names]
+                if unknown:
+                    col.add(f"allowed_blocks names unknown block(s) {', '.join(unknown)}; "
+                            f"blocks are {', '.join(sorted(block_names))}", sheet, r.number,
+                            "allowed_blocks")
+                allowed = toks
+        if cur is not None and cur not in block_names:
+            col.add(f"current_block '{cur}' is not a block; blocks are "
+                    f"{', '.join(sorted(block_names))}", sheet, r.number, "current_block")
+        if cust is not None and not float(cust).is_integer():
+            col.add(f"expected a whole number of customers, found {cust}", sheet, r.number,
+                    "customers")
+        if len(col.problems) > n0:
+            continue
+        feeders.append(Feeder(fid, sub, zone, prof, peak, pv or 0.0, relay, prio, allowed, tg,
+                              cur, int(cust) if cust is not None else None, r.number))
+    if not rows:
+        col.add("no feeders", sheet, None, None)
+    return feeders
+
+
+def _cross_checks(col: Collector, settings: Settings | None, blocks: list[Block],
+                  feeders: list[Feeder]) -> list[str]:
+    sheet = "feeders"
+    warnings: list[str] = []
+    last = blocks[-1].name if blocks else None
+    groups: dict[str, list[Feeder]] = {}
+    for f in feeders:
+        if f.trip_group:
+            groups.setdefault(f.trip_group, []).append(f)
+        if f.pv_mw > f.peak_mw > 0:
+            warnings.append(f"feeder {f.feeder_id} (row {f.row}): PV {f.pv_mw:g} MW is larger "
+                            f"than its peak load {f.peak_mw:g} MW; it will export at sunny "
+                            "middays")
+        if f.current_block:
+            if f.relay == "none":
+                col.add(f"feeder '{f.feeder_id}' has relay 'none' (cannot be armed) but "
+                        f"current_block '{f.current_block}'", sheet, f.row, "current_block")
+            if f.allowed_blocks is not None and f.current_block not in f.allowed_blocks:
+                warnings.append(f"feeder {f.feeder_id} (row {f.row}): current_block "
+                                f"{f.current_block} is outside its allowed_blocks")
+            if f.priority and settings is not None:
+                if settings.priority_policy == "exclude" or f.current_block != last:
+                    warnings.append(f"feeder {f.feeder_id} (row {f.row}) is a priority site "
+                                    f"({f.priority}) but armed in {f.current_block} against "
+                                    f"priority_policy '{settings.priority_policy}'")
+    for g, members in groups.items():
+        kinds = {m.relay == "none" for m in members}
+        if len(kinds) > 1:
+            rows = ", ".join(str(m.row) for m in members)
+            col.add(f"trip group '{g}' mixes armable feeders and relay 'none' feeders (rows "
+                    f"{rows}); one relay trips them all, so all must be armable or none",
+                    sheet, members[0].row, "trip_group")
+        cur = {m.current_block for m in members}
+        if len(cur) > 1:
+            warnings.append(f"trip group {g}: current_block differs between members "
+                            f"({', '.join(sorted(str(c) for c in cur))})")
+        if len({m.substation for m in members}) > 1:
+            warnings.append(f"trip group {g} spans several substations")
+    return warnings
+
+
+def read_study(path: str | os.PathLike) -> Study:
+    """Read, validate and type the workbook at ``path``.
+
+    Raises :class:`~allocator.errors.InputError` listing every problem found.
+    """
+    p = Path(path)
+    col = Collector(str(p))
+    if not p.exists():
+        col.add("file not found")
+        col.raise_if_any()
+    if p.is_dir():
+        col.add("is a folder, expected an .xlsx workbook")
+        col.raise_if_any()
+    sheets = _read_sheets(p, col)
+    for s in REQUIRED_SHEETS:
+        if s not in sheets:
+            col.add(f"missing sheet '{s}' (found: {', '.join(sheets) or 'none'})", s)
+    col.raise_if_any()
+
+    h, rows = sheets["settings"]
+    settings, warnings = (None, [])
+    if _require_columns(col, "settings", h, ("key", "value")):
+        settings, warnings = _parse_settings(col, rows)
+    h, rows = sheets["blocks"]
+    blocks: list[Block] = []
+    if _require_columns(col, "blocks", h, BLOCK_COLUMNS):
+        blocks = _parse_blocks(col, rows)
+    h, rows = sheets["seasons"]
+    seasons, month_season = [], np.zeros(12, dtype=np.intp)
+    if _require_columns(col, "seasons", h, SEASON_COLUMNS):
+        seasons, month_season = _parse_seasons(col, rows)
+    h, rows = sheets["profiles"]
+    profiles = None
+    profiles_ok = _require_columns(col, "profiles", h, PROFILE_COLUMNS)
+    if profiles_ok:
+        profiles = _parse_profiles(col, rows, seasons)
+    h, rows = sheets["feeders"]
+    feeders: list[Feeder] = []
+    if _require_columns(col, "feeders", h, FEEDER_COLUMNS):
+        pnames = set(profiles.names) if profiles is not None else (
+            None if not profiles_ok else set())
+        feeders = _parse_feeders(col, rows, {b.name for b in blocks}, pnames)
+    warnings += _cross_checks(col, settings, blocks, feeders)
+
+    system: dict[str, object] = {}
+    system_rows: dict[str, int] = {}
+    if "system" in sheets:
+        h, rows = sheets["system"]
+        if _require_columns(col, "system", h, ("key", "value")):
+            for r in rows:
+                k = r.values.get("key")
+                if _blank(k):
+                    col.add("blank key", "system", r.number, "key")
+                    continue
+                system[_text(k).lower()] = r.values.get("value")
+                system_rows[_text(k).lower()] = r.number
+    col.raise_if_any()
+    assert settings is not None and profiles is not None
+    profiles = Profiles(profiles.names, profiles.seasons, profiles.values_pu, month_season,
+                        profiles.resolution_minutes)
+    study = Study(str(p), settings, tuple(blocks), tuple(feeders), profiles,
+                  system={"values": system, "rows": system_rows}, warnings=())
+    warnings += _scheme_warnings(study)
+    return Study(study.path, settings, study.blocks, study.feeders, profiles,
+                 system=study.system, warnings=tuple(warnings))
+
+
+def _scheme_warnings(study: Study) -> list[str]:
+    """Non-fatal warnings about the scheme as a whole, at the feeders' nominal peaks."""
+    out: list[str] = []
+    allowed = study.allowed_matrix()
+    armable = allowed.any(axis=1)
+    total = float(study.peak_mw.sum())
+    if total <= 0:
+        return ["total feeder peak is 0 MW"]
+    armable_pct = 100.0 * float(study.peak_mw[armable].sum()) / total
+    need = sum(b.target_pct for b in study.blocks)
+    need_min = sum(b.min_pct for b in study.blocks)
+    if need > armable_pct:
+        out.append(f"block targets add to {need:g} % of demand but armable load is only "
+                   f"{armable_pct:.1f} % of total peak (minima add to {need_min:g} %)")
+    for j, b in enumerate(study.blocks):
+        share = 100.0 * float(study.peak_mw[allowed[:, j]].sum()) / total
+        if b.target_pct > share:
+            out.append(f"block {b.name}: target {b.target_pct:g} % is above the "
+                       f"{share:.1f} % of peak that may be armed in it")
+    return out

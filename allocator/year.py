@@ -1,0 +1,211 @@
+"""A year of per-feeder net load on the study's own calendar: ``Study (+ metered) → Year``.
+
+Intervals run from local midnight on 1 January to local midnight on 1 January of the next
+year in the study time zone, at ``interval_minutes``; they are spaced in absolute (UTC) time,
+so the spring DST day has 23 hours of intervals and the autumn one 25.  Each interval takes
+the profile value of its *local* wall-clock start; the repeated autumn hour takes the same
+values twice.  Net load = gross load − PV, in MW, negative when a feeder exports.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import TYPE_CHECKING
+
+import numpy as np
+import pandas as pd
+
+from .domain import DAY_TYPES, MINUTES_PER_DAY, Settings, Study
+from .solar import clearsky_pv_pu
+
+if TYPE_CHECKING:  # pragma: no cover
+    from .metered import MeteredData
+
+#: rows of the [feeder, interval] array built per chunk (bounds temporaries)
+_CHUNK_FEEDERS = 256
+
+
+@dataclass(frozen=True)
+class FeederFlag:
+    """A data-quality note on one feeder's series (metered path)."""
+
+    feeder_id: str
+    flag: str  # e.g. "gaps_filled", "flat_lined", "all_zero", "out_of_range", "no_metered_data"
+    detail: str
+
+
+@dataclass(frozen=True)
+class Year:
+    """The study year.  Arrays are ``[feeder, interval]`` (feeder order of the study) or
+    ``[interval]``.  ``timestamps_utc`` are the interval *starts*, time-zone aware (UTC)."""
+
+    timestamps_utc: pd.DatetimeIndex
+    timezone: str
+    interval_minutes: int
+    feeder_ids: tuple[str, ...]
+    net_mw: np.ndarray  # [feeder, interval]
+    demand_mw: np.ndarray  # [interval]
+    pv_pu: np.ndarray  # [interval] clear-sky PV per unit of installed capacity
+    season_index: np.ndarray  # [interval] index into Study.profiles.seasons
+    day_type_index: np.ndarray  # [interval] index into DAY_TYPES
+    source: str = "profiles"  # "profiles" | "metered"
+    flags: tuple[FeederFlag, ...] = ()
+    notes: tuple[str, ...] = field(default_factory=tuple)
+
+    @property
+    def n_intervals(self) -> int:
+        return len(self.timestamps_utc)
+
+    @property
+    def interval_h(self) -> float:
+        return self.interval_minutes / 60.0
+
+    @cached_property
+    def local_times(self) -> pd.DatetimeIndex:
+        return self.timestamps_utc.tz_convert(self.timezone)
+
+
+# --------------------------------------------------------------------------------------------
+# calendar
+# --------------------------------------------------------------------------------------------
+def study_intervals(year: int, timezone: str, interval_minutes: int) -> pd.DatetimeIndex:
+    """Interval starts (UTC) covering the local calendar year in ``timezone``."""
+    start = pd.Timestamp(year=year, month=1, day=1, tz=timezone)
+    end = pd.Timestamp(year=year + 1, month=1, day=1, tz=timezone)
+    n = int((end - start) / pd.Timedelta(minutes=interval_minutes))
+    return pd.date_range(start.tz_convert("UTC"), periods=n,
+                         freq=pd.Timedelta(minutes=interval_minutes))
+
+
+def holiday_dates(settings: Settings) -> set:
+    """Public holidays of the configured country/subdivision for the study year
+    (``holidays`` package); empty when no country is set."""
+    if not settings.holiday_country:
+        return set()
+    import holidays
+
+    cal = holidays.country_holidays(settings.holiday_country,
+                                    subdiv=settings.holiday_subdivision,
+                                    years=[settings.year])
+    return set(cal.keys())
+
+
+def day_type_index(local_times: pd.DatetimeIndex, holiday_set: set) -> np.ndarray:
+    """``[interval]`` index into DAY_TYPES: Mon–Fri workday, Saturday, Sunday; a public
+    holiday counts as Sunday (whatever weekday it falls on)."""
+    dow = local_times.day_of_week.to_numpy()
+    out = np.where(dow == 6, 2, np.where(dow == 5, 1, 0)).astype(np.int8)
+    if holiday_set:
+        dates = local_times.tz_localize(None).normalize()
+        hol = pd.DatetimeIndex(sorted(pd.Timestamp(d) for d in holiday_set))
+        out[dates.isin(hol)] = 2
+    return out
+
+
+def profile_table_pu(study: Study, interval_minutes: int) -> np.ndarray:
+    """``[profile, season, day_type, slot]`` per-unit values at the interval resolution:
+    a coarser profile is held over the finer intervals, a finer one averaged."""
+    v = study.profiles.values_pu
+    n_slots = MINUTES_PER_DAY // interval_minutes
+    return v.reshape(v.shape[:3] + (n_slots, interval_minutes)).mean(axis=-1)
+
+
+# --------------------------------------------------------------------------------------------
+# builder
+# --------------------------------------------------------------------------------------------
+def gross_load_mw(study: Study, local_times: pd.DatetimeIndex, season_idx: np.ndarray,
+                  day_idx: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+    """Gross load ``[feeder, interval]`` MW = peak_mw × profile value at the local time."""
+    iv = study.settings.interval_minutes
+    table = profile_table_pu(study, iv)
+    n_p, n_s, n_d, n_slots = table.shape
+    minute = (local_times.hour * 60 + local_times.minute).to_numpy()
+    slot = np.minimum(minute // iv, n_slots - 1)
+    key = (season_idx.astype(np.intp) * n_d + day_idx.astype(np.intp)) * n_slots + slot
+    flat = table.reshape(n_p, -1)[:, key]  # [profile, interval] - small
+    prof = study.profile_index
+    peak = study.peak_mw
+    n_f = len(prof)
+    if out is None:
+        out = np.empty((n_f, len(key)), dtype=float)
+    for a in range(0, n_f, _CHUNK_FEEDERS):
+        b = min(a + _CHUNK_FEEDERS, n_f)
+        np.multiply(flat[prof[a:b]], peak[a:b, None], out=out[a:b])
+    return out
+
+
+def build_year(study: Study, metered: "MeteredData | None" = None) -> Year:
+    """Build the study year of per-feeder net load.
+
+    Profile path: net = peak_mw × profile(season, day type, local time) − pv_mw × pv_derate
+    × clear-sky PV per unit.  With ``metered`` data, metered values replace the profile ones
+    where present; gaps are filled by ``gap_fill`` (see :mod:`allocator.metered`).
+    Demand per ``demand_basis``: ``feeders`` = sum of all feeders' net load;
+    ``metered_total`` = the metered TOTAL series.
+    """
+    s = study.settings
+    ts = study_intervals(s.year, s.timezone, s.interval_minutes)
+    local = ts.tz_convert(s.timezone)
+    season_idx = study.profiles.month_season[local.month.to_numpy() - 1]
+    day_idx = day_type_index(local, holiday_dates(s))
+    pv_pu = clearsky_pv_pu(ts, s.interval_minutes, s.latitude_deg, s.longitude_deg)
+
+    net = gross_load_mw(study, local, season_idx, day_idx)
+    pv_cap = study.pv_mw * s.pv_derate
+    for a in range(0, net.shape[0], _CHUNK_FEEDERS):
+        b = min(a + _CHUNK_FEEDERS, net.shape[0])
+        net[a:b] -= pv_cap[a:b, None] * pv_pu[None, :]
+
+    flags: tuple[FeederFlag, ...] = ()
+    notes: list[str] = []
+    source = "profiles"
+    total = None
+    if metered is not None:
+        from .metered import merge_metered
+
+        net, total, flags, more = merge_metered(study, metered, ts, net)
+        notes += more
+        source = "metered"
+    if s.demand_basis == "metered_total":
+        if total is None:
+            from .errors import InputError, Problem
+
+            raise InputError([Problem(study.path, "demand_basis is 'metered_total' but no "
+                                      "metered file with TOTAL rows was given (use --metered)",
+                                      "settings", None, "value")])
+        demand = total
+    else:
+        demand = net.sum(axis=0)
+    net.setflags(write=False)
+    demand = np.asarray(demand, dtype=float)
+    demand.setflags(write=False)
+    return Year(ts, s.timezone, s.interval_minutes, study.feeder_ids, net, demand, pv_pu,
+                season_idx, day_idx, source, tuple(flags), tuple(notes))
+
+
+def year_summary(study: Study, year: Year) -> pd.DataFrame:
+    """One row per feeder: mean/min/max net MW, exporting hours, flags - for the summary CSV."""
+    net = year.net_mw
+    h = year.interval_h
+    flag_map: dict[str, list[str]] = {}
+    for fl in year.flags:
+        flag_map.setdefault(fl.feeder_id, []).append(fl.flag)
+    return pd.DataFrame({
+        "feeder_id": list(study.feeder_ids),
+        "substation": [f.substation for f in study.feeders],
+        "profile": [f.profile for f in study.feeders],
+        "relay": [f.relay for f in study.feeders],
+        "peak_mw": study.peak_mw,
+        "pv_mw": study.pv_mw,
+        "mean_net_mw": net.mean(axis=1),
+        "min_net_mw": net.min(axis=1),
+        "max_net_mw": net.max(axis=1),
+        "energy_mwh": net.sum(axis=1) * h,
+        "exporting_hours": (net < 0).sum(axis=1) * h,
+        "flags": [";".join(flag_map.get(f, [])) for f in study.feeder_ids],
+    })
+
+
+__all__ = ["Year", "FeederFlag", "build_year", "study_intervals", "day_type_index",
+           "holiday_dates", "profile_table_pu", "gross_load_mw", "year_summary", "DAY_TYPES"]

@@ -1,0 +1,487 @@
+"""Checks of the year builder (allocator.year / allocator.solar) against outside sources.
+
+Outside references used here, each named again beside its check:
+
+* BDEW standard load profiles (the older H0/G0-G6/L0-L2 tables and the 2025 G25/H25/L25/P25/
+  S25 tables) as shipped, with their own series builder, in the ``demandlib`` package (PyPI,
+  version 0.2.2).
+* Public-holiday calendars of the ``holidays`` package (PyPI).
+* Solar position: NOAA Global Monitoring Division, "General Solar Position Calculations"
+  (declination and equation-of-time Fourier approximations; coefficients from memory).
+* DST transition dates: the IANA time-zone database through Python's ``zoneinfo``; the rules
+  themselves (EU: last Sunday of March / October; US: second Sunday of March / first Sunday
+  of November since the Energy Policy Act of 2005) from memory.
+
+Workbook data that is not taken from one of these sources (feeders, blocks, the resolution
+test shapes) is invented test data.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import warnings
+from datetime import date, datetime, timedelta
+from zoneinfo import ZoneInfo
+
+import holidays
+import numpy as np
+import pandas as pd
+import pytest
+from demandlib.bdew._profiles25 import _bdew_datapath  # demandlib's BDEW table folder
+
+from allocator.domain import DAY_TYPES
+from allocator.solar import clearsky_ghi_w_per_m2, clearsky_pv_pu
+from allocator.workbook import read_study
+from allocator.year import build_year, study_intervals
+from wbfactory import BASE_SETTINGS, base_feeders, flat_profiles, write_workbook
+
+SUNDAY = DAY_TYPES.index("sunday")
+SATURDAY = DAY_TYPES.index("saturday")
+WORKDAY = DAY_TYPES.index("workday")
+
+
+def _study(tmp_path, name="study.xlsx", settings=None, **tables):
+    s = dict(BASE_SETTINGS)
+    s.update(settings or {})
+    s = {k: v for k, v in s.items() if v is not None}  # None = leave the key out
+    return read_study(write_workbook(tmp_path / name, settings=s, **tables))
+
+
+def _feeder(fid, profile, peak=1.0, pv=0.0):
+    return {"feeder_id": fid, "substation": "SUB", "profile": profile, "peak_mw": peak,
+            "pv_mw": pv, "relay": "standard"}
+
+
+def _local_dates(year):
+    return np.asarray(year.local_times.tz_localize(None).normalize())
+
+
+# ============================================================================================
+# 1. BDEW standard load profiles vs demandlib
+# ============================================================================================
+BDEW_YEAR = 2025
+BDEW_DAY_TYPES = {"WT": "workday", "SA": "saturday", "FT": "sunday"}  # BDEW names
+
+
+def _bdew_holidays():
+    # same calendar for both sides: German national holidays from the `holidays` package
+    return holidays.country_holidays("DE", years=BDEW_YEAR)
+
+
+def _hhmm(q):
+    return f"{q // 4:02d}:{q % 4 * 15:02d}"
+
+
+def _old_bdew_rows():
+    """The older BDEW tables (demandlib's selp_series.csv): period x weekday 1..7 x 96
+    quarter-hours.  Returns workbook profile rows (per unit of each profile's table max)."""
+    selp = pd.read_csv(os.path.join(_bdew_datapath, "selp_series.csv"))
+    names = ["h0", "g0", "g1", "g2", "g3", "g4", "g5", "g6", "l0", "l1", "l2"]
+    rows = []
+    for p in names:
+        peak = selp[p].max()
+        for period in ("winter", "transition", "summer"):
+            sub = selp[selp["period"] == period]
+            by_wd = {wd: sub[sub["weekday"] == wd][p].to_numpy() for wd in range(1, 8)}
+            # BDEW defines one workday shape: demandlib repeats it for Monday..Friday.
+            # Our format has one 'workday' type, so this must hold for the mapping to be exact.
+            for wd in range(2, 6):
+                assert np.array_equal(by_wd[1], by_wd[wd]), (p, period, wd)
+            for dt, wd in (("workday", 1), ("saturday", 6), ("sunday", 7)):
+                assert len(by_wd[wd]) == 96
+                for q, v in enumerate(by_wd[wd]):
+                    rows.append({"profile": p.upper(), "season": period, "day_type": dt,
+                                 "time": _hhmm(q), "value": float(v) / peak})
+    return names, rows
+
+
+def _new_bdew_rows():
+    """The 2025 BDEW tables (demandlib's g25/h25/l25/p25/s25.csv): month x {WT, SA, FT} x 96
+    quarter-hours, energy per quarter-hour.  Seasons are the twelve months."""
+    rows = []
+    names = ["G25", "H25", "L25", "P25", "S25"]
+    month_names = ["Januar", "Februar", "März", "April", "Mai", "Juni", "Juli", "August",
+                   "September", "Oktober", "November", "Dezember"]
+    for name in names:
+        tab = pd.read_csv(os.path.join(_bdew_datapath, f"{name.lower()}.csv"), header=[0, 1])
+        assert len(tab) == 96
+        cols = [c for c in tab.columns if c[0] in month_names]
+        assert len(cols) == 36
+        peak = max(tab[c].max() for c in cols)
+        for mname, bdew_dt in cols:
+            season = f"m{month_names.index(mname) + 1:02d}"
+            for q, v in enumerate(tab[(mname, bdew_dt)].to_numpy()):
+                rows.append({"profile": name, "season": season,
+                             "day_type": BDEW_DAY_TYPES[bdew_dt], "time": _hhmm(q),
+                             "value": float(v) / peak})
+    return names, rows
+
+
+def _bdew_study(tmp_path, names, rows, seasons):
+    return _study(tmp_path, "bdew.xlsx",
+                  settings={"year": BDEW_YEAR, "timezone": "Europe/Berlin",
+                            "interval_minutes": 15, "holiday_country": "DE",
+                            "latitude": 51.0, "longitude": 10.0},
+                  feeders=[_feeder(f"F_{n}", n.upper()) for n in names],  # pv_mw 0
+                  profiles=rows, seasons=seasons)
+
+
+def _wall_clock_alignment(year):
+    """Our intervals are tz-aware and spaced in UTC; demandlib's index is naive local time
+    with 96 quarter-hours every day (no DST).  Align by local wall-clock start: on
+    2025-03-30 the wall times 02:00-02:45 do not exist in Europe/Berlin (we have none, so
+    demandlib's four values there are not compared), on 2025-10-26 02:00-02:45 occurs twice
+    (we take the profile value twice; both are compared with demandlib's single value)."""
+    wall = pd.DatetimeIndex(year.local_times.tz_localize(None))
+    full = pd.date_range(f"{BDEW_YEAR}-01-01", periods=35040, freq="15min")
+    missing = full.difference(wall)
+    assert list(missing) == list(pd.date_range("2025-03-30 02:00", periods=4, freq="15min"))
+    dup = wall[wall.duplicated()]
+    assert list(dup) == list(pd.date_range("2025-10-26 02:00", periods=4, freq="15min"))
+    return wall
+
+
+def _demandlib_elecslp():
+    """demandlib 0.2.2's ElecSlp calls ``warnings.simplefilter("error")`` inside its builder,
+    which turns pandas 3.1's deprecation warnings (``inplace=``) into exceptions.  We keep
+    that call from taking effect (inside a catch_warnings block) - it changes no values."""
+    from demandlib import bdew
+
+    real = warnings.simplefilter
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore")
+        warnings.simplefilter = lambda *a, **k: None
+        try:
+            return bdew.ElecSlp(BDEW_YEAR, holidays=_bdew_holidays())
+        finally:
+            warnings.simplefilter = real
+
+
+def test_bdew_2025_profiles_match_demandlib(tmp_path):
+    # Source: BDEW 2025 standard load profiles (G25, H25, L25, P25, S25) as shipped in
+    # demandlib 0.2.2 (tables and its own series builder demandlib.bdew.G25 etc.).
+    from demandlib import bdew
+
+    names, rows = _new_bdew_rows()
+    seasons = [{"season": f"m{m:02d}", "months": str(m)} for m in range(1, 13)]
+    study = _bdew_study(tmp_path, names, rows, seasons)
+    year = build_year(study)
+    assert year.n_intervals == 35040
+    wall = _wall_clock_alignment(year)
+
+    idx = pd.date_range(f"{BDEW_YEAR}-01-01", periods=35040, freq="15min")
+    worst = {}
+    for i, name in enumerate(names):
+        cls = getattr(bdew, name)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # pandas deprecation warnings inside demandlib
+            ref = cls(idx, holidays=_bdew_holidays())
+        ref = pd.Series(np.asarray(ref, dtype=float), index=idx)
+        if issubclass(cls, bdew._profiles25.DynamicBDEW25Profile):
+            # H25, P25, S25 are "dynamic": demandlib multiplies the table by the BDEW 4th-order
+            # dynamisation polynomial of the day of year.  We do not apply it (a year of
+            # profile *shapes* per month), so divide demandlib's own factor back out.
+            ref = ref / cls.dynamisation_function(idx)
+        ours = year.net_mw[i]
+        theirs = ref.reindex(wall).to_numpy()
+        # both normalised to sum 1 over the compared intervals
+        a = ours / ours.sum()
+        b = theirs / theirs.sum()
+        rel = np.abs(a / b - 1.0)
+        worst[name] = float(rel.max())
+    print("BDEW worst relative difference:", worst)
+    assert max(worst.values()) < 1e-6, worst
+
+
+def test_bdew_old_profiles_match_demandlib(tmp_path):
+    # Source: BDEW standard load profiles H0, G0-G6, L0-L2 (1999 tables) as shipped in
+    # demandlib 0.2.2 (selp_series.csv and demandlib.bdew.ElecSlp).
+    # demandlib's periods are date ranges, not whole months: winter 1 Nov-20 Mar, transition
+    # 21 Mar-14 May and 15 Sep-31 Oct, summer 15 May-14 Sep.  Whole-month seasons can only
+    # approximate that; we put March in winter, May and September in transition.  The days
+    # where the two then use different tables are exactly 21-31 Mar, 15-31 May and 1-14 Sep;
+    # every other day must agree, and those days must (all, and only they) disagree.
+    names, rows = _old_bdew_rows()
+    seasons = [{"season": "winter", "months": "1,2,3,11,12"},
+               {"season": "transition", "months": "4,5,9,10"},
+               {"season": "summer", "months": "6,7,8"}]
+    study = _bdew_study(tmp_path, names, rows, seasons)
+    year = build_year(study)
+    wall = _wall_clock_alignment(year)
+    slp = _demandlib_elecslp().get_profiles()
+    # H0: compare the static "h0" column; demandlib's "h0_dyn" adds the dynamisation we omit.
+
+    explained = set(pd.date_range("2025-03-21", "2025-03-31").date) | set(
+        pd.date_range("2025-05-15", "2025-05-31").date) | set(
+        pd.date_range("2025-09-01", "2025-09-14").date)
+    day = np.array(wall.date)
+    keep = ~np.isin(day, list(explained))
+    bad_days: set = set()
+    worst = {}
+    for i, n in enumerate(names):
+        ours = year.net_mw[i]
+        theirs = slp[n].reindex(wall).to_numpy()
+        a = ours / ours[keep].sum()
+        b = theirs / theirs[keep].sum()
+        rel = np.abs(a / b - 1.0)
+        worst[n] = float(rel[keep].max())
+        bad_days |= set(day[rel > 1e-6])
+    print("BDEW worst relative difference:", worst)
+    assert max(worst.values()) < 1e-6, worst
+    assert bad_days == explained
+
+
+# ============================================================================================
+# 2. Holidays (`holidays` package) are Sunday-type days
+# ============================================================================================
+def _holiday_study(tmp_path, subdiv=None, name="hol.xlsx"):
+    s = {"holiday_country": "DE", "year": 2025, "interval_minutes": 60}
+    if subdiv:
+        s["holiday_subdivision"] = subdiv
+    return _study(tmp_path, name, settings=s)
+
+
+def test_fixed_national_holidays_are_sunday(tmp_path):
+    year = build_year(_holiday_study(tmp_path))
+    days = _local_dates(year)
+    cal = holidays.country_holidays("DE", years=2025)  # Source: `holidays` package
+    # fixed-date German national holidays (from memory; confirmed against `holidays` here)
+    fixed = [date(2025, 1, 1), date(2025, 5, 1), date(2025, 10, 3), date(2025, 12, 25),
+             date(2025, 12, 26)]
+    for d in fixed:
+        assert d in cal
+        m = days == np.datetime64(d)
+        assert m.sum() == 24
+        assert (year.day_type_index[m] == SUNDAY).all(), d
+    # whole year: Sunday if holiday or Sunday, else Saturday / workday by weekday
+    for d in pd.date_range("2025-01-01", "2025-12-31"):
+        want = (SUNDAY if d.date() in cal or d.day_of_week == 6 else
+                SATURDAY if d.day_of_week == 5 else WORKDAY)
+        got = set(year.day_type_index[days == np.datetime64(d.date())].tolist())
+        assert got == {want}, d.date()
+    # Good Friday / Easter Monday 2025 (18 / 21 April) are movable national holidays
+    assert set(year.day_type_index[days == np.datetime64("2025-04-21")]) == {SUNDAY}
+
+
+def test_subdivision_holiday_only_with_subdivision(tmp_path):
+    # Source: `holidays` package - Epiphany (6 Jan) is a holiday in Bavaria (DE-BY) only.
+    assert date(2025, 1, 6) in holidays.country_holidays("DE", subdiv="BY", years=2025)
+    assert date(2025, 1, 6) not in holidays.country_holidays("DE", years=2025)
+    assert date(2025, 1, 6).weekday() == 0  # a Monday
+    nat = build_year(_holiday_study(tmp_path, name="de.xlsx"))
+    by = build_year(_holiday_study(tmp_path, subdiv="BY", name="by.xlsx"))
+    for y, want in ((nat, WORKDAY), (by, SUNDAY)):
+        m = _local_dates(y) == np.datetime64("2025-01-06")
+        assert set(y.day_type_index[m].tolist()) == {want}
+
+
+# ============================================================================================
+# 3. Solar geometry vs NOAA "General Solar Position Calculations" (from memory)
+# ============================================================================================
+def _noaa(times_utc: pd.DatetimeIndex, lat: float, lon: float):
+    """Solar elevation (deg) and equation of time (min) from the NOAA approximations
+    (NOAA GML "General Solar Position Calculations"; coefficients from memory)."""
+    t = times_utc.tz_convert("UTC")
+    doy = t.day_of_year.to_numpy()
+    hour = (t.hour + t.minute / 60 + t.second / 3600).to_numpy()
+    n_days = np.where(t.is_leap_year, 366, 365)
+    g = 2 * np.pi / n_days * (doy - 1 + (hour - 12) / 24)
+    eot = 229.18 * (0.000075 + 0.001868 * np.cos(g) - 0.032077 * np.sin(g)
+                    - 0.014615 * np.cos(2 * g) - 0.040849 * np.sin(2 * g))
+    decl = (0.006918 - 0.399912 * np.cos(g) + 0.070257 * np.sin(g)
+            - 0.006758 * np.cos(2 * g) + 0.000907 * np.sin(2 * g)
+            - 0.002697 * np.cos(3 * g) + 0.00148 * np.sin(3 * g))
+    tst = hour * 60 + eot + 4 * lon  # true solar time, minutes (UTC input, tz offset 0)
+    ha = np.radians(tst / 4 - 180)
+    phi = np.radians(lat)
+    cosz = np.sin(phi) * np.sin(decl) + np.cos(phi) * np.cos(decl) * np.cos(ha)
+    elev = 90 - np.degrees(np.arccos(np.clip(cosz, -1, 1)))
+    return elev, eot
+
+
+SITES = [(50.0, 10.0), (40.7, -74.0), (-33.9, 18.4), (35.7, 139.7), (64.1, -21.9)]
+
+
+@pytest.mark.parametrize("lat,lon", SITES)
+def test_pv_zero_while_sun_below_horizon(lat, lon):
+    # NOAA elevation (from memory, see _noaa); margin 1 deg covers refraction at the horizon
+    # (~0.57 deg, common practice, no source) and the approximation error of the formulas.
+    ts = study_intervals(2025, "UTC", 15)
+    pv = clearsky_pv_pu(ts, 15, lat, lon)
+    assert pv.shape == (35040,)
+    elev_start, _ = _noaa(ts, lat, lon)
+    elev_end, _ = _noaa(ts + pd.Timedelta(minutes=15), lat, lon)
+    below = (elev_start < -1.0) & (elev_end < -1.0)
+    above = (elev_start > 1.0) & (elev_end > 1.0)
+    assert below.sum() > 5000 and above.sum() > 5000
+    assert (pv[below] == 0).all()
+    assert (pv[above] > 0).all()
+    assert (pv >= 0).all() and pv.max() < 1.2
+
+
+def _one_minute_day(day: str, lon: float):
+    # a 24-hour window centred on the approximate UTC solar noon of that longitude
+    centre = pd.Timestamp(day, tz="UTC") + pd.Timedelta(hours=12 - lon / 15)
+    return pd.date_range(centre - pd.Timedelta(hours=12), periods=1440, freq="1min")
+
+
+@pytest.mark.parametrize("lat,lon", [(0.0, 0.0), (30.0, 30.0), (50.0, 10.0), (-35.0, 150.0),
+                                     (40.7, -74.0)])
+def test_equinox_day_length_about_12h(lat, lon):
+    # Source: at an equinox (declination ~0) day length is 12 h at every latitude (NOAA
+    # sunrise/sunset relation cos H = -tan(lat) tan(decl); from memory); atmospheric
+    # refraction lengthens it by a few minutes (common practice, no source).
+    t = _one_minute_day("2025-03-20", lon)
+    ghi = clearsky_ghi_w_per_m2(t, lat, lon)
+    on = np.flatnonzero(ghi > 0)
+    length_min = on[-1] - on[0] + 1
+    assert 720 <= length_min <= 740, length_min
+
+
+@pytest.mark.parametrize("day", ["2025-02-11", "2025-03-20", "2025-06-21", "2025-11-03"])
+@pytest.mark.parametrize("lon", [0.0, 10.0, -74.0, 139.7])
+def test_solar_noon_matches_equation_of_time(day, lon):
+    # NOAA: solar noon (UTC, minutes) = 720 - 4 min/deg x longitude - EoT (from memory).
+    # EoT is about -14 min on 11 Feb and +16 min on 3 Nov, so 3 min tolerance needs it.
+    t = _one_minute_day(day, lon)
+    ghi = clearsky_ghi_w_per_m2(t, 45.0, lon)
+    t_max = t[int(np.argmax(ghi))]
+    _, eot = _noaa(pd.DatetimeIndex([t_max]), 45.0, lon)
+    noon = pd.Timestamp(day, tz="UTC") + pd.Timedelta(minutes=720 - 4 * lon - float(eot[0]))
+    assert abs((t_max - noon).total_seconds()) <= 180, (t_max, noon)
+
+
+def test_noaa_equation_of_time_is_material():
+    # guard: the dates above really have a large EoT (so the noon check tests the PV model)
+    _, eot = _noaa(pd.DatetimeIndex(["2025-02-11 12:00", "2025-11-03 12:00"], tz="UTC"), 0, 0)
+    assert eot[0] < -13 and eot[1] > 15
+
+
+# ============================================================================================
+# 4. DST and year length
+# ============================================================================================
+def _dst_days(tz: str, yr: int):
+    """Local dates whose UTC offset at the next midnight differs (IANA tz database)."""
+    z = ZoneInfo(tz)
+    out = {}
+    for k in range(366 if yr % 4 == 0 else 365):
+        d = date(yr, 1, 1) + timedelta(days=k)
+        a = datetime(d.year, d.month, d.day, tzinfo=z).utcoffset()
+        n = d + timedelta(days=1)
+        b = datetime(n.year, n.month, n.day, tzinfo=z).utcoffset()
+        if a != b:
+            out[d] = 24 - (b - a).total_seconds() / 3600
+    return out
+
+
+@pytest.mark.parametrize("tz,spring,autumn", [
+    # EU rule: last Sunday of March / October; US: second Sunday of March / first Sunday of
+    # November (both from memory; the dates themselves checked against zoneinfo below)
+    ("Europe/Berlin", date(2025, 3, 30), date(2025, 10, 26)),
+    ("America/New_York", date(2025, 3, 9), date(2025, 11, 2)),
+])
+@pytest.mark.parametrize("interval", [15, 30, 60])
+def test_dst_days_have_23_and_25_hours(tmp_path, tz, spring, autumn, interval):
+    assert _dst_days(tz, 2025) == {spring: 23.0, autumn: 25.0}  # Source: IANA tz (zoneinfo)
+    y = build_year(_study(tmp_path, settings={"timezone": tz, "interval_minutes": interval,
+                                              "holiday_country": None}))
+    assert str(y.timestamps_utc.tz) == "UTC"
+    assert str(y.local_times.tz) == tz
+    assert (np.diff(y.timestamps_utc.as_unit("ns").asi8) == interval * 60 * 10**9).all()
+    assert y.n_intervals == 8760 * 60 // interval
+    hours = pd.Series(1, index=_local_dates(y)).groupby(level=0).sum() * interval / 60
+    assert len(hours) == 365
+    assert hours[pd.Timestamp(spring)] == 23
+    assert hours[pd.Timestamp(autumn)] == 25
+    others = hours.drop([pd.Timestamp(spring), pd.Timestamp(autumn)])
+    assert (others == 24).all()
+    # the year runs from local midnight 1 Jan to local midnight 1 Jan of the next year
+    assert y.local_times[0] == pd.Timestamp("2025-01-01", tz=tz)
+    assert y.local_times[-1] + pd.Timedelta(minutes=interval) == pd.Timestamp("2026-01-01",
+                                                                            tz=tz)
+
+
+@pytest.mark.parametrize("interval,n", [(15, 35040), (30, 17520), (60, 8760)])
+def test_no_dst_zone_and_year_length(tmp_path, interval, n):
+    # Japan has no DST (IANA tz database, Asia/Tokyo)
+    assert _dst_days("Asia/Tokyo", 2025) == {}
+    y = build_year(_study(tmp_path, settings={"timezone": "Asia/Tokyo", "latitude": 35.7,
+                                              "longitude": 139.7, "holiday_country": "JP",
+                                              "interval_minutes": interval}))
+    assert y.n_intervals == n
+    hours = pd.Series(1, index=_local_dates(y)).groupby(level=0).sum() * interval / 60
+    assert len(hours) == 365 and (hours == 24).all()
+
+
+def test_leap_year_length(tmp_path):
+    y = build_year(_study(tmp_path, settings={"year": 2024, "interval_minutes": 60}))
+    assert y.n_intervals == 8784  # 366 days (Gregorian leap year)
+
+
+# ============================================================================================
+# 5. Resolution and the net-load formula
+# ============================================================================================
+def _shape(p, s, d, m):
+    # invented test shape: differs by profile, day type and every quarter-hour
+    k = {"res": 0.0, "com": 0.1}[p] + 0.05 * DAY_TYPES.index(d)
+    return round(0.3 + k + 0.4 * math.sin(m / 1440 * 2 * math.pi) ** 2 + (m % 60) / 600, 6)
+
+
+def _expected_gross(year, peak, p, step, interval):
+    """Expected value per interval from the local start time: mean of the profile's values
+    over [start, start + interval), each held for ``step`` minutes."""
+    lt = year.local_times
+    minute = (lt.hour * 60 + lt.minute).to_numpy()
+    out = np.empty(year.n_intervals)
+    for k in range(year.n_intervals):
+        d = DAY_TYPES[year.day_type_index[k]]
+        vals = [_shape(p, "all", d, (mm // step) * step)
+                for mm in range(minute[k], minute[k] + interval)]
+        out[k] = peak * sum(vals) / len(vals)
+    return out
+
+
+def test_quarter_hour_profile_averaged_into_hours(tmp_path):
+    y = build_year(_study(tmp_path, settings={"interval_minutes": 60},
+                          profiles=flat_profiles(value=_shape, step_minutes=15)))
+    feeders = base_feeders()
+    for i in (0, 1):
+        p, peak = feeders[i]["profile"], feeders[i]["peak_mw"]
+        lt = y.local_times
+        # the hourly value is the mean of the four quarter-hour values of that hour
+        want = np.array([peak * np.mean([_shape(p, "all", DAY_TYPES[y.day_type_index[k]],
+                                                lt[k].hour * 60 + q) for q in (0, 15, 30, 45)])
+                         for k in range(y.n_intervals)])
+        np.testing.assert_allclose(y.net_mw[i], want, rtol=1e-12, atol=0)
+        np.testing.assert_allclose(y.net_mw[i], _expected_gross(y, peak, p, 15, 60),
+                                   rtol=1e-12)
+
+
+def test_hourly_profile_held_at_quarter_hours(tmp_path):
+    y = build_year(_study(tmp_path, settings={"interval_minutes": 15},
+                          profiles=flat_profiles(value=_shape, step_minutes=60)))
+    lt = y.local_times
+    peak = base_feeders()[1]["peak_mw"]
+    want = np.array([peak * _shape("res", "all", DAY_TYPES[y.day_type_index[k]],
+                                   lt[k].hour * 60) for k in range(y.n_intervals)])
+    np.testing.assert_allclose(y.net_mw[1], want, rtol=1e-12, atol=0)
+    # the four quarter-hours of an ordinary hour are equal
+    q = y.net_mw[1][:96].reshape(24, 4)
+    assert (q == q[:, :1]).all()
+
+
+def test_net_is_gross_minus_derated_pv(tmp_path):
+    feeders = base_feeders(4)
+    feeders[0]["pv_mw"] = 0.7
+    feeders[2]["pv_mw"] = 5.0  # exports at midday (pv > peak: a warning, not an error)
+    s = {"interval_minutes": 30, "pv_derate": 0.85}
+    y = build_year(_study(tmp_path, settings=s, feeders=feeders,
+                          profiles=flat_profiles(value=_shape, step_minutes=30)))
+    assert y.pv_pu.max() > 0.5 and (y.pv_pu == 0).sum() > 5000
+    for i, f in enumerate(feeders):
+        gross = _expected_gross(y, f["peak_mw"], f["profile"], 30, 30)
+        want = gross - f["pv_mw"] * 0.85 * y.pv_pu
+        np.testing.assert_allclose(y.net_mw[i], want, rtol=0, atol=1e-12)
+    assert y.net_mw[2].min() < 0
+    np.testing.assert_allclose(y.demand_mw, y.net_mw.sum(axis=0), rtol=1e-12)
