@@ -65,7 +65,9 @@ def rule_problems(study: Study, block_idx: np.ndarray, file: str,
             desc = ", ".join(f"{study.feeders[m].feeder_id}→"
                              f"{names[int(block_idx[m])] if block_idx[m] >= 0 else 'unarmed'}"
                              for m in members)
-            first = members[0]
+            # name a line the file has: an armed member's, else any listed member's
+            listed = [m for m in members if m in rows]
+            first = ([m for m in listed if block_idx[m] >= 0] or listed or members)[0]
             out.append(Problem(file=file, sheet=sheet,
                                row=rows.get(first, study.feeders[first].row if sheet else None),
                                column=column,

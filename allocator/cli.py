@@ -215,42 +215,212 @@ def cmd_plan(args, console) -> int:
     before = run_check(study, year, cur, cur_warns)
     with atomic_dir(out) as tmp:
         outcome, chk, info = _plan_into(args, console, study, year, tmp, args.quiet)
-        _reports(args, chk, tmp / "check", previous_idx=study.current_assignment,
+        _reports(args, chk, tmp, previous_idx=study.current_assignment,
                  plan_info=info, before=before)
     _print_plan(console, outcome, chk, info)
     console.print(f"Wrote {out}/")
     return EXIT_OK
 
 
-def cmd_demo(args, console) -> int:
+def _frequency_into(study, chk, out_tmp: Path, at, quiet, console):
+    """Run the frequency indication for ``chk`` and write its files into out_tmp."""
+    from .frequency_study import (frequency_figures, frequency_summary, frequency_table,
+                                  run_frequency_study)
+    from .safeio import write_csv, write_json
+
+    with console.status("frequency indication") if not quiet else _null():
+        fs = run_frequency_study(chk, at)
+    out_tmp.mkdir(parents=True, exist_ok=True)
+    write_csv(frequency_table(fs), out_tmp / "frequency.csv")
+    summary = frequency_summary(fs)
+    write_json(summary, out_tmp / "frequency.json")
+    return fs, summary
+
+
+def _write_frequency_figures(fs, folder: Path) -> None:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from .frequency_study import frequency_figures
+    from .safeio import safe_filename
+
+    folder.mkdir(parents=True, exist_ok=True)
+    for name, fig in frequency_figures(fs).items():
+        fig.savefig(folder / f"{safe_filename(name)}.png", dpi=150,
+                    metadata={"Software": None})
+        plt.close(fig)
+
+
+def _print_frequency(console, summary: dict) -> None:
+    from rich.table import Table
+
+    t = Table(title="Frequency indication: largest generation loss kept within "
+              f"{summary['floor_hz']:g}–{summary['ceiling_hz']:g} Hz", title_justify="left")
+    for col in ("interval", "local time", "MW", "armed %", "max loss %", "max loss MW"):
+        t.add_column(col, no_wrap=True)
+    for r in summary["intervals"]:
+        lc = r["largest_covered_pct"]
+        t.add_row(r["interval"], r["local_time"][5:16], f"{r['demand_mw']:.0f}",
+                  f"{r['total_armed_pct']:.1f}", "none" if lc is None else f"{lc:g}",
+                  "—" if lc is None else f"{r['largest_covered_mw']:.0f}")
+    console.print(t)
+    console.print("[dim]" + summary["cautions"][0] + "[/dim]")
+
+
+def cmd_frequency(args, console) -> int:
+    from .assignment import current_assignment, read_assignment
     from .check import run_check
+    from .safeio import atomic_dir, check_out_dir
+
+    out = Path(args.out) if args.out else _default_out(args.workbook, "frequency")
+    check_out_dir(out, _inputs(args))
+    study, year = _load(args.workbook, args.metered, console, args.quiet)
+    if args.assignment:
+        block_idx, warns = read_assignment(args.assignment, study)
+    else:
+        block_idx, warns = current_assignment(study)
+    chk = run_check(study, year, block_idx, warns)
+    with atomic_dir(out) as tmp:
+        fs, summary = _frequency_into(study, chk, tmp, args.at, args.quiet, console)
+        fmts = _formats(args)
+        if "png" in fmts or "html" in fmts:
+            _write_frequency_figures(fs, tmp / "figures")
+    _print_frequency(console, summary)
+    console.print(f"Wrote {out}/")
+    return EXIT_OK
+
+
+def _formats(args) -> set[str]:
+    from .report import parse_formats
+
+    return parse_formats(getattr(args, "format", None))
+
+
+def cmd_demo(args, console) -> int:
+    """validate → check the current allocation → plan → check the plan → frequency → reports."""
     from .assignment import current_assignment
+    from .check import run_check
     from .console import study_overview, verdict_table, warnings, worst_windows
     from .demo import demo_workbook_path
     from .export import write_check_files
     from .safeio import atomic_dir, write_csv
-    from .year import year_summary
+    from .workbook import read_study
+    from .year import build_year, year_summary
 
     out = Path(args.out)
+    fmts = _formats(args)
+    stages = ["validate the workbook", "build the year of net load",
+              "check the current allocation", "plan a new allocation", "check the plan",
+              "frequency indication", "reports"]
     with atomic_dir(out) as tmp:
         wb = demo_workbook_path(tmp / "input")
         console.rule(f"demo: {wb.name}")
-        study, year = _load(str(wb), None, console, args.quiet)
+        step = _Stages(console, stages, args.quiet)
+        with step("validate the workbook"):
+            study = read_study(wb)
         study_overview(console, study)
-        warnings(console, study.warnings)
-        summary = year_summary(study, year)
-        write_csv(summary, tmp / "year_summary.csv")
-        console.print(f"Year built: {year.n_intervals} intervals × {len(study.feeders)} "
-                      f"feeders; demand {year.demand_mw.min():.1f}–{year.demand_mw.max():.1f} MW"
-                      f"; {int((summary['exporting_hours'] > 0).sum())} feeders export at some "
+        warnings(console, study.warnings, limit=5)
+        with step("build the year of net load"):
+            year = build_year(study)
+            summary = year_summary(study, year)
+            write_csv(summary, tmp / "year_summary.csv")
+        console.print(f"Year: {year.n_intervals} intervals × {len(study.feeders)} feeders; "
+                      f"demand {year.demand_mw.min():.0f}–{year.demand_mw.max():.0f} MW; "
+                      f"{int((summary['exporting_hours'] > 0).sum())} feeders export at some "
                       "interval.")
-        block_idx, warns = current_assignment(study)
-        chk = run_check(study, year, block_idx, warns)
-        write_check_files(chk, tmp / "check_current")
-        verdict_table(console, chk, "Current allocation")
-        worst_windows(console, chk)
+        with step("check the current allocation"):
+            cur, cur_warns = current_assignment(study)
+            before = run_check(study, year, cur, cur_warns)
+            write_check_files(before, tmp / "current")
+        verdict_table(console, before, "Current allocation")
+        worst_windows(console, before, n=3)
+        args.solver, args.seed = "highs", getattr(args, "seed", 0)
+        args.max_changes = None
+        with step("plan a new allocation"):
+            outcome, chk, info = _plan_into(args, console, study, year, tmp, True)
+        with step("check the plan"):
+            write_check_files(chk, tmp)
+        _print_plan(console, outcome, chk, info)
+        with step("frequency indication"):
+            fs_before, fsum_before = _frequency_into(study, before, tmp / "frequency" /
+                                                     "current", None, True, console)
+            fs_after, fsum_after = _frequency_into(study, chk, tmp / "frequency" / "plan",
+                                                   None, True, console)
+            if "png" in fmts or "html" in fmts:
+                _write_frequency_figures(fs_after, tmp / "frequency" / "plan" / "figures")
+                _write_frequency_figures(fs_before, tmp / "frequency" / "current" / "figures")
+        with step("reports"):
+            from .report import write_reports
+
+            write_reports(chk, tmp, previous_idx=study.current_assignment, plan_info=info,
+                          before=before, formats=fmts)
+            write_reports(before, tmp / "current", previous_idx=None, formats=fmts)
+    _demo_verdicts(console, before, chk, fsum_before, fsum_after)
+    for name in ("report.html", "report.xlsx"):
+        if (out / name).exists():
+            console.print(f"  {name}: {(out / name).resolve()}")
     console.print(f"Wrote {out}/")
     return EXIT_OK
+
+
+class _Stages:
+    """A rich progress line per stage of the demo."""
+
+    def __init__(self, console, names, quiet):
+        self.console, self.names, self.quiet = console, names, quiet
+        self.n = 0
+
+    def __call__(self, name):
+        self.n += 1
+        return _Stage(self, name)
+
+
+class _Stage:
+    def __init__(self, parent, name):
+        self.p, self.name = parent, name
+
+    def __enter__(self):
+        self.t0 = time.perf_counter()
+        if not self.p.quiet:
+            self.status = self.p.console.status(
+                f"[{self.p.n}/{len(self.p.names)}] {self.name}")
+            self.status.__enter__()
+        return self
+
+    def __exit__(self, *exc):
+        if not self.p.quiet:
+            self.status.__exit__(*exc)
+            if exc[0] is None:
+                self.p.console.print(f"[green]✓[/green] [{self.p.n}/{len(self.p.names)}] "
+                                     f"{self.name} ({time.perf_counter() - self.t0:.1f} s)")
+        return False
+
+
+def _demo_verdicts(console, before, after, fb, fa) -> None:
+    from rich.table import Table
+
+    t = Table(title="Before and after", title_justify="left")
+    for c in ("block", "band %", "current min %", "planned min %", "current", "planned"):
+        t.add_column(c, no_wrap=True)
+    for sb, sa in zip(before.stats, after.stats):
+        t.add_row(sb.block, f"{sb.min_pct:g}–{sb.max_pct:g}", f"{sb.min_share_pct:.1f}",
+                  f"{sa.min_share_pct:.1f}",
+                  "[green]in band[/green]" if sb.compliant else "[red]out[/red]",
+                  "[green]in band[/green]" if sa.compliant else "[red]out[/red]")
+    console.print(t)
+    v = lambda c: "[green]COMPLIANT[/green]" if c.compliant else "[red]NOT COMPLIANT[/red]"
+    console.print(f"Verdict before: {v(before)}   after: {v(after)}")
+    lb = {r["interval"]: r["largest_covered_pct"] for r in fb["intervals"]}
+    la = {r["interval"]: r["largest_covered_pct"] for r in fa["intervals"]}
+    crit_b = min((k for k in lb if lb[k] is not None), key=lambda k: lb[k], default=None)
+    if crit_b is not None:
+        console.print(f"Largest loss kept above {fb['floor_hz']:g} Hz at the worst interval: "
+                      f"{lb[crit_b]:g} % of demand before ({crit_b}), "
+                      f"{min(v for v in la.values() if v is not None):g} % after; typical "
+                      f"interval {lb.get('typical')} % before, {la.get('typical')} % after "
+                      "(indicative single-bus model).")
 
 
 # --------------------------------------------------------------------------------------------
@@ -305,6 +475,22 @@ def build_parser() -> argparse.ArgumentParser:
     pl.add_argument("--format", help="comma list among xlsx,html,png (default all)")
     pl.set_defaults(func=cmd_plan)
 
+    fq = sub.add_parser("frequency", parents=[common],
+                        help="indicative frequency after large losses with the real armed load",
+                        description="Run a single-bus frequency response model at the "
+                                    "intervals the check flags (each block's lowest share, "
+                                    "lowest demand, most export, a typical interval) with "
+                                    "the armed load found there. Indicative only: the system "
+                                    "operator's dynamic studies govern.")
+    fq.add_argument("workbook", help="study workbook (.xlsx); optional sheet 'system'")
+    fq.add_argument("--assignment", help="CSV feeder_id,block (default: current_block)")
+    fq.add_argument("--metered", help="metered net load (CSV or Parquet)")
+    fq.add_argument("--out", help="output folder (default outputs/<workbook>/frequency/)")
+    fq.add_argument("--at", action="append", metavar="LOCAL_TIME",
+                    help="also examine this local time, e.g. '2025-04-20 13:00' (repeatable)")
+    fq.add_argument("--format", help="'none' to skip pictures (default: pictures)")
+    fq.set_defaults(func=cmd_frequency)
+
     d = sub.add_parser("demo", parents=[common], help="run the whole job on the demo network",
                        description="Run the whole job on the invented demo network.")
     d.add_argument("--out", default="outputs/demo", help="output folder (default outputs/demo)")
@@ -322,7 +508,9 @@ def main(argv: list[str] | None = None) -> int:
     from .console import make_console
 
     console = make_console(quiet=args.quiet)
-    err = make_console()
+    from rich.console import Console
+
+    err = Console(stderr=True, highlight=False, soft_wrap=True)
     t0 = time.perf_counter()
     try:
         rc = args.func(args, console)

@@ -45,10 +45,10 @@ def warnings(console: Console, items: list[str] | tuple[str, ...], limit: int = 
 
 
 def verdict_table(console: Console, check: Check, title: str = "Armed load per block") -> None:
-    t = Table(title=f"{title} — rule {check.rule}", title_justify="left")
+    t = Table(title=f"{title} — rule {check.rule}", title_justify="left", padding=(0, 1))
     for c, j in (("block", "left"), ("Hz", "right"), ("band %", "right"), ("min %", "right"),
                  ("P5 %", "right"), ("mean %", "right"), ("max %", "right"),
-                 ("below", "right"), ("above", "right"), ("short MWh", "right"),
+                 ("<min", "right"), (">max", "right"), ("MWh short", "right"),
                  ("verdict", "left")):
         t.add_column(c, justify=j, no_wrap=True)
     for s in check.stats:
@@ -57,7 +57,7 @@ def verdict_table(console: Console, check: Check, title: str = "Armed load per b
                   f"{s.mean_share_pct:.1f}", f"{s.max_share_pct:.1f}",
                   str(s.intervals_below_min), str(s.intervals_above_max),
                   f"{s.shortfall_mwh:.1f}",
-                  "[green]in band[/green]" if s.compliant else "[red]OUT OF BAND[/red]")
+                  "[green]in band[/green]" if s.compliant else "[red]OUT[/red]")
     console.print(t)
     v = "[green]COMPLIANT[/green]" if check.compliant else "[red]NOT COMPLIANT[/red]"
     nonpos = int((~check.valid).sum())

@@ -335,6 +335,16 @@ def spreadsheet_allocation(rng: np.random.Generator, df: pd.DataFrame, prof) -> 
             place(u, b)
 
 
+# Invented, illustrative system constants for the frequency indication: a small system with
+# little governor headroom (Km), where the UFLS blocks, not the governors, arrest large losses.
+SYSTEM = pd.DataFrame([
+    ("inertia_h_s", 3.0), ("damping_d_pu", 1.0), ("droop_r_pu", 0.05), ("reheat_tr_s", 8.0),
+    ("hp_fraction_fh", 0.3), ("mech_gain_km", 0.3), ("breaker_time_s", 0.1),
+    ("floor_hz", 48.0), ("ceiling_hz", 51.5), ("disturbances_pct", "10,20,30,35,40,45"),
+    ("rocof_window_s", 0.5),
+], columns=["key", "value"])
+
+
 def write_demo_workbook(folder: Path) -> Path:
     """Write ``<folder>/lindmark.xlsx`` and return its path."""
     folder = Path(folder)
@@ -353,6 +363,7 @@ def write_demo_workbook(folder: Path) -> Path:
         feeders.to_excel(xl, sheet_name="feeders", index=False)
         profiles_sheet(prof).to_excel(xl, sheet_name="profiles", index=False)
         SEASONS.to_excel(xl, sheet_name="seasons", index=False)
+        SYSTEM.to_excel(xl, sheet_name="system", index=False)
         # fixed document dates so a rebuild is byte-for-byte the same file
         import datetime as _dt
 

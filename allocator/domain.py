@@ -43,6 +43,9 @@ class Settings:
     mip_gap: float
     gap_fill: str = "profile"  # "profile" | "interpolate" | "error"
     max_substation_share_pct: float | None = None
+    #: level 3 of the planner may let the mean deviation from target rise by this % of
+    #: level 2's value to save relay changes (0 = strictly lexicographic)
+    deviation_tolerance_pct: float = 10.0
 
     @property
     def rule_text(self) -> str:

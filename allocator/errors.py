@@ -29,7 +29,9 @@ class Problem:
         if self.sheet:
             parts.append(f"sheet '{self.sheet}'")
         if self.row is not None:
-            parts.append(f"row {self.row}")
+            is_text = self.sheet is None and self.file.lower().endswith((".csv", ".csv.gz",
+                                                                          ".txt"))
+            parts.append(f"{'line' if is_text else 'row'} {self.row}")
         if self.column:
             parts.append(f"column '{self.column}'")
         return ", ".join(parts)

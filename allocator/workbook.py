@@ -48,7 +48,7 @@ SETTING_KEYS_REQUIRED = ("utility", "year", "timezone", "nominal_hz", "interval_
                          "compliance_rule")
 SETTING_KEYS_OPTIONAL = ("holiday_country", "holiday_subdivision", "pv_derate", "max_changes",
                          "solver_time_limit_s", "mip_gap", "gap_fill",
-                         "max_substation_share_pct")
+                         "max_substation_share_pct", "deviation_tolerance_pct")
 
 
 def max_workbook_bytes() -> int:
@@ -331,6 +331,8 @@ def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, l
         bad("gap_fill", f"expected 'profile', 'interpolate' or 'error', found '{gap_fill}'")
     mss = num("max_substation_share_pct", required=False, minimum=0, maximum=100,
               what="a percentage 0..100")
+    dev_tol = num("deviation_tolerance_pct", required=False, minimum=0, maximum=1000,
+                  what="a percentage ≥ 0")
     if len(col.problems) > n_before or any(
             v is None for v in (utility, year, tz, nominal, interval, lat, lon, basis, policy,
                                 rule)):
@@ -345,6 +347,7 @@ def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, l
         solver_time_limit_s=float(tlim) if tlim is not None else 120.0,
         mip_gap=float(gap) if gap is not None else 1e-4, gap_fill=gap_fill,
         max_substation_share_pct=mss,
+        deviation_tolerance_pct=10.0 if dev_tol is None else float(dev_tol),
     ), warnings
 
 

@@ -271,7 +271,7 @@ def test_bad_input_all_problems_in_one_pass(tmp_path):
     assert has_problem(e, 16, "feeder_id", "blank")
     assert len(e.problems) == 12
     assert all(p.file.endswith("bad.csv") for p in e.problems)
-    assert "row 12, column 'timestamp'" in str(e)
+    assert "line 12, column 'timestamp'" in str(e)
 
 
 def test_mixed_forms_when_the_file_starts_with_offsets(tmp_path):

@@ -198,7 +198,7 @@ def heuristic_plan(units: Units, band: Band, seed: int, time_budget_s: float,
     cols = np.union1d(cols, np.argsort(tot)[:20])
     order = np.argsort(-units.pp[:, cols].mean(axis=1), kind="stable")
     candidates = []
-    cur = units.current.copy()
+    cur = least_change_plan(units)
     if start is not None:
         candidates.append(start.copy())
     if max_changes is None:
@@ -220,6 +220,18 @@ def heuristic_plan(units: Units, band: Band, seed: int, time_budget_s: float,
     return best, cols
 
 
+def least_change_plan(units: Units) -> np.ndarray:
+    """The rule-abiding plan nearest the current allocation: a unit keeps its current option
+    when that costs no change, otherwise it takes the allowed option (or unarmed) that
+    changes fewest member feeders, unarmed on ties (a trip group split across blocks, or a
+    feeder whose current block breaks a rule, must move)."""
+    nb = units.n_blocks
+    ok = np.concatenate([np.ones((units.n, 1), dtype=bool), units.allowed], axis=1)
+    cost = np.concatenate([units.change_cost[:, nb:], units.change_cost[:, :nb]], axis=1)
+    k = np.argmin(np.where(ok, cost, np.inf), axis=1)  # column 0 = unarmed wins ties
+    return np.where(k == 0, nb, k - 1).astype(np.intp)
+
+
 def _repair(units: Units, option: np.ndarray, max_changes: int | None) -> np.ndarray:
     """Move units in a disallowed option to unarmed (keeps a start inside the hard rules)."""
     nb = units.n_blocks
@@ -239,3 +251,56 @@ def _better(a: tuple, b: tuple, tol: float = 1e-9) -> bool:
     if a[1] > b[1] + 1e-9:
         return False
     return a[2] < b[2]
+
+
+def revert_pass(units: Units, band: Band, option: np.ndarray, z_cap: float,
+                mad_cap: float, rng: np.random.Generator, max_passes: int = 3) -> np.ndarray:
+    """Level-3 helper: move changed units back to their current block (or to unarmed when
+    that is what they were) one at a time, keeping the full-year worst violation ≤ z_cap and
+    the full-year mean absolute deviation ≤ mad_cap.  Each trial updates two rows of the
+    ``[block, interval]`` shares, so it costs O(intervals)."""
+    nb = units.n_blocks
+    opt = option.copy()
+    s = shares(units, opt)
+    n_t = s.shape[1]
+    scale = band.scale
+    dev_sum = np.abs(s - band.target[:, None]).sum(axis=1)
+    total = max(nb * n_t, 1)
+
+    def row_viol(row, b):
+        return float(np.maximum(np.maximum(band.lo[b] - row, row - band.hi[b]), 0.0).max(
+            initial=0.0) / scale[b])
+
+    for _ in range(max_passes):
+        changed = np.flatnonzero(opt != units.current)
+        moved = False
+        for u in rng.permutation(changed):
+            q = int(units.current[u])
+            p = int(opt[u])
+            if q < nb and not units.allowed[u, q]:
+                continue
+            if units.change_cost[u, q] >= units.change_cost[u, p]:
+                continue
+            pu = units.pp[u]
+            new_dev = dev_sum.copy()
+            rows = {}
+            ok = True
+            if p < nb:
+                rows[p] = s[p] - pu
+            if q < nb:
+                rows[q] = s[q] + pu
+            for b, row in rows.items():
+                if row_viol(row, b) > z_cap:
+                    ok = False
+                    break
+                new_dev[b] = np.abs(row - band.target[b]).sum()
+            if not ok or new_dev.sum() / total > mad_cap:
+                continue
+            for b, row in rows.items():
+                s[b] = row
+            dev_sum = new_dev
+            opt[u] = q
+            moved = True
+        if not moved:
+            break
+    return opt

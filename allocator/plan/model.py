@@ -77,7 +77,8 @@ def build_model(units: Units, targets: np.ndarray, lo: np.ndarray, hi: np.ndarra
                 band_set: np.ndarray, mad_set: np.ndarray, objective: str,
                 z_cap: float | None = None, mad_cap: float | None = None,
                 max_changes: int | None = None,
-                substation_rows: list[tuple[int, int, np.ndarray, float]] = ()
+                substation_rows: list[tuple[int, int, np.ndarray, float]] = (),
+                share_offset: np.ndarray | None = None, change_offset: float = 0.0
                 ) -> AllocationModel:
     """Build the model on ``band_set`` (band rows) and ``mad_set`` (MAD rows), both index
     arrays into the units' valid intervals.  ``objective`` is ``"worst"``, ``"mad"`` or
@@ -125,8 +126,11 @@ def build_model(units: Units, targets: np.ndarray, lo: np.ndarray, hi: np.ndarra
         pi, ti = np.nonzero(blockvals)
         add(r0 + b * n_t + ti, cols[pi], -blockvals[pi, ti])
         add(r0 + b * n_t + np.arange(n_t), ycol(b, np.arange(n_t)), np.ones(n_t))
-    rlb.append(np.zeros(nb * n_t))
-    rub.append(np.zeros(nb * n_t))
+    # share_offset[b, t]: pp already armed in block b by units held fixed (neighbourhoods)
+    off = (np.zeros(nb * n_t) if share_offset is None
+           else np.asarray(share_offset)[:, model_t].ravel())
+    rlb.append(off)
+    rub.append(off.copy())
     r0 += nb * n_t
     # band rows on the band set
     nbs = band_pos.size
@@ -157,7 +161,7 @@ def build_model(units: Units, targets: np.ndarray, lo: np.ndarray, hi: np.ndarra
         r0 += 2 * nb * n_m
     # changes: sum_pairs x (cost[u,b] - cost[u,B]) + sum_u cost[u,B]
     change_coef = units.change_cost[pair_u, pair_b] - units.change_cost[pair_u, nb]
-    change_const = float(units.change_cost[:, nb].sum())
+    change_const = float(units.change_cost[:, nb].sum()) + float(change_offset)
     if max_changes is not None:
         add(np.full(n_x, r0), np.arange(n_x), change_coef)
         rlb.append(np.array([-np.inf]))
@@ -208,7 +212,8 @@ def build_model(units: Units, targets: np.ndarray, lo: np.ndarray, hi: np.ndarra
 
 
 def start_vector(model: AllocationModel, units: Units, option: np.ndarray,
-                 targets: np.ndarray, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+                 targets: np.ndarray, lo: np.ndarray, hi: np.ndarray,
+                 share_offset: np.ndarray | None = None) -> np.ndarray:
     """A full variable vector for a given unit assignment (for warm starts): x from the
     assignment, y from the shares, z and e at their smallest feasible values."""
     a = model.arrays
@@ -217,11 +222,12 @@ def start_vector(model: AllocationModel, units: Units, option: np.ndarray,
     n_x = model.pair_u.size
     v[:n_x] = model.x_from_option(option, nb)
     # the share-definition rows hold y; recover y = sum pp x via the matrix
-    share = np.zeros((nb, units.pp.shape[1]))
+    share = np.zeros((nb, units.pp.shape[1])) if share_offset is None else \
+        np.array(share_offset, dtype=float)
     for b in range(nb):
         sel = option == b
         if sel.any():
-            share[b] = units.pp[sel].sum(axis=0)
+            share[b] += units.pp[sel].sum(axis=0)
     need_mad = model.n_e > 0
     model_t = np.union1d(model.band_set, model.mad_set if need_mad else
                          np.array([], dtype=np.intp))

@@ -71,13 +71,15 @@ def available(name: str) -> bool:
 
 def solve(arrays: MilpArrays, solver: str = "highs", time_limit_s: float = 60.0,
           mip_gap: float = 1e-4, start: np.ndarray | None = None, seed: int = 0,
-          threads: int | None = None) -> SolveOutcome:
+          threads: int | None = None, node_limit: int | None = None) -> SolveOutcome:
+    """Solve; ``node_limit`` (branch-and-bound nodes) is a deterministic work limit, the
+    time limit a safety net."""
     t0 = time.perf_counter()
     try:
         if solver == "highs":
-            out = _solve_highs(arrays, time_limit_s, mip_gap, start, seed, threads)
+            out = _solve_highs(arrays, time_limit_s, mip_gap, start, seed, threads, node_limit)
         elif solver == "cbc":
-            out = _solve_cbc(arrays, time_limit_s, mip_gap, start, seed, threads)
+            out = _solve_cbc(arrays, time_limit_s, mip_gap, start, seed, threads, node_limit)
         elif solver == "scipy":
             out = _solve_scipy(arrays, time_limit_s, mip_gap)
         else:
@@ -92,7 +94,8 @@ def solve(arrays: MilpArrays, solver: str = "highs", time_limit_s: float = 60.0,
     return out
 
 
-def _solve_highs(a: MilpArrays, tl, gap, start, seed, threads) -> SolveOutcome:
+def _solve_highs(a: MilpArrays, tl, gap, start, seed, threads, node_limit=None
+                 ) -> SolveOutcome:
     import highspy
 
     h = highspy.Highs()
@@ -102,6 +105,8 @@ def _solve_highs(a: MilpArrays, tl, gap, start, seed, threads) -> SolveOutcome:
     h.setOptionValue("random_seed", int(seed))
     if threads:
         h.setOptionValue("threads", int(threads))
+    if node_limit is not None:
+        h.setOptionValue("mip_max_nodes", int(node_limit))
     # HiGHS presolve on the dense share rows can run far past the time limit without
     # checking it (seen: 17 s against a 5 s limit on the demo); the rows are already tight
     h.setOptionValue("presolve", os.environ.get("UFLS_HIGHS_PRESOLVE", "off"))
@@ -141,6 +146,8 @@ def _solve_highs(a: MilpArrays, tl, gap, start, seed, threads) -> SolveOutcome:
     elif ms in (highspy.HighsModelStatus.kTimeLimit, highspy.HighsModelStatus.kIterationLimit,
                 highspy.HighsModelStatus.kInterrupt, highspy.HighsModelStatus.kSolutionLimit):
         status = "time_limit" if x is not None else "no_solution"
+        if ms == highspy.HighsModelStatus.kTimeLimit:
+            name = "time_limit_hit"
     else:
         status = "error" if x is None else "time_limit"
     obj = float(info.objective_function_value) if x is not None else None
@@ -149,7 +156,8 @@ def _solve_highs(a: MilpArrays, tl, gap, start, seed, threads) -> SolveOutcome:
     return SolveOutcome(status, x, obj, bound, g, 0.0, "highs", name)
 
 
-def _solve_cbc(a: MilpArrays, tl, gap, start, seed, threads) -> SolveOutcome:
+def _solve_cbc(a: MilpArrays, tl, gap, start, seed, threads, node_limit=None
+               ) -> SolveOutcome:
     import pulp
 
     prob = pulp.LpProblem("ufls_allocation", pulp.LpMinimize)
@@ -181,6 +189,8 @@ def _solve_cbc(a: MilpArrays, tl, gap, start, seed, threads) -> SolveOutcome:
         for j in range(n):
             vs[j].setInitialValue(float(round(start[j])) if a.integral[j] else float(start[j]))
     opts = [f"randomSeed {int(seed) + 1}", f"randomCbcSeed {int(seed) + 1}"]
+    if node_limit is not None:
+        opts.append(f"maxNodes {int(node_limit)}")
     cmd = pulp.PULP_CBC_CMD(msg=False, timeLimit=float(tl), gapRel=float(gap),
                             warmStart=start is not None, threads=threads, options=opts)
     prob.solve(cmd)

@@ -258,6 +258,11 @@ def _summary_sheet(ws, check: Check, previous_idx, plan_info, before: Check | No
     r += 1
     put_text(ws, r, 1, f"{s.utility} - study year {s.year} - workbook "
                        f"{content.workbook_name(check)} - ufls-allocator {__version__}")
+    r += 1
+    put_text(ws, r, 1, "Caution: UFLS disconnects customers; protect priority sites as local "
+                       "rules require; results are indicative planning support only; verify "
+                       "relay settings before any field change. See 'Cautions' below.").font = \
+        Font(bold=True, color="8A4B00")
     r += 2
 
     def pair(label: str, value: object, fmt: str | None = None, bold: bool = False) -> None:

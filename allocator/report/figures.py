@@ -82,6 +82,15 @@ class FigureFile:
         return (int(round(self.size_in[0] * DPI)), int(round(self.size_in[1] * DPI)))
 
 
+def _snap(w: float, h: float) -> tuple[float, float]:
+    """Figure size on a half-inch grid: exact in binary, so inches x 150 dpi is a whole
+    number of pixels and the PNG is exactly that size."""
+    return (round(w * 2) / 2, round(h * 2) / 2)
+
+
+SHARE_MAP_SIZE = (11.0, 4.5)
+
+
 def _new(size: tuple[float, float]) -> Figure:
     fig = Figure(figsize=size, dpi=DPI, layout="constrained")
     FigureCanvasAgg(fig)
@@ -143,7 +152,7 @@ def share_map(check: Check, j: int) -> tuple[Figure, str, str]:
     st = check.stats[j]
     grid, days = _day_grid(check, j)
     n_slots = grid.shape[0]
-    fig = _new((11.0, 4.4))
+    fig = _new(SHARE_MAP_SIZE)
     ax = fig.add_subplot()
     x0 = mdates.date2num(days[0])
     x1 = mdates.date2num(days[-1] + pd.Timedelta(days=1))
@@ -182,9 +191,11 @@ def share_map(check: Check, j: int) -> tuple[Figure, str, str]:
     cb.set_ticks(ticks)
     cb.set_ticklabels([f"{t:g}" for t in ticks])
     n_out = st.intervals_below_min + st.intervals_above_max
-    ax.set_title(f"Block {_block_title(b)}: share of netted demand through the year - "
-                 f"band {b.min_pct:g}-{b.max_pct:g} %, target {b.target_pct:g} %; "
-                 f"{n_out} intervals outside the band", loc="left")
+    ax.set_title(f"Block {_block_title(b)}: share of netted demand by date and local time "
+                 f"of day\nband {b.min_pct:g}-{b.max_pct:g} % (target {b.target_pct:g} %); "
+                 f"{n_out} intervals outside the band; lowest {st.min_share_pct:.1f} %, "
+                 f"highest {st.max_share_pct:.1f} % (colours stop at {norm.vmin:g} and "
+                 f"{norm.vmax:g} %)", loc="left")
     title = f"Block {b.name}: share of demand by date and time of day"
     caption = (f"Each cell is one interval: date left to right, local time of day bottom to "
                f"top. Pale cells are inside the band {b.min_pct:g}-{b.max_pct:g} %; strong "
@@ -199,13 +210,13 @@ def share_map(check: Check, j: int) -> tuple[Figure, str, str]:
 # duration curves
 # --------------------------------------------------------------------------------------------
 def _grid_shape(n: int, max_cols: int = 3) -> tuple[int, int]:
-    cols = min(max_cols, max(n, 1))
+    cols = min(2 if n <= 4 else max_cols, max(n, 1))
     return math.ceil(max(n, 1) / cols), cols
 
 
 def duration_size(n_blocks: int) -> tuple[float, float]:
     rows, cols = _grid_shape(n_blocks)
-    return (11.0, 1.0 + 2.9 * rows)
+    return _snap(11.0, 1.0 + 2.9 * rows)
 
 
 def duration_curves(check: Check, before: Check | None) -> tuple[Figure, str, str]:
@@ -236,12 +247,13 @@ def duration_curves(check: Check, before: Check | None) -> tuple[Figure, str, st
         below = 100.0 * st.intervals_below_min / n
         above = 100.0 * st.intervals_above_max / n
         verdict = content.block_verdict(st.compliant)
-        ax.set_title(f"{_block_title(b)} - {verdict}\n{below:.1f} % of intervals below min, "
-                     f"{above:.1f} % above max", loc="left", fontsize=9,
+        ax.set_title(f"{_block_title(b)} - {verdict}\nbelow min {below:.1f} %, above max "
+                     f"{above:.1f} % of intervals", loc="left", fontsize=9,
                      fontweight="normal" if st.compliant else "bold")
         ax.set_xlim(0, 100)
-        lo = min(np.nanmin(s) if s.size else b.min_pct, b.min_pct)
-        hi = max(np.nanmax(s) if s.size else b.max_pct, b.max_pct)
+        shown = [s] + ([sb] if before is not None else [])
+        lo = min([b.min_pct] + [float(np.nanmin(v)) for v in shown if v.size])
+        hi = max([b.max_pct] + [float(np.nanmax(v)) for v in shown if v.size])
         pad = 0.08 * (hi - lo if hi > lo else 1.0)
         ax.set_ylim(lo - pad, hi + pad)
         if k % cols == 0:
@@ -267,7 +279,7 @@ def duration_curves(check: Check, before: Check | None) -> tuple[Figure, str, st
 # average day per season
 # --------------------------------------------------------------------------------------------
 def average_day_size(n_blocks: int, n_seasons: int) -> tuple[float, float]:
-    return (min(2.9 * n_seasons + 1.2, 14.0), 1.0 + 2.0 * n_blocks)
+    return _snap(min(2.9 * n_seasons + 1.2, 14.0), 1.0 + 2.0 * n_blocks)
 
 
 def average_day(check: Check) -> tuple[Figure, str, str]:
@@ -294,12 +306,12 @@ def average_day(check: Check) -> tuple[Figure, str, str]:
             in_season = y.season_index == k
             if in_season.any():
                 sel = in_season & np.isfinite(s_all)
-                lo = np.full(n_slots, np.nan)
-                hi = np.full(n_slots, np.nan)
-                for q in range(n_slots):
-                    v = s_all[sel & (slot == q)]
-                    if v.size:
-                        lo[q], hi[q] = v.min(), v.max()
+                lo = np.full(n_slots, np.inf)
+                hi = np.full(n_slots, -np.inf)
+                np.minimum.at(lo, slot[sel], s_all[sel])
+                np.maximum.at(hi, slot[sel], s_all[sel])
+                lo[~np.isfinite(lo)] = np.nan
+                hi[~np.isfinite(hi)] = np.nan
                 ax.fill_between(hours, lo, hi, color=palette.SKY, alpha=0.18, lw=0,
                                 label="lowest to highest day")
                 for d, dname in enumerate(DAY_TYPES):
@@ -343,7 +355,7 @@ def average_day(check: Check) -> tuple[Figure, str, str]:
 # feeder classes per block
 # --------------------------------------------------------------------------------------------
 def classes_size(n_blocks: int) -> tuple[float, float]:
-    return (max(9.0, min(14.0, 4.0 + 1.4 * n_blocks)), 5.4)
+    return _snap(max(9.0, min(14.0, 4.0 + 1.4 * n_blocks)), 5.5)
 
 
 def feeder_classes(check: Check, fc: content.FeederContrib) -> tuple[Figure, str, str]:
@@ -379,6 +391,11 @@ def feeder_classes(check: Check, fc: content.FeederContrib) -> tuple[Figure, str
         ax.plot(x, need, ls="none", marker="_", color=palette.BELOW, ms=22, mew=2.2,
                 label="band minimum (MW)")
         ax.axhline(0, color=palette.INK, lw=0.8)
+        top = max(float(up.max(initial=0.0)), float(np.nanmax(need, initial=0.0)),
+                  float(net.max(initial=0.0)), 1e-3)
+        bottom = min(float(down.min(initial=0.0)), float(net.min(initial=0.0)), 0.0)
+        span = top - bottom
+        ax.set_ylim(bottom - 0.06 * span if bottom < 0 else 0.0, top + 0.08 * span)
         ax.set_xticks(x)
         if kp == "at_pos":
             lt = check.year.local_times
@@ -414,7 +431,7 @@ def feeder_classes(check: Check, fc: content.FeederContrib) -> tuple[Figure, str
 # worst windows on the year's timeline
 # --------------------------------------------------------------------------------------------
 def windows_size(n: int) -> tuple[float, float]:
-    return (11.0, 1.9 + 0.3 * (max(n, 3) + 1.5))
+    return _snap(11.0, 1.9 + 0.3 * (max(n, 3) + 1.5))
 
 
 def worst_windows(check: Check) -> tuple[Figure, str, str]:

@@ -66,6 +66,8 @@ pre.expl { white-space: pre-wrap; background: #f6f7f8; border: 1px solid var(--l
   body { max-width: none; padding: 0; font-size: 11pt; }
   h2 { break-after: avoid; }
   figure, table, .verdict { break-inside: avoid; }
+  div.wide { overflow: visible; }
+  table { font-size: 8pt; }
   .caution-strip, .verdict, th, td.below, td.above { -webkit-print-color-adjust: exact;
                                                      print-color-adjust: exact; }
 }
@@ -117,19 +119,26 @@ def _verdict_box(check: Check, label: str) -> str:
             f'intervals.</p></div>')
 
 
+def _settings_table(check: Check) -> str:
+    heads = ["block", "order", "pickup Hz", "time delay s", "RoCoF Hz/s", "band min %",
+             "target %", "band max %"]
+    rows = []
+    for b in check.blocks:
+        rows.append(f"<tr><td>{esc(b.name)}</td>{_td(b.order, 'd')}{_td(b.pickup_hz, '.3f')}"
+                    f"{_td(b.delay_s, '.3f')}{_td(b.rocof_hz_per_s, '.2f')}"
+                    f"{_td(b.min_pct, 'g')}{_td(b.target_pct, 'g')}{_td(b.max_pct, 'g')}</tr>")
+    return _table(heads, rows)
+
+
 def _block_table(check: Check, before: Check | None) -> str:
-    heads = ["block", "pickup Hz", "time delay s", "RoCoF Hz/s", "band %", "target %",
-             "lowest %", "P5 %", "mean %", "highest %", "intervals below min",
-             "intervals above max", "shortfall MWh", "verdict"]
+    heads = ["block", "band %", "lowest %", "P5 %", "mean %", "highest %",
+             "intervals below min", "intervals above max", "shortfall MWh", "verdict"]
     if before is not None:
         heads += ["current: lowest %", "current: intervals below min", "current: verdict"]
     rows = []
     for k, s in enumerate(check.stats):
-        b = check.blocks[k]
         lo, hi = s.min_pct, s.max_pct
-        cells = [f"<td>{esc(s.block)}</td>", _td(s.pickup_hz, ".3f"), _td(s.delay_s, ".3f"),
-                 _td(b.rocof_hz_per_s, ".2f"),
-                 f'<td class="n">{_n(lo, "g")}-{_n(hi, "g")}</td>', _td(s.target_pct, "g")]
+        cells = [f"<td>{esc(s.block)}</td>", f'<td class="n">{_n(lo, "g")}-{_n(hi, "g")}</td>']
         for v in (s.min_share_pct, s.p5_share_pct, s.mean_share_pct, s.max_share_pct):
             cells.append(_td(v, ".2f", _band_cls(v, lo, hi)))
         cells += [_td(s.intervals_below_min, "d"), _td(s.intervals_above_max, "d"),
@@ -303,6 +312,8 @@ def render_html(check: Check, figs, previous_idx: np.ndarray | None = None,
     parts.append(_plan(plan_info))
     parts.append("<h3>Per block</h3>")
     parts.append(_block_table(check, before))
+    parts.append("<h3>Block settings</h3>")
+    parts.append(_settings_table(check))
     parts.append("<h2>Pictures</h2>")
     parts.append(_figures(figs))
     parts.append("<h2>Windows outside the band</h2>")

@@ -67,5 +67,4 @@ def band_colormap() -> LinearSegmentedColormap:
         (1.0, "#062C4A"),
     ]
     cmap = LinearSegmentedColormap.from_list("ufls_band_okabe_ito", nodes, N=512)
-    cmap.set_bad("#BDBDBD")
-    return cmap
+    return cmap.with_extremes(bad="#BDBDBD")

@@ -174,7 +174,10 @@ def table_sheet(wb, title: str, cols: list[Col], freeze: str = "A2",
 # rows as SpreadsheetML
 # --------------------------------------------------------------------------------------------
 def _xml_escape(s: str) -> str:
-    return s.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+    """Element text: & < > escaped; a carriage return as a character reference, since XML
+    parsers turn a literal one into a line feed (XML 1.0, §2.11)."""
+    s = s.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+    return s.replace("\r", "&#13;") if "\r" in s else s
 
 
 def _cells(col: Col, letter: str, style: str, first: int) -> list[str]:
@@ -211,10 +214,13 @@ def _cells(col: Col, letter: str, style: str, first: int) -> list[str]:
         return out
     out = []
     for r, v in zip(rows, col.values):
-        if v is None or (isinstance(v, float) and math.isnan(v)) or v == "":
+        if v is None or (isinstance(v, float) and math.isnan(v)):
             out.append("")
             continue
         t = _xml_escape(clean_text(v))
+        if not t:
+            out.append("")
+            continue
         out.append(f'<c r="{letter}{r}"{s_attr} t="inlineStr"><is><t xml:space="preserve">'
                    f'{t}</t></is></c>')
     return out

@@ -1,0 +1,162 @@
+"""Large-neighbourhood search with the MILP solver for the planner's levels 2 and 3.
+
+The full level-2 model (mean absolute deviation) has an LP relaxation whose bound is ~0 (a
+fractional plan can sit on every target), so a monolithic solve spends its time at the root
+and stops wherever the clock says - a different plan on every run.  Instead, each step frees
+the units of a few blocks (plus unarmed units that may join them), holds everything else
+fixed as constant shares, and solves that small MILP exactly (node-limited, so the result is
+the same on every run).  A step is accepted only if the *full-year* evaluation improves
+lexicographically while the level-1 cap on the worst violation still holds on every interval.
+"""
+
+from __future__ import annotations
+
+import itertools
+import time
+from dataclasses import replace
+
+import numpy as np
+
+from .heuristic import Band, evaluate, shares, violation_rel
+from .model import build_model, start_vector
+from .solvers import solve
+from .units import Units
+
+SUB_NODE_LIMIT = 25  # per neighbourhood solve: deterministic work limit
+SUB_TIME_LIMIT_S = 20.0  # safety net only; reaching it is reported as an event
+MAX_FREE_UNITS = 36
+SUB_MAD_INTERVALS = 96  # deviation rows per neighbourhood model (a systematic subsample)
+
+
+def _sub_units(units: Units, free: np.ndarray, blocks: np.ndarray) -> Units:
+    nb = units.n_blocks
+    cols = np.concatenate([blocks, [nb]])
+    cur = units.current[free]
+    cur_sub = np.full(free.size, blocks.size, dtype=np.intp)
+    for k, b in enumerate(blocks):
+        cur_sub[cur == b] = k
+    return Units(members=tuple(units.members[i] for i in free), pp=units.pp[free],
+                 allowed=units.allowed[free][:, blocks],
+                 change_cost=units.change_cost[free][:, cols], current=cur_sub,
+                 valid_index=units.valid_index, n_blocks=int(blocks.size),
+                 n_feeders=units.n_feeders)
+
+
+def _better(level: str, new: tuple, old: tuple, z_cap: float, mad_cap: float | None) -> bool:
+    if new[0] > z_cap:
+        return False
+    if level == "mad":
+        return new[1] < old[1] - 1e-9
+    if mad_cap is not None and new[1] > mad_cap + 1e-12:
+        return False
+    return new[2] < old[2] - 0.5 or (new[2] <= old[2] + 0.5 and new[1] < old[1] - 1e-9)
+
+
+def neighbourhood_search(units: Units, band: Band, option: np.ndarray, level: str,
+                         band_set: np.ndarray, mad_set: np.ndarray, *, z_cap: float,
+                         mad_cap_full: float | None, max_changes: int | None, solver: str,
+                         mad_cap_sample: float | None = None,
+                         seed: int, deadline: float, events: list[str],
+                         progress=None, max_passes: int = 3) -> tuple[np.ndarray, dict]:
+    """Improve ``option`` for ``level`` (``"mad"`` or ``"changes"``) by exact solves on
+    neighbourhoods of block pairs.  Returns (option, info)."""
+    nb = units.n_blocks
+    rng = np.random.default_rng(seed + (1 if level == "mad" else 2))
+    cur = option.copy()
+    key = evaluate(units, cur, band)
+    info = {"level": "mean deviation" if level == "mad" else "changes", "method":
+            "neighbourhood search", "steps": 0, "accepted": 0, "status": "converged",
+            "objective": key[1] if level == "mad" else key[2], "bound": None, "gap": None,
+            "seconds": 0.0, "rounds": 0}
+    t0 = time.perf_counter()
+    pairs = [np.array(p) for p in itertools.combinations(range(nb), 2)] if nb > 1 else \
+        [np.array([0])]
+    if mad_set.size > SUB_MAD_INTERVALS:
+        step = int(np.ceil(mad_set.size / SUB_MAD_INTERVALS))
+        mad_set = mad_set[::step]
+    model_t = np.union1d(band_set, mad_set)
+    for _ in range(max_passes):
+        improved_pass = False
+        order = rng.permutation(len(pairs))
+        for pi in order:
+            if time.perf_counter() > deadline:
+                info["status"] = "time_limit"
+                events.append(f"{info['level']}: time budget reached during neighbourhood "
+                              "search; the plan may differ from a run with more time")
+                info["seconds"] = time.perf_counter() - t0
+                info["objective"] = key[1] if level == "mad" else key[2]
+                return cur, info
+            blocks = pairs[pi]
+            inb = np.isin(cur, blocks)
+            cand_un = np.flatnonzero((cur == nb) & units.allowed[:, blocks].any(axis=1))
+            free = np.flatnonzero(inb & units.allowed.any(axis=1))
+            room = MAX_FREE_UNITS - free.size
+            if room > 0 and cand_un.size:
+                take = cand_un if cand_un.size <= room else np.sort(
+                    rng.choice(cand_un, room, replace=False))
+                free = np.union1d(free, take)
+            elif free.size > MAX_FREE_UNITS:
+                free = np.sort(rng.choice(free, MAX_FREE_UNITS, replace=False))
+            if free.size == 0:
+                continue
+            fixed = np.setdiff1d(np.arange(units.n), free)
+            sub = _sub_units(units, free, blocks)
+            s_fixed = np.zeros((blocks.size, units.pp.shape[1]))
+            for k, b in enumerate(blocks):
+                sel = fixed[cur[fixed] == b]
+                if sel.size:
+                    s_fixed[k] = units.pp[sel].sum(axis=0)
+            fixed_changes = float(units.change_cost[fixed, cur[fixed]].sum())
+            sub_band = Band(band.target[blocks], band.lo[blocks], band.hi[blocks])
+            mc = None if max_changes is None else max_changes - fixed_changes
+            mad_cap = None
+            if level == "changes" and mad_cap_sample is not None:
+                # keep the sample MAD of these blocks no worse than the cap allows: the other
+                # blocks' deviation is constant, so the cap moves to these blocks
+                s_all = shares(units, cur, mad_set)
+                dev = np.abs(s_all - band.target[:, None])
+                other = np.setdiff1d(np.arange(nb), blocks)
+                budget = mad_cap_sample * nb * mad_set.size - dev[other].sum()
+                mad_cap = budget / (blocks.size * mad_set.size)
+            sub_cur = sub.current.copy()
+            model = build_model(sub, sub_band.target, sub_band.lo, sub_band.hi, band_set,
+                                mad_set, level, z_cap=z_cap, mad_cap=mad_cap, max_changes=mc,
+                                share_offset=s_fixed, change_offset=fixed_changes)
+            start = start_vector(model, sub, sub_cur, sub_band.target, sub_band.lo,
+                                 sub_band.hi, share_offset=s_fixed)
+            remaining = max(0.5, min(SUB_TIME_LIMIT_S, deadline - time.perf_counter()))
+            out = solve(model.arrays, solver, time_limit_s=remaining, mip_gap=1e-6,
+                        start=start, seed=seed, node_limit=SUB_NODE_LIMIT)
+            info["steps"] += 1
+            if out.message == "time_limit_hit":
+                events.append(f"{info['level']}: a neighbourhood solve hit its "
+                              f"{remaining:.0f} s safety limit")
+            if out.x is None:
+                continue
+            sub_opt = model.option_from_x(out.x, sub.n, sub.n_blocks)
+            new = cur.copy()
+            new[free] = np.where(sub_opt < blocks.size, blocks[np.minimum(sub_opt,
+                                                                          blocks.size - 1)], nb)
+            if max_changes is not None and float(
+                    units.change_cost[np.arange(units.n), new].sum()) > max_changes + 1e-9:
+                continue
+            new_key = evaluate(units, new, band)
+            if new_key[0] > z_cap:
+                # a held-out interval broke the cap: hold it in later models
+                v = violation_rel(shares(units, new), band)
+                worst_t = np.unique(np.argsort(-v, axis=1)[:, :4])
+                band_set = np.union1d(band_set, worst_t)
+                continue
+            if _better(level, new_key, key, z_cap, mad_cap_full):
+                cur, key = new, new_key
+                info["accepted"] += 1
+                improved_pass = True
+                if progress is not None:
+                    progress(level=info["level"], round=info["steps"],
+                             intervals=int(model_t.size), worst=key[0], status="improved")
+        info["rounds"] += 1
+        if not improved_pass:
+            break
+    info["objective"] = key[1] if level == "mad" else key[2]
+    info["seconds"] = time.perf_counter() - t0
+    return cur, info
