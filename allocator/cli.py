@@ -336,7 +336,7 @@ def cmd_demo(args, console) -> int:
             write_check_files(before, tmp / "current")
         verdict_table(console, before, "Current allocation")
         worst_windows(console, before, n=3)
-        args.solver, args.seed = "highs", getattr(args, "seed", 0)
+        args.solver = "highs"
         args.max_changes = None
         with step("plan a new allocation"):
             outcome, chk, info = _plan_into(args, console, study, year, tmp, True)
@@ -495,6 +495,9 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Run the whole job on the invented demo network.")
     d.add_argument("--out", default="outputs/demo", help="output folder (default outputs/demo)")
     d.add_argument("--format", help="comma list among xlsx,html,png (default all)")
+    d.add_argument("--time-limit", type=float, help="planner seconds (default: the demo "
+                                                     "workbook's solver_time_limit_s)")
+    d.add_argument("--seed", type=int, default=0, help="planner seed")
     d.set_defaults(func=cmd_demo)
     return p
 
@@ -509,17 +512,18 @@ def main(argv: list[str] | None = None) -> int:
 
     console = make_console(quiet=args.quiet)
     from rich.console import Console
+    from rich.markup import escape
 
     err = Console(stderr=True, highlight=False, soft_wrap=True)
     t0 = time.perf_counter()
     try:
         rc = args.func(args, console)
     except InputError as exc:
-        err.print(f"[red]error:[/red] {exc.render()}", markup=True, highlight=False)
+        err.print(f"[red]error:[/red] {escape(exc.render())}", markup=True, highlight=False)
         err.print("Nothing was written.")
         return EXIT_INPUT
     except OutputClashError as exc:
-        err.print(f"[red]error:[/red] {exc}. Nothing was written.")
+        err.print(f"[red]error:[/red] {escape(str(exc))}. Nothing was written.")
         return EXIT_INPUT
     except KeyboardInterrupt:
         err.print("interrupted; previous outputs left as they were")
@@ -528,7 +532,7 @@ def main(argv: list[str] | None = None) -> int:
         if args.debug:
             traceback.print_exc()
         msg = str(exc).splitlines()[0] if str(exc) else ""
-        err.print(f"[red]internal error:[/red] {type(exc).__name__}: {msg} "
+        err.print(f"[red]internal error:[/red] {type(exc).__name__}: {escape(msg)} "
                   "(run with --debug for the traceback)")
         return EXIT_INTERNAL
     if not args.quiet and args.command != "validate":

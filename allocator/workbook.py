@@ -60,7 +60,7 @@ def max_workbook_bytes() -> int:
             raise ValueError
     except ValueError:
         mb = DEFAULT_MAX_WORKBOOK_MB
-    return int(mb * 1024 * 1024)
+    return math.ceil(mb * 1024 * 1024)  # ceil: the message shows the limit as set
 
 
 # --------------------------------------------------------------------------------------------
@@ -125,11 +125,13 @@ class _Cells:
             self.col.add(f"expected {what}, found {x}", self.sheet, row.number, name)
             return None
         if minimum is not None and x < minimum:
-            self.col.add(f"expected {what} ≥ {minimum:g}, found {x:g}", self.sheet, row.number,
-                         name)
+            # `what` may already state the bound ("MW ≥ 0"): do not say it twice
+            exp = what if f"≥ {minimum:g}" in what else f"{what} ≥ {minimum:g}"
+            self.col.add(f"expected {exp}, found {x:g}", self.sheet, row.number, name)
             return None
         if maximum is not None and x > maximum:
-            self.col.add(f"expected {what} ≤ {maximum:g}, found {x:g}", self.sheet, row.number,
+            base = what.split(" ≥ ")[0]
+            self.col.add(f"expected {base} ≤ {maximum:g}, found {x:g}", self.sheet, row.number,
                          name)
             return None
         return x
@@ -320,7 +322,7 @@ def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, l
                     f"the band, 0 < P < 50 (e.g. percentile:5), found {p:g}")
         else:
             bad("compliance_rule", "expected 'every_interval', 'percentile:P' (e.g. "
-                f"percentile:95) or 'mean', found '{rule_raw}'")
+                f"percentile:5) or 'mean', found '{rule_raw}'")
     max_changes = num("max_changes", required=False, minimum=0, what="a whole number ≥ 0")
     if max_changes is not None and not float(max_changes).is_integer():
         bad("max_changes", f"expected a whole number, found {max_changes}")
@@ -379,7 +381,7 @@ def _parse_blocks(col: Collector, rows: list[Row]) -> list[Block]:
                 col.add(f"block '{name}' appears twice (also row {names[name]})", sheet,
                         r.number, "block")
             names.setdefault(name, r.number)
-        if order is not None:
+        if order is not None and float(order).is_integer():  # 1.5 is not a duplicate of 1
             if int(order) in orders:
                 col.add(f"order {int(order)} appears twice (also row {orders[int(order)]})",
                         sheet, r.number, "order")
@@ -532,7 +534,7 @@ def _parse_profiles(col: Collector, rows: list[Row], seasons: list[str]
 _ALLOWED_SPLIT = re.compile(r"[,;]")
 
 
-def _parse_feeders(col: Collector, rows: list[Row], block_names: set[str],
+def _parse_feeders(col: Collector, rows: list[Row], block_names: set[str] | None,
                    profile_names: set[str] | None) -> list[Feeder]:
     sheet = "feeders"
     cells = _Cells(col, sheet)
@@ -573,13 +575,14 @@ def _parse_feeders(col: Collector, rows: list[Row], block_names: set[str],
                 allowed = ()
             else:
                 toks = tuple(t.strip() for t in _ALLOWED_SPLIT.split(allowed_raw) if t.strip())
-                unknown = [t for t in toks if t not in block_names]
+                unknown = [t for t in toks if block_names is not None
+                           and t not in block_names]
                 if unknown:
                     col.add(f"allowed_blocks names unknown block(s) {', '.join(unknown)}; "
                             f"blocks are {', '.join(sorted(block_names))}", sheet, r.number,
                             "allowed_blocks")
                 allowed = toks
-        if cur is not None and cur not in block_names:
+        if cur is not None and block_names is not None and cur not in block_names:
             col.add(f"current_block '{cur}' is not a block; blocks are "
                     f"{', '.join(sorted(block_names))}", sheet, r.number, "current_block")
         if cust is not None and not float(cust).is_integer():
@@ -660,8 +663,13 @@ def read_study(path: str | os.PathLike) -> Study:
         settings, warnings = _parse_settings(col, rows)
     h, rows = sheets["blocks"]
     blocks: list[Block] = []
+    declared_blocks: set[str] | None = None  # None: the blocks sheet cannot be read
     if _require_columns(col, "blocks", h, BLOCK_COLUMNS):
         blocks = _parse_blocks(col, rows)
+        # every name on the sheet, also of blocks with a bad cell: a feeder naming one is
+        # not itself wrong
+        declared_blocks = {_text(r.values["block"]) for r in rows
+                           if not _blank(r.values.get("block"))}
     h, rows = sheets["seasons"]
     seasons, month_season = [], np.zeros(12, dtype=np.intp)
     if _require_columns(col, "seasons", h, SEASON_COLUMNS):
@@ -676,7 +684,7 @@ def read_study(path: str | os.PathLike) -> Study:
     if _require_columns(col, "feeders", h, FEEDER_COLUMNS):
         pnames = set(profiles.names) if profiles is not None else (
             None if not profiles_ok else set())
-        feeders = _parse_feeders(col, rows, {b.name for b in blocks}, pnames)
+        feeders = _parse_feeders(col, rows, declared_blocks, pnames)
     warnings += _cross_checks(col, settings, blocks, feeders)
 
     system: dict[str, object] = {}

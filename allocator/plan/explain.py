@@ -62,9 +62,11 @@ def explain_after(study: Study, year: Year, units: Units, band: Band, option: np
         out.append(f"Block {blk.name} is {side} in {n_bad} interval(s); worst {s[b, t]:.1f} % "
                    f"against {lim:g} % at {_when(year, units, t)}.")
     if lower_bound is not None and lower_bound > 1e-9:
-        out.append(f"This is unavoidable with these feeders and rules: no allocation has a "
-                   f"worst violation below {100 * lower_bound:.2f} % of target (solver bound"
-                   f" on a subset of intervals, valid for the whole year).")
+        rules = "these feeders and rules" + (f" and at most {max_changes} changes"
+                                              if max_changes is not None else "")
+        out.append(f"This is unavoidable with {rules}: no allocation has a worst violation "
+                   f"below {100 * lower_bound:.2f} % of target (solver bound on a subset of "
+                   "intervals, valid for the whole year).")
     elif max_changes is None:
         out.append("The solver did not prove that a better plan is impossible within the time "
                    "limit; a longer --time-limit may improve it.")

@@ -20,7 +20,7 @@ import numpy as np
 from .heuristic import Band, evaluate, shares, violation_rel
 from .model import build_model, start_vector
 from .solvers import solve
-from .units import Units
+from .units import Units, substation_excess
 
 SUB_NODE_LIMIT = 25  # per neighbourhood solve: deterministic work limit
 SUB_TIME_LIMIT_S = 20.0  # safety net only; reaching it is reported as an event
@@ -57,7 +57,8 @@ def neighbourhood_search(units: Units, band: Band, option: np.ndarray, level: st
                          mad_cap_full: float | None, max_changes: int | None, solver: str,
                          mad_cap_sample: float | None = None,
                          seed: int, deadline: float, events: list[str],
-                         progress=None, max_passes: int = 3) -> tuple[np.ndarray, dict]:
+                         progress=None, max_passes: int = 3,
+                         sub_cap_pct: float | None = None) -> tuple[np.ndarray, dict]:
     """Improve ``option`` for ``level`` (``"mad"`` or ``"changes"``) by exact solves on
     neighbourhoods of block pairs.  Returns (option, info)."""
     nb = units.n_blocks
@@ -146,6 +147,8 @@ def neighbourhood_search(units: Units, band: Band, option: np.ndarray, level: st
                 v = violation_rel(shares(units, new), band)
                 worst_t = np.unique(np.argsort(-v, axis=1)[:, :4])
                 band_set = np.union1d(band_set, worst_t)
+                continue
+            if sub_cap_pct is not None and substation_excess(units, new, sub_cap_pct):
                 continue
             if _better(level, new_key, key, z_cap, mad_cap_full):
                 cur, key = new, new_key

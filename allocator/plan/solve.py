@@ -27,7 +27,7 @@ from ..year import Year
 from .heuristic import Band, evaluate, heuristic_plan, shares, systematic_sample, violation_rel
 from .model import build_model, start_vector
 from .solvers import solve, solver_version
-from .units import Units, build_units
+from .units import Units, build_units, substation_excess
 
 Z_TOL = 1e-7  # absolute tolerance on the relative violation z when capping later levels
 MAD_REL_TOL = 0.10  # default of settings.deviation_tolerance_pct / 100
@@ -90,13 +90,16 @@ class _Progress:
 
 
 def _level(units, band, level, band_set, mad_set, incumbent, *, solver, deadline, gap, seed,
-           z_cap=None, mad_cap=None, max_changes=None, progress, events, level_name):
+           z_cap=None, mad_cap=None, max_changes=None, progress, events, level_name,
+           sub_cap_pct=None, sub_rows=None):
     """Solve one level with interval rounds.  Returns (option, info dict, band_set)."""
     nb = units.n_blocks
     info = {"level": level_name, "rounds": 0, "status": None, "objective": None,
             "bound": None, "gap": None, "seconds": 0.0}
     option = incumbent.copy()
     t0 = time.perf_counter()
+    sub_rows = list(sub_rows or [])
+    best_opt, best_key = incumbent.copy(), _rank(units, band, incumbent, sub_cap_pct, level)
     for rnd in range(MAX_ROUNDS):
         remaining = deadline - time.perf_counter()
         if remaining <= 0.5:
@@ -104,7 +107,8 @@ def _level(units, band, level, band_set, mad_set, incumbent, *, solver, deadline
             info["status"] = info["status"] or "time_limit"
             break
         model = build_model(units, band.target, band.lo, band.hi, band_set, mad_set, level,
-                            z_cap=z_cap, mad_cap=mad_cap, max_changes=max_changes)
+                            z_cap=z_cap, mad_cap=mad_cap, max_changes=max_changes,
+                            substation_rows=sub_rows)
         start = start_vector(model, units, option, band.target, band.lo, band.hi)
         out = solve(model.arrays, solver, time_limit_s=remaining, mip_gap=gap, start=start,
                     seed=seed)
@@ -118,13 +122,18 @@ def _level(units, band, level, band_set, mad_set, incumbent, *, solver, deadline
         cand = model.option_from_x(out.x, units.n, nb)
         info.update(status=out.status, objective=out.objective, bound=out.bound, gap=out.gap)
         option = cand
+        ck = _rank(units, band, cand, sub_cap_pct, level)
+        if best_key is None or ck < best_key:
+            best_opt, best_key = cand.copy(), ck
         z_model = float(out.x[model.i_z]) if level == "worst" else (z_cap or 0.0)
         z_ref = z_model if level == "worst" else (z_cap if z_cap is not None else np.inf)
         new = _add_worst(units, option, band, band_set, z_ref)
         worst_full = evaluate(units, option, band)[0]
         progress(level=level_name, round=rnd + 1, intervals=int(band_set.size),
                  worst=worst_full, status=out.status)
-        if new.size == 0:
+        more_rows = substation_excess(units, option, sub_cap_pct)
+        sub_rows += more_rows
+        if new.size == 0 and not more_rows:
             break
         band_set = np.union1d(band_set, new)
         if level != "worst":
@@ -132,7 +141,22 @@ def _level(units, band, level, band_set, mad_set, incumbent, *, solver, deadline
         if out.status != "optimal" and level == "worst":
             # not proven on this set: keep going, the bound may still improve
             pass
+    if _rank(units, band, option, sub_cap_pct, level) > best_key:
+        events.append(f"{level_name}: the last round's plan was worse than an earlier one "
+                      "(time limit); the best plan found is kept")
+        option = best_opt
     return option, info, band_set, mad_set
+
+
+def _rank(units, band, option, sub_cap_pct, level) -> tuple:
+    """Order plans: hard substation rule first, then the level's full-year objective."""
+    k = evaluate(units, option, band)
+    n_sub = len(substation_excess(units, option, sub_cap_pct))
+    if level == "worst":
+        return (n_sub, round(k[0], 9), k[1], k[2])
+    if level == "mad":
+        return (n_sub, round(k[0], 9), k[1], k[2])
+    return (n_sub, round(k[0], 9), k[2], k[1])
 
 
 def plan_allocation(study: Study, year: Year, solver: str = "highs",
@@ -186,12 +210,15 @@ def plan_allocation(study: Study, year: Year, solver: str = "highs",
         n_mad_sample = int(np.clip(4.0e5 / (nb * n_units), 48, 365))
     mad_set = systematic_sample(units.pp.shape[1], n_mad_sample)
     lvl_deadline = t_start + 0.45 * tl
+    sub_cap = s.max_substation_share_pct
     opt1, info1, band_set, _ = _level(units, band, "worst", band_set, np.array([], np.intp),
                                       h_opt, solver=solver, deadline=lvl_deadline, gap=gap,
                                       seed=seed, max_changes=max_changes, progress=prog,
-                                      events=events, level_name="worst violation")
+                                      events=events, level_name="worst violation",
+                                      sub_cap_pct=sub_cap)
     k1 = evaluate(units, opt1, band)
-    if k1[0] > h_key[0] + Z_TOL:  # solver did worse than the start (time limit): keep start
+    if k1[0] > h_key[0] + Z_TOL and not substation_excess(units, h_opt, sub_cap):
+        # the solver did worse than the start (time limit): keep the start
         events.append("level 1 ended above the heuristic start; the start is kept")
         opt1, k1 = h_opt, h_key
     z_star = k1[0]
@@ -207,7 +234,7 @@ def plan_allocation(study: Study, year: Year, solver: str = "highs",
     opt2, info2 = neighbourhood_search(
         units, band, opt1, "mad", band_set, mad_set, z_cap=z_cap, mad_cap_full=None,
         max_changes=max_changes, solver=solver, seed=seed, deadline=t_start + 0.75 * tl,
-        events=events, progress=prog)
+        events=events, progress=prog, sub_cap_pct=sub_cap)
     k2 = evaluate(units, opt2, band)
     # ---- level 3: changed feeders, MAD held within MAD_REL_TOL ---------------------------
     tol = s.deviation_tolerance_pct / 100.0
@@ -218,26 +245,41 @@ def plan_allocation(study: Study, year: Year, solver: str = "highs",
 
     opt2r = revert_pass(units, band, opt2, z_cap, mad_cap_full,
                         np.random.default_rng(seed + 3))
+    if substation_excess(units, opt2r, sub_cap):
+        opt2r = opt2
     opt3, info3 = neighbourhood_search(
         units, band, opt2r, "changes", band_set, mad_set, z_cap=z_cap,
         mad_cap_full=mad_cap_full, mad_cap_sample=mad_cap_sample, max_changes=max_changes,
-        solver=solver, seed=seed, deadline=t_start + tl, events=events, progress=prog)
+        solver=solver, seed=seed, deadline=t_start + tl, events=events, progress=prog,
+        sub_cap_pct=sub_cap)
     final = opt3
     kf = evaluate(units, final, band)
 
+    sub_left = substation_excess(units, final, sub_cap)
+    if sub_left:
+        events.append(f"max_substation_share_pct = {sub_cap:g}: {len(sub_left)} block/"
+                      "substation pair(s) still above the cap at the block's lowest-share "
+                      "interval (the solver ran out of rounds or time)")
     in_band = kf[0] <= 1e-9
     statuses = [info1["status"], info2["status"], info3["status"]]
     all_opt = info1["status"] == "optimal" and all(
         i["status"] == "converged" for i in (info2, info3))
     err = any(st in ("error",) for st in statuses)
-    if in_band:
+    if in_band and not sub_left:
         status = "optimal" if all_opt else "feasible"
     else:
         status = "infeasible"
+    if sub_left:
+        all_opt = False
     proven = bool(proven1 and (in_band or (lb is not None and lb > 1e-9)))
     from .explain import explain_after
 
     explanation += explain_after(study, year, units, band, final, kf, lb, max_changes)
+    if sub_left:
+        names = sorted({study.blocks[b].name for b, *_ in sub_left})
+        explanation.append(f"The rule max_substation_share_pct = {sub_cap:g} % is not met in "
+                           f"block(s) {', '.join(names)} at their lowest-share interval; more "
+                           "time (--time-limit) or a looser cap may be needed.")
     out = PlanOutcome(
         option=final, block_idx=units.to_feeders(final), status=status, proven=proven,
         levels=[info1, info2, info3], rounds=sum(i["rounds"] for i in (info1, info2, info3)),
@@ -261,7 +303,7 @@ def plan_allocation(study: Study, year: Year, solver: str = "highs",
                          if err else []),
     )
     # what would more changes give?
-    if max_changes is not None and not in_band:
+    if max_changes is not None and not in_band and sub_cap is None:
         out.alternatives = _without_cap(study, year, units, band, solver, seed, gap, tl)
         if out.alternatives.get("changes") is not None:
             out.explanation.append(

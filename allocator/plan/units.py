@@ -28,6 +28,7 @@ class Units:
     valid_index: np.ndarray  # [valid interval] → index into the year's intervals
     n_blocks: int
     n_feeders: int
+    substation: np.ndarray | None = None  # [unit] substation code (first member's)
 
     @property
     def n(self) -> int:
@@ -91,4 +92,37 @@ def build_units(study: Study, year: Year) -> Units:
             change_cost[u, k] = float(np.sum(cur_opt_f[m] != k))
         vals = np.unique(cur_opt_f[m])
         current[u] = vals[0] if vals.size == 1 else nb
-    return Units(tuple(members), pp, allowed, change_cost, current, valid_index, nb, nf)
+    subs = sorted({f.substation for f in study.feeders})
+    code = {s: i for i, s in enumerate(subs)}
+    substation = np.array([code[study.feeders[int(m[0])].substation] for m in members],
+                          dtype=np.intp)
+    return Units(tuple(members), pp, allowed, change_cost, current, valid_index, nb, nf,
+                 substation)
+
+
+def substation_excess(units: Units, option: np.ndarray, cap_pct: float | None
+                      ) -> list[tuple[int, int, np.ndarray, float]]:
+    """Rows for the ``max_substation_share_pct`` rule that ``option`` breaks.
+
+    The rule is measured at each block's interval of lowest share (where a block is
+    weakest, concentration on one substation matters most).  Returns (block, interval
+    position, unit mask of the substation, cap fraction) per offending block/substation."""
+    if cap_pct is None or units.substation is None:
+        return []
+    cap = cap_pct / 100.0
+    out = []
+    nb = units.n_blocks
+    for b in range(nb):
+        sel = np.flatnonzero(option == b)
+        if sel.size == 0:
+            continue
+        s = units.pp[sel].sum(axis=0)
+        t = int(np.argmin(s))
+        total = s[t]
+        if total <= 0:
+            continue
+        by_sub = np.bincount(units.substation[sel], weights=units.pp[sel, t],
+                             minlength=int(units.substation.max()) + 1)
+        for k in np.flatnonzero(by_sub > cap * total + 1e-9):
+            out.append((b, t, units.substation == k, cap))
+    return out

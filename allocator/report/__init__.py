@@ -71,6 +71,7 @@ def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
     written: dict[str, Path] = {}
     if not formats:
         return written
+    out.mkdir(parents=True, exist_ok=True)
     fc = content.feeder_contrib(check)
     if "xlsx" in formats:
         from .excel import write_workbook

@@ -289,33 +289,63 @@ def assumptions(check: Check) -> list[tuple[str, str]]:
     ]
 
 
-def plan_lines(plan_info: dict | None) -> tuple[str, list[tuple[str, str]], list[str]]:
-    """(status, other (key, value) pairs, explanation lines) of a plan.json dict."""
+#: plan.json keys shown first (the rest goes under "solver details")
+PLAN_KEY_FIELDS = ("changed_feeders", "every_interval_in_band", "worst_violation_pp",
+                   "all_blocks_in_band_pct_of_intervals", "mean_abs_deviation_pp",
+                   "proven_optimal_worst_violation", "solve_seconds", "time_limit_s",
+                   "max_changes", "solver", "solver_version")
+
+
+@dataclass(frozen=True)
+class PlanText:
+    status: str
+    key: list[tuple[str, str]]
+    details: list[tuple[str, str]]
+    explanation: list[str]
+    notes: list[str]
+
+
+def _fmt(v: object) -> str:
+    if isinstance(v, bool) or v is None:
+        return {True: "yes", False: "no", None: "-"}[v]
+    if isinstance(v, float):
+        return f"{v:.6g}"
+    if isinstance(v, dict):
+        return ", ".join(f"{k}={_fmt(x)}" for k, x in list(v.items())[:20])
+    if isinstance(v, (list, tuple)):
+        return "; ".join(_fmt(x) for x in v[:20]) + (" ..." if len(v) > 20 else "")
+    return str(v)
+
+
+def _lines(v: object) -> list[str]:
+    if not v:
+        return []
+    if isinstance(v, str):
+        return v.splitlines()
+    if isinstance(v, (list, tuple)):
+        return [_fmt(x) for x in v]
+    return [_fmt(v)]
+
+
+def plan_text(plan_info: dict | None) -> PlanText:
+    """What a plan.json dict says, split for display: status, the key figures, the solver
+    details, the explanation lines and the solver's notes (``events``)."""
     if not plan_info:
-        return "", [], []
-    status = str(plan_info.get("status", ""))
-    expl = plan_info.get("explanation") or []
-    if isinstance(expl, str):
-        expl = expl.splitlines()
-    pairs: list[tuple[str, str]] = []
-
-    def fmt(v: object) -> str:
-        if isinstance(v, float):
-            return f"{v:.6g}"
-        if isinstance(v, (list, tuple)):
-            return ", ".join(fmt(x) for x in v[:20]) + (" ..." if len(v) > 20 else "")
-        return str(v)
-
+        return PlanText("", [], [], [], [])
+    key = [(k, _fmt(plan_info[k])) for k in PLAN_KEY_FIELDS if k in plan_info]
+    skip = set(PLAN_KEY_FIELDS) | {"status", "explanation", "events"}
+    details: list[tuple[str, str]] = []
     for k, v in plan_info.items():
-        if k in ("status", "explanation"):
+        if k in skip:
             continue
         if isinstance(v, dict):
-            for k2, v2 in v.items():
-                if not isinstance(v2, (dict, list, tuple)) or len(v2) <= 20:
-                    pairs.append((f"{k}.{k2}", fmt(v2)))
+            details += [(f"{k}.{k2}", _fmt(v2)) for k2, v2 in list(v.items())[:30]]
+        elif isinstance(v, (list, tuple)) and v and all(isinstance(x, dict) for x in v):
+            details += [(f"{k}[{i + 1}]", _fmt(x)) for i, x in enumerate(v[:20])]
         else:
-            pairs.append((str(k), fmt(v)))
-    return status, pairs[:60], [str(x) for x in expl]
+            details.append((str(k), _fmt(v)))
+    return PlanText(str(plan_info.get("status", "")), key, details[:80],
+                    _lines(plan_info.get("explanation")), _lines(plan_info.get("events")))
 
 
 def all_warnings(check: Check) -> list[str]:

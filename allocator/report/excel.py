@@ -294,20 +294,21 @@ def _summary_sheet(ws, check: Check, previous_idx, plan_info, before: Check | No
     pair("intervals with demand <= 0 (left out)", int((~check.valid).sum()), "0")
     pair("data source", check.year.source)
     pair("priority sites", content.priority_summary(check).words(s.priority_policy))
-    status, pairs, expl = content.plan_lines(plan_info)
     if plan_info:
+        pt = content.plan_text(plan_info)
         r += 1
         put_text(ws, r, 1, "Plan").font = H2_FONT
         r += 1
-        pair("plan status", status or "(not given)", bold=True)
-        for k, v in pairs:
-            pair(k, v)
-        if expl:
-            put_text(ws, r, 1, "explanation").font = BOLD
-            r += 1
-            for line in expl:
-                put_text(ws, r, 1, line)
+        pair("solver status", pt.status or "(not given)", bold=True)
+        for title, lines in (("explanation", pt.explanation), ("solver notes", pt.notes)):
+            if lines:
+                put_text(ws, r, 1, title).font = BOLD
                 r += 1
+                for line in lines:
+                    put_text(ws, r, 1, line)
+                    r += 1
+        for k, v in pt.key + pt.details:
+            pair(k, v)
     if previous_idx is not None:
         n_changed = int(np.sum(np.asarray(previous_idx) != check.block_idx))
         pair("feeders whose block changes", n_changed, "0")

@@ -248,12 +248,20 @@ def _kv(pairs: list[tuple[str, str]]) -> str:
 def _plan(plan_info: dict | None) -> str:
     if not plan_info:
         return ""
-    status, pairs, expl = content.plan_lines(plan_info)
-    out = [f"<h3>Plan</h3><p>Status: <strong>{esc(status or '(not given)')}</strong></p>"]
-    if expl:
-        out.append('<pre class="expl">' + esc("\n".join(expl)) + "</pre>")
-    if pairs:
-        out.append(_kv(pairs))
+    pt = content.plan_text(plan_info)
+    out = [f"<h3>Plan</h3><p>Solver status: <strong>{esc(pt.status or '(not given)')}"
+           "</strong></p>"]
+    if pt.explanation:
+        out.append("<p>Why the plan looks as it does:</p><ul>"
+                   + "".join(f"<li>{esc(x)}</li>" for x in pt.explanation) + "</ul>")
+    if pt.key:
+        out.append(_kv(pt.key))
+    if pt.notes:
+        out.append("<p>Solver notes:</p><ul>"
+                   + "".join(f"<li>{esc(x)}</li>" for x in pt.notes) + "</ul>")
+    if pt.details:
+        out.append("<details><summary>Solver details (plan.json)</summary>"
+                   + _kv(pt.details) + "</details>")
     return "".join(out)
 
 

@@ -69,7 +69,9 @@ class Expect:
         if self.sheet:
             parts.append(f"sheet '{self.sheet}'")
         if self.row is not None:
-            parts.append(f"row {self.row}")
+            # a CSV's rows are its lines (header = line 1)
+            text = self.sheet is None and self.file.endswith((".csv", ".csv.gz", ".txt"))
+            parts.append(f"{'line' if text else 'row'} {self.row}")
         if self.column:
             parts.append(f"column '{self.column}'")
         return ", ".join(parts)
@@ -456,9 +458,15 @@ _block_case("workbook_blocks_duplicate_order", "both blocks have order 1",
                                                               "row 2)"))
 _block_case("workbook_blocks_order_fraction", "order 1.5", {1: {"order": 1.5}},
             Expect(W, "blocks", 3, "order", "expected a whole number, found 1.5"))
-_block_case("workbook_blocks_reserved_name_none", "a block named 'none'",
+_block_case("workbook_blocks_reserved_name_none", "S2 renamed 'none': the name is reserved, "
+            "and the feeders that name S2 now name no block",
             {1: {"block": "none"}},
-            Expect(W, "blocks", 3, "block", "'none' is reserved and cannot name a block"))
+            Expect(W, "blocks", 3, "block", "'none' is reserved and cannot name a block"),
+            *[Expect(W, "feeders", fr(i), c, f"{c_text} S2") for i, c, c_text in (
+                (2, "current_block", "current_block 'S2' is not a block; blocks are S1, none"),
+                (3, "current_block", "current_block 'S2' is not a block; blocks are S1, none"),
+                (6, "allowed_blocks", "allowed_blocks names unknown block(s)"),
+                (6, "current_block", "current_block 'S2' is not a block; blocks are S1, none"))])
 _block_case("workbook_blocks_max_pct_over_100", "max_pct 120", {0: {"max_pct": 120}},
             Expect(W, "blocks", 2, "max_pct", "expected a percentage 0..100 ≤ 100, found 120"))
 _block_case("workbook_blocks_pickup_in_khz", "pickup_hz 0.049", {0: {"pickup_hz": 0.049}},
@@ -988,7 +996,7 @@ def _(d):
 
 
 @case("assignment_not_utf8", "assignment", "Latin-1 bytes",
-      Expect(A, None, None, None, "not UTF-8 text (byte 26); expected a CSV file "
+      Expect(A, None, None, None, "not UTF-8 text (byte 24); expected a CSV file "
              "feeder_id,block"))
 def _(d):
     return write_a(d, raw="feeder_id,block\nF00,S1\nF\xe4,S2\n".encode("latin-1"))
