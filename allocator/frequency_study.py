@@ -104,8 +104,10 @@ def pick_intervals(check: Check, user_local: list[str] | None = None
             problems.append(Problem("--at", f"'{text}' is not a local time such as "
                                     "'2025-04-20 13:00' in the study time zone"))
             continue
-        pos = y.timestamps_utc.searchsorted(ts.tz_convert("UTC"), side="right") - 1
-        if pos < 0 or pos >= y.n_intervals or not check.valid[pos]:
+        tu = ts.tz_convert("UTC")
+        pos = y.timestamps_utc.searchsorted(tu, side="right") - 1
+        end = y.timestamps_utc[-1] + pd.Timedelta(minutes=y.interval_minutes)
+        if pos < 0 or tu >= end or not check.valid[pos]:
             problems.append(Problem("--at", f"'{text}' is outside the study year or at an "
                                     "interval with demand ≤ 0"))
             continue

@@ -59,6 +59,8 @@ dl.kv { display: grid; grid-template-columns: max-content 1fr; gap: 3px 14px; ma
 dl.kv dt { font-weight: 600; }
 dl.kv dd { margin: 0; }
 ul.cautions li { margin-bottom: 5px; }
+details { margin: 6px 0 10px; }
+details summary { cursor: pointer; color: var(--muted); }
 .small { font-size: .9em; color: var(--muted); }
 pre.expl { white-space: pre-wrap; background: #f6f7f8; border: 1px solid var(--line);
            padding: 8px 10px; font-size: .9em; }

@@ -462,10 +462,10 @@ _block_case("workbook_blocks_reserved_name_none", "S2 renamed 'none': the name i
             "and the feeders that name S2 now name no block",
             {1: {"block": "none"}},
             Expect(W, "blocks", 3, "block", "'none' is reserved and cannot name a block"),
-            *[Expect(W, "feeders", fr(i), c, f"{c_text} S2") for i, c, c_text in (
+            *[Expect(W, "feeders", fr(i), c, text) for i, c, text in (
                 (2, "current_block", "current_block 'S2' is not a block; blocks are S1, none"),
                 (3, "current_block", "current_block 'S2' is not a block; blocks are S1, none"),
-                (6, "allowed_blocks", "allowed_blocks names unknown block(s)"),
+                (6, "allowed_blocks", "allowed_blocks names unknown block(s) S2"),
                 (6, "current_block", "current_block 'S2' is not a block; blocks are S1, none"))])
 _block_case("workbook_blocks_max_pct_over_100", "max_pct 120", {0: {"max_pct": 120}},
             Expect(W, "blocks", 2, "max_pct", "expected a percentage 0..100 ≤ 100, found 120"))
