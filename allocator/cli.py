@@ -238,11 +238,8 @@ def _frequency_into(study, chk, out_tmp: Path, at, quiet, console):
 
 
 def _write_frequency_figures(fs, folder: Path) -> None:
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
+    """PNG files of the frequency figures (matplotlib Figure objects on the Agg canvas; no
+    pyplot, so no display backend is involved)."""
     from .frequency_study import frequency_figures
     from .safeio import safe_filename
 
@@ -250,7 +247,18 @@ def _write_frequency_figures(fs, folder: Path) -> None:
     for name, fig in frequency_figures(fs).items():
         fig.savefig(folder / f"{safe_filename(name)}.png", dpi=150,
                     metadata={"Software": None})
-        plt.close(fig)
+
+
+def _critical_trace_png(fs) -> bytes:
+    import io
+
+    from .frequency_study import frequency_figures
+
+    figs = frequency_figures(fs)
+    buf = io.BytesIO()
+    figs["frequency_traces_critical"].savefig(buf, format="png", dpi=100,
+                                               metadata={"Software": None})
+    return buf.getvalue()
 
 
 def _print_frequency(console, summary: dict) -> None:
@@ -354,8 +362,10 @@ def cmd_demo(args, console) -> int:
         with step("reports"):
             from .report import write_reports
 
+            freq = {"after": fsum_after, "before": fsum_before,
+                    "figure_png": _critical_trace_png(fs_after) if "html" in fmts else None}
             write_reports(chk, tmp, previous_idx=study.current_assignment, plan_info=info,
-                          before=before, formats=fmts)
+                          before=before, formats=fmts, frequency=freq)
             write_reports(before, tmp / "current", previous_idx=None, formats=fmts)
     _demo_verdicts(console, before, chk, fsum_before, fsum_after)
     for name in ("report.html", "report.xlsx"):
@@ -416,7 +426,7 @@ def _demo_verdicts(console, before, after, fb, fa) -> None:
     la = {r["interval"]: r["largest_covered_pct"] for r in fa["intervals"]}
     crit_b = min((k for k in lb if lb[k] is not None), key=lambda k: lb[k], default=None)
     if crit_b is not None:
-        console.print(f"Largest loss kept above {fb['floor_hz']:g} Hz at the worst interval: "
+        console.print(f"Largest loss kept within {fb['floor_hz']:g}–{fb['ceiling_hz']:g} Hz at the worst interval: "
                       f"{lb[crit_b]:g} % of demand before ({crit_b}), "
                       f"{min(v for v in la.values() if v is not None):g} % after; typical "
                       f"interval {lb.get('typical')} % before, {la.get('typical')} % after "

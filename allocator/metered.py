@@ -213,6 +213,15 @@ class _Times:
     std_ns: np.ndarray  # int64 UTC if read as standard time (form 2)
 
 
+def _in_ns_range(d) -> np.ndarray:
+    """True where a parsed time fits int64 nanoseconds with a margin (years 1678..2261):
+    pandas parses wider dates at a coarser unit, which cannot be converted."""
+    lo, hi = pd.Timestamp("1678-01-01"), pd.Timestamp("2261-12-31")
+    if getattr(d.dtype, "tz", None) is not None:
+        lo, hi = lo.tz_localize("UTC"), hi.tz_localize("UTC")
+    return np.asarray(d.notna() & (d >= lo) & (d <= hi), dtype=bool)
+
+
 def _parse_times(s: pd.Series, tz: str) -> _Times:
     n = len(s)
     form = np.zeros(n, dtype=np.int8)
@@ -220,12 +229,12 @@ def _parse_times(s: pd.Series, tz: str) -> _Times:
     naive = np.full(n, _NAT, dtype=np.int64)
     if isinstance(s.dtype, pd.DatetimeTZDtype):
         text = np.asarray(s.astype(str), dtype=object)
-        ok = s.notna().to_numpy()
+        ok = _in_ns_range(s)
         form[ok] = 1
         utc[ok] = _ns(pd.DatetimeIndex(s[ok]))
     elif pd.api.types.is_datetime64_dtype(s.dtype):
         text = np.asarray(s.astype(str), dtype=object)
-        ok = s.notna().to_numpy()
+        ok = _in_ns_range(s)
         form[ok] = 2
         naive[ok] = pd.DatetimeIndex(s[ok]).as_unit("ns").asi8
     else:
@@ -240,13 +249,13 @@ def _parse_times(s: pd.Series, tz: str) -> _Times:
         u_naive = np.full(len(u), _NAT, dtype=np.int64)
         if has_off.any():
             d = pd.to_datetime(u[has_off], format="ISO8601", utc=True, errors="coerce")
-            good = d.notna().to_numpy()
+            good = _in_ns_range(d)
             sel = np.flatnonzero(has_off)[good]
             u_utc[sel] = _ns(pd.DatetimeIndex(d[good]))
             u_form[sel] = 1
         if (~has_off).any():
             d = pd.to_datetime(u[~has_off], format="ISO8601", errors="coerce")
-            good = d.notna().to_numpy()
+            good = _in_ns_range(d)
             sel = np.flatnonzero(~has_off)[good]
             u_naive[sel] = pd.DatetimeIndex(d[good]).as_unit("ns").asi8
             u_form[sel] = 2
@@ -370,7 +379,8 @@ def read_metered(path: str | os.PathLike, study: Study,
         bad = tm.form == 0
         _list_rows(col, np.flatnonzero(bad), line, "timestamp", "an unreadable timestamp",
                    lambda i: (f"timestamp '{txt[i]}' is not a date and time in ISO 8601 form "
-                              f"({_EXAMPLE})") if txt[i] else "timestamp is blank")
+                              f"in the years 1678..2261 ({_EXAMPLE})") if txt[i]
+                   else "timestamp is blank")
         parsed = np.flatnonzero(~bad)
         if len(parsed) and (tm.form == 1).any() and (tm.form == 2).any():
             first = parsed[0]

@@ -389,6 +389,34 @@ def test_table_text_round_trips(texts):
     assert types <= {"s", "n"}
 
 
+def test_table_fallback_matches_fast_path(tmp_path):
+    """The cell-by-cell openpyxl path (used only if openpyxl's output changes shape) reads
+    back the same as the fast one."""
+    import pandas as pd
+
+    def build(fast: bool) -> Path:
+        wb = openpyxl.Workbook()
+        cols = [Col("t", [FORMULA_ID, None, "a&b"], "text"),
+                Col("x", [1.5, np.nan, 1 / 3], "num", "0.00"),
+                Col("n", [1, 2, 3], "int", "0"), Col("b", [True, False, True], "bool"),
+                Col("d", pd.DatetimeIndex(["2025-01-01 00:00", "2025-03-30 01:00",
+                                           "2025-12-31 23:15"]), "date")]
+        t = table_sheet(wb, "t", cols)
+        t.fast = fast
+        path = tmp_path / f"{fast}.xlsx"
+        save(wb, path, [t])
+        assert t.fallback_used is (not fast)
+        return path
+
+    def cells(path: Path):
+        ws = openpyxl.load_workbook(path)["t"]
+        return [[(c.value, c.data_type, c.number_format if c.value is not None else None)
+                 for c in row]
+                for row in ws.iter_rows()]
+
+    assert cells(build(True)) == cells(build(False))
+
+
 # ============================================================================================
 # figures
 # ============================================================================================

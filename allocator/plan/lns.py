@@ -129,7 +129,7 @@ def neighbourhood_search(units: Units, band: Band, option: np.ndarray, level: st
             out = solve(model.arrays, solver, time_limit_s=remaining, mip_gap=1e-6,
                         start=start, seed=seed, node_limit=SUB_NODE_LIMIT)
             info["steps"] += 1
-            if out.message == "time_limit_hit":
+            if out.message == "time_limit_hit" and remaining >= SUB_TIME_LIMIT_S:
                 events.append(f"{info['level']}: a neighbourhood solve hit its "
                               f"{remaining:.0f} s safety limit")
             if out.x is None:

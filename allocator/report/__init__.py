@@ -50,13 +50,16 @@ def parse_formats(text: str | None) -> set[str]:
 
 def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
                   plan_info: dict | None = None, before=None,
-                  formats: set[str] | frozenset[str] = DEFAULT_FORMATS) -> dict[str, Path]:
+                  formats: set[str] | frozenset[str] = DEFAULT_FORMATS,
+                  frequency: dict | None = None) -> dict[str, Path]:
     """Write the report files of ``check`` into the existing folder ``out``.
 
     ``previous_idx[feeder]``: the block index each feeder had before (the workbook's current
     allocation) when ``check`` is of a new plan or assignment, None when ``check`` is of the
     current allocation.  ``plan_info``: the planner's plan.json dict, if reporting a plan.
     ``before``: the check of the current allocation, for before/after comparisons.
+    ``frequency``: ``{"after": frequency_summary, "before": ... or None, "figure_png": bytes}``
+    adds the frequency indication section to the HTML report.
     Returns ``{"xlsx": path, "html": path, "png:<name>": path, ...}`` for what was written.
     """
     from . import content
@@ -92,5 +95,5 @@ def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
 
         written["html"] = write_html(check, out / "report.html", figs or [],
                                      previous_idx=previous_idx, plan_info=plan_info,
-                                     before=before)
+                                     before=before, frequency=frequency)
     return written

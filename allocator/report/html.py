@@ -280,8 +280,50 @@ def _figures(figs) -> str:
     return "".join(out)
 
 
+def _frequency(freq: dict | None) -> str:
+    """Frequency indication section: largest loss kept within limits per examined interval,
+    before and after when both are given (see allocator.frequency_study)."""
+    if not freq:
+        return ""
+    after, bef = freq.get("after"), freq.get("before")
+    bmap = {r["interval"]: r for r in (bef or {}).get("intervals", [])}
+    heads = ["interval", "local time", "demand MW", "armed %", "largest loss %"]
+    if bef:
+        heads = heads[:3] + ["armed % before", "armed % after", "largest loss % before",
+                             "largest loss % after"]
+    rows = []
+    for r in after["intervals"]:
+        lc = r["largest_covered_pct"]
+        cells = [f"<td>{esc(r['interval'])}</td>", f"<td>{esc(r['local_time'])}</td>",
+                 _td(r["demand_mw"], ".0f")]
+        if bef:
+            b = bmap.get(r["interval"])
+            cells += [_td(b["total_armed_pct"] if b else None, ".1f"),
+                      _td(r["total_armed_pct"], ".1f"),
+                      _td(b["largest_covered_pct"] if b else None, ".0f"), _td(lc, ".0f")]
+        else:
+            cells += [_td(r["total_armed_pct"], ".1f"), _td(lc, ".0f")]
+        rows.append("<tr>" + "".join(cells) + "</tr>")
+    out = [f"<p>Largest generation loss (% of demand at that interval) after which frequency "
+           f"stays within {after['floor_hz']:g}–{after['ceiling_hz']:g} Hz, with each block "
+           "shedding the share the check found at that interval. "
+           + ("Intervals are those flagged for the planned allocation; 'before' is the "
+              "current allocation at its own flagged intervals where the labels match. "
+              if bef else "") + "</p>", _table(heads, rows)]
+    png = freq.get("figure_png")
+    if png:
+        b64 = base64.b64encode(png).decode("ascii")
+        out.append(f'<figure><img alt="frequency traces" src="data:image/png;base64,{b64}" '
+                   'style="max-width:100%"><figcaption>Frequency after losses of several '
+                   "sizes at the most critical interval.</figcaption></figure>")
+    out.append("<ul class=\"cautions\">" + "".join(f"<li>{esc(c)}</li>"
+                                                   for c in after.get("cautions", [])) + "</ul>")
+    return "".join(out)
+
+
 def render_html(check: Check, figs, previous_idx: np.ndarray | None = None,
-                plan_info: dict | None = None, before: Check | None = None) -> str:
+                plan_info: dict | None = None, before: Check | None = None,
+                frequency: dict | None = None) -> str:
     s = check.study.settings
     what = ("a planned allocation" if plan_info else
             "a proposed assignment" if previous_idx is not None else
@@ -334,6 +376,9 @@ def render_html(check: Check, figs, previous_idx: np.ndarray | None = None,
     parts.append(_relay_changes(check, previous_idx))
     parts.append("<h2>Annual statement: frequency settings and netted demand disconnected</h2>")
     parts.append(_statement(check))
+    if frequency:
+        parts.append("<h2>Frequency indication (single-bus model)</h2>")
+        parts.append(_frequency(frequency))
     parts.append("<h2>Assumptions</h2>")
     parts.append(_kv(content.assumptions(check)))
     warns = content.all_warnings(check)
@@ -348,8 +393,9 @@ def render_html(check: Check, figs, previous_idx: np.ndarray | None = None,
 
 
 def write_html(check: Check, path: Path, figs, previous_idx: np.ndarray | None = None,
-               plan_info: dict | None = None, before: Check | None = None) -> Path:
+               plan_info: dict | None = None, before: Check | None = None,
+               frequency: dict | None = None) -> Path:
     path = Path(path)
-    path.write_text(render_html(check, figs, previous_idx, plan_info, before),
+    path.write_text(render_html(check, figs, previous_idx, plan_info, before, frequency),
                     encoding="utf-8")
     return path
