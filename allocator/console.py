@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from rich.console import Console
+from rich.markup import escape
 from rich.table import Table
 
 from .check import Check, annual_statement
@@ -17,15 +18,15 @@ def study_overview(console: Console, study: Study) -> None:
     allowed = study.allowed_matrix()
     armable = allowed.any(axis=1)
     s = study.settings
-    t = Table(title=f"{s.utility} — study year {s.year}", show_header=False, box=None)
+    t = Table(title=escape(f"{s.utility} — study year {s.year}"), show_header=False, box=None)
     t.add_column("what", style="bold")
     t.add_column("value")
     t.add_row("feeders", f"{len(study.feeders)} ({int(armable.sum())} armable, "
               f"{int(study.is_priority.sum())} priority, "
               f"{int((study.relay_code == 0).sum())} without a UFLS relay)")
     t.add_row("substations", str(len({f.substation for f in study.feeders})))
-    t.add_row("blocks", ", ".join(f"{b.name} {b.pickup_hz:g} Hz {b.target_pct:g} %"
-                                  for b in study.blocks))
+    t.add_row("blocks", escape(", ".join(f"{b.name} {b.pickup_hz:g} Hz {b.target_pct:g} %"
+                                         for b in study.blocks)))
     t.add_row("total peak", f"{study.peak_mw.sum():.1f} MW")
     t.add_row("total PV", f"{study.pv_mw.sum():.1f} MW (derate {s.pv_derate:g})")
     t.add_row("calendar", f"{s.timezone}, {s.interval_minutes}-minute intervals, holidays "
@@ -39,7 +40,7 @@ def warnings(console: Console, items: list[str] | tuple[str, ...], limit: int = 
         return
     console.print(f"[yellow]{len(items)} warning(s):[/yellow]")
     for w in list(items)[:limit]:
-        console.print(f"  [yellow]![/yellow] {w}")
+        console.print(f"  [yellow]![/yellow] {escape(str(w))}")
     if len(items) > limit:
         console.print(f"  … and {len(items) - limit} more")
 
@@ -52,7 +53,7 @@ def verdict_table(console: Console, check: Check, title: str = "Armed load per b
                  ("verdict", "left")):
         t.add_column(c, justify=j, no_wrap=True)
     for s in check.stats:
-        t.add_row(s.block, f"{s.pickup_hz:.2f}", f"{s.min_pct:g}–{s.max_pct:g}",
+        t.add_row(escape(s.block), f"{s.pickup_hz:.2f}", f"{s.min_pct:g}–{s.max_pct:g}",
                   f"{s.min_share_pct:.1f}", f"{s.p5_share_pct:.1f}",
                   f"{s.mean_share_pct:.1f}", f"{s.max_share_pct:.1f}",
                   str(s.intervals_below_min), str(s.intervals_above_max),
@@ -73,7 +74,7 @@ def statement_table(console: Console, check: Check) -> None:
     for c in ("block", "pickup Hz", "delay s", "mean %", "min %", "cum. mean %", "cum. min %"):
         t.add_column(c, justify="right" if c != "block" else "left", no_wrap=True)
     for r in annual_statement(check):
-        t.add_row(r["block"], f"{r['pickup_hz']:.2f}", f"{r['delay_s']:.2f}",
+        t.add_row(escape(r["block"]), f"{r['pickup_hz']:.2f}", f"{r['delay_s']:.2f}",
                   f"{r['netted_demand_disconnected_mean_pct']:.1f}",
                   f"{r['netted_demand_disconnected_min_pct']:.1f}",
                   f"{r['cumulative_mean_pct']:.1f}", f"{r['cumulative_min_pct']:.1f}")
@@ -89,7 +90,7 @@ def worst_windows(console: Console, check: Check, n: int = 5) -> None:
     for c in ("#", "block", "kind", "start", "end", "hours", "worst %", "MWh"):
         t.add_column(c, no_wrap=True)
     for r in w.head(n).itertuples():
-        t.add_row(str(r.rank), r.block, "below min" if r.kind == "below_min" else "above max",
+        t.add_row(str(r.rank), escape(r.block), "below min" if r.kind == "below_min" else "above max",
                   r.start_local, r.end_local, f"{r.duration_h:g}", f"{r.worst_share_pct:.1f}",
                   f"{r.energy_mwh:.1f}")
     console.print(t)

@@ -105,6 +105,8 @@ def max_metered_bytes() -> tuple[int, float]:
     """(limit in bytes, limit in MB): ``UFLS_MAX_METERED_MB`` or 500 MB."""
     raw = os.environ.get("UFLS_MAX_METERED_MB")
     mb = float(raw) if raw not in (None, "") else float(DEFAULT_MAX_METERED_MB)
+    if not 0 < mb < float("inf"):  # also NaN; inf would overflow int()
+        raise ValueError(f"UFLS_MAX_METERED_MB={raw!r} is not a positive number")
     return int(mb * 1024 * 1024), mb
 
 
@@ -302,11 +304,11 @@ def read_metered(path: str | os.PathLike, study: Study,
         limit_b, limit_mb = max_metered_bytes()
     except ValueError:
         col.add(f"UFLS_MAX_METERED_MB='{os.environ.get('UFLS_MAX_METERED_MB')}' is not a "
-                "number of megabytes")
+                "positive number of megabytes")
         col.raise_if_any()
     size = p.stat().st_size
     if size > limit_b:
-        col.add(f"file is {size / 1024 / 1024:.1f} MB, above the {limit_mb:g} MB limit for "
+        col.add(f"file is {size / 1024 / 1024:.3g} MB, above the {limit_mb:g} MB limit for "
                 "metered files; set the environment variable UFLS_MAX_METERED_MB to raise it")
         col.raise_if_any()
 

@@ -137,6 +137,23 @@ class _Cells:
         return x
 
 
+def _unreadable(exc: BaseException) -> str:
+    """The message for a workbook openpyxl cannot parse: the innermost cause (openpyxl
+    wraps it in a generic ValueError), and plain words when defusedxml refused the XML."""
+    from defusedxml import DefusedXmlException
+
+    chain = [exc]
+    while len(chain) < 10 and (chain[-1].__cause__ or chain[-1].__context__):
+        chain.append(chain[-1].__cause__ or chain[-1].__context__)
+    for e in chain:
+        if isinstance(e, DefusedXmlException):
+            return ("refused: the workbook's XML declares entities or a DTD "
+                    f"({type(e).__name__}); spreadsheet programs do not write these, they mark "
+                    "an entity-expansion ('billion laughs') or external-entity attack")
+    root = chain[-1]
+    return f"cannot read the workbook: {type(root).__name__}: {str(root)[:200]}"
+
+
 def _read_sheets(path: Path, col: Collector) -> dict[str, tuple[list[str], list[Row]]]:
     """Open the workbook and return every sheet as (header, rows).  Raises on unreadable files."""
     size = path.stat().st_size
@@ -173,7 +190,7 @@ def _read_sheets(path: Path, col: Collector) -> dict[str, tuple[list[str], list[
     try:
         wb = openpyxl.load_workbook(path, read_only=True, data_only=True)
     except Exception as exc:  # openpyxl raises many types for malformed files
-        col.add(f"cannot read the workbook: {type(exc).__name__}: {str(exc)[:200]}")
+        col.add(_unreadable(exc))
         col.raise_if_any()
     out: dict[str, tuple[list[str], list[Row]]] = {}
     try:
@@ -200,7 +217,7 @@ def _read_sheets(path: Path, col: Collector) -> dict[str, tuple[list[str], list[
                 rows.append(Row(i, vals))
             out[name] = (header, rows)
     except Exception as exc:
-        col.add(f"cannot read the workbook: {type(exc).__name__}: {str(exc)[:200]}")
+        col.add(_unreadable(exc))
         col.raise_if_any()
     finally:
         wb.close()

@@ -37,7 +37,7 @@ def n(examples: int) -> int:
     return max(1, int(examples * float(os.environ.get("UFLS_FUZZ_SCALE", "1"))))
 
 
-FUZZ = dict(deadline=None, derandomize=False, database=None,
+FUZZ = dict(deadline=None, derandomize=False, database=None, print_blob=True,
             suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
                                    HealthCheck.filter_too_much])
 

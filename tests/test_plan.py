@@ -209,6 +209,9 @@ def test_lexicographic_optimum_matches_brute_force(seed):
     # level 2: among plans at the best worst (within the planner's cap Z_TOL), min MAD
     at_w = worst <= w_star + Z_TOL
     m_star = mad[at_w].min()
+    # level 2's own result (before level 3 trades MAD for changes) is the minimum
+    assert out.levels[1]["objective"] == pytest.approx(m_star, abs=TOL_MAD)
+    # the reported full-year MAD is the one of the check's shares (reference: run_check)
     assert got_mad == pytest.approx(
         float(np.abs(chk.share_pct[:, chk.valid]
                      - np.array([b.target_pct for b in study.blocks])[:, None]).mean()),

@@ -133,6 +133,10 @@ def neighbourhood_search(units: Units, band: Band, option: np.ndarray, level: st
                 events.append(f"{info['level']}: a neighbourhood solve hit its "
                               f"{remaining:.0f} s safety limit")
             if out.x is None:
+                if out.status == "error":
+                    info["status"] = "solver_fault"
+                    events.append(f"{info['level']}: a neighbourhood solve failed "
+                                  f"({out.status}: {out.message}); that step was skipped")
                 continue
             sub_opt = model.option_from_x(out.x, sub.n, sub.n_blocks)
             new = cur.copy()

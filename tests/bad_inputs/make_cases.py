@@ -284,6 +284,27 @@ def _(d):
     return std_argv()
 
 
+@case("workbook_billion_laughs_entities", "workbook",
+      "the settings sheet's XML declares nested entities (the 'billion laughs' attack, "
+      "CVE-2003-1564)",
+      Expect(W, None, None, None, "refused: the workbook's XML declares entities or a DTD "
+             "(EntitiesForbidden)"))
+def _(d):
+    p = write_wb(d)
+    laughs = ("<!DOCTYPE lolz [<!ENTITY lol \"lol\">"
+              + "".join(f"<!ENTITY lol{i} \"{('&lol' + str(i - 1) + ';') * 10}\">"
+                        .replace("&lol0;", "&lol;") for i in range(1, 10)) + "]>")
+    src = p.read_bytes()
+    with zipfile.ZipFile(io.BytesIO(src)) as zin, zipfile.ZipFile(p, "w") as zout:
+        for i in zin.infolist():
+            data = zin.read(i.filename)
+            if i.filename == "xl/worksheets/sheet1.xml":
+                data = (laughs + data.decode().replace("<t>key</t>", "<t>&lol9;</t>", 1)
+                        ).encode()
+            zout.writestr(i, data)
+    return std_argv()
+
+
 # ============================================================================================
 # workbook: sheets and columns
 # ============================================================================================
@@ -834,7 +855,7 @@ def _ts_case(name, what, value, text, line=ml(7, 1)):
 
 _ts_case("metered_timestamp_day_first", "timestamp '01/01/2025 07:00' (day first)",
          "01/01/2025 07:00", "timestamp '01/01/2025 07:00' is not a date and time in ISO 8601 "
-         "form (e.g. 2025-03-30T03:00:00+02:00")
+         "form in the years 1678..2261 (e.g. 2025-03-30T03:00:00+02:00")
 _ts_case("metered_timestamp_blank", "one line without a timestamp", "", "timestamp is blank")
 _ts_case("metered_mixed_timestamp_forms", "one local time without offset among offset times",
          "2025-01-01 07:00", "timestamp '2025-01-01 07:00' is local time without a UTC offset, "
@@ -843,6 +864,28 @@ _ts_case("metered_timestamp_off_the_hour", "an hourly reading stamped 07:17",
          "2025-01-01T07:17:00+01:00", "timestamp '2025-01-01T07:17:00+01:00' is not on a "
          "60-minute interval boundary of the study; readings every 1 h must start on an "
          "interval")
+
+
+@case("metered_timestamp_year_9999", "metered",
+      "a reading dated 9999-12-31 (found by fuzzing: it used to crash the reader)",
+      Expect(M, None, ml(2, 2), "timestamp", "timestamp '9999-12-31T23:00:00Z' is not a date "
+             "and time in ISO 8601 form in the years 1678..2261"))
+def _(d):
+    rows = metered_rows()
+    rows[ml(2, 2) - 2][0] = "9999-12-31T23:00:00Z"
+    return write_m(d, rows)
+
+
+@case("metered_parquet_timestamp_year_9999", "metered",
+      "a Parquet datetime column with a reading in 9999 (record 2 = row 3)",
+      Expect("m.parquet", None, 3, "timestamp", "timestamp '9999-12-31 00:00:00+00:00' is not "
+             "a date and time in ISO 8601 form in the years 1678..2261"))
+def _(d):
+    write_wb(d)
+    t = pd.Series(pd.to_datetime(["2025-01-01 00:00", "9999-12-31 00:00"]).as_unit("us"))
+    pd.DataFrame({"timestamp": t.dt.tz_localize("UTC"), "feeder_id": ["F01", "F02"],
+                  "mw": [1.0, 2.0]}).to_parquet(d / "m.parquet")
+    return std_argv("--metered", "m.parquet")
 
 
 @case("metered_out_of_order", "metered", "F00's 06:00 and 05:00 readings swapped",
