@@ -33,6 +33,8 @@ Z_TOL = 1e-7  # absolute tolerance on the relative violation z when capping late
 MAD_REL_TOL = 0.10  # default of settings.deviation_tolerance_pct / 100
 ADD_PER_BLOCK = 6  # intervals added per block and round
 MAX_ROUNDS = 40
+ROUND_SHARE = 0.15  # a level-1 round may use at most this share of the time limit
+ROUND_MIN_S = 5.0
 
 
 @dataclass
@@ -91,7 +93,7 @@ class _Progress:
 
 def _level(units, band, level, band_set, mad_set, incumbent, *, solver, deadline, gap, seed,
            z_cap=None, mad_cap=None, max_changes=None, progress, events, level_name,
-           sub_cap_pct=None, sub_rows=None):
+           sub_cap_pct=None, sub_rows=None, total_s=None):
     """Solve one level with interval rounds.  Returns (option, info dict, band_set)."""
     nb = units.n_blocks
     info = {"level": level_name, "rounds": 0, "status": None, "objective": None,
@@ -110,8 +112,11 @@ def _level(units, band, level, band_set, mad_set, incumbent, *, solver, deadline
                             z_cap=z_cap, mad_cap=mad_cap, max_changes=max_changes,
                             substation_rows=sub_rows)
         start = start_vector(model, units, option, band.target, band.lo, band.hi)
-        out = solve(model.arrays, solver, time_limit_s=remaining, mip_gap=gap, start=start,
-                    seed=seed)
+        # one round may not eat the whole budget: a round cut short still yields an
+        # incumbent and new intervals, and later rounds can improve on it
+        round_cap = max(ROUND_MIN_S, ROUND_SHARE * total_s) if total_s else remaining
+        out = solve(model.arrays, solver, time_limit_s=min(remaining, round_cap), mip_gap=gap,
+                    start=start, seed=seed)
         info["rounds"] = rnd + 1
         info["seconds"] = time.perf_counter() - t0
         if out.x is None:
@@ -215,7 +220,7 @@ def plan_allocation(study: Study, year: Year, solver: str = "highs",
                                       h_opt, solver=solver, deadline=lvl_deadline, gap=gap,
                                       seed=seed, max_changes=max_changes, progress=prog,
                                       events=events, level_name="worst violation",
-                                      sub_cap_pct=sub_cap)
+                                      sub_cap_pct=sub_cap, total_s=tl)
     k1 = evaluate(units, opt1, band)
     if k1[0] > h_key[0] + Z_TOL and not substation_excess(units, h_opt, sub_cap):
         # the solver did worse than the start (time limit): keep the start
@@ -305,7 +310,8 @@ def plan_allocation(study: Study, year: Year, solver: str = "highs",
     # what would more changes give?
     if max_changes is not None and not in_band and sub_cap is None:
         out.alternatives = _without_cap(study, year, units, band, solver, seed, gap, tl)
-        if out.alternatives.get("changes") is not None:
+        alt = out.alternatives
+        if alt.get("changes") is not None and alt["worst_violation_rel"] < kf[0] - Z_TOL:
             out.explanation.append(
                 f"max_changes = {max_changes} cannot bring every block within its band (best "
                 f"worst violation {100 * kf[0]:.1f} % of target); without the cap, "
