@@ -255,7 +255,8 @@ def plan_allocation(study: Study, year: Year, solver: str = "highs",
     opt3, info3 = neighbourhood_search(
         units, band, opt2r, "changes", band_set, mad_set, z_cap=z_cap,
         mad_cap_full=mad_cap_full, mad_cap_sample=mad_cap_sample, max_changes=max_changes,
-        solver=solver, seed=seed, deadline=t_start + tl, events=events, progress=prog,
+        solver=solver, seed=seed, deadline=t_start + tl - min(2.0, 0.03 * tl), events=events,
+        progress=prog,
         sub_cap_pct=sub_cap)
     final = opt3
     kf = evaluate(units, final, band)
