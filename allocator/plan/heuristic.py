@@ -304,3 +304,68 @@ def revert_pass(units: Units, band: Band, option: np.ndarray, z_cap: float,
         if not moved:
             break
     return opt
+
+
+def swap_revert_pass(units: Units, band: Band, option: np.ndarray, z_cap: float,
+                     mad_cap: float, max_rounds: int = 200) -> np.ndarray:
+    """Level-3 helper: revert *pairs* of changed units that swapped places.
+
+    Unit u moved p → q and unit v moved q → p (p or q may be "unarmed"); reverting both
+    changes only rows p and q, by ``±(pp_u − pp_v)``, which often keeps both blocks in band
+    where reverting either alone would not.  All candidate pairs of a block pair are scored
+    at once (``[u, v, interval]`` arrays, chunked); the best admissible pair (lowest total
+    deviation, worst violation ≤ z_cap, mean deviation ≤ mad_cap) is applied, then the next.
+    """
+    nb = units.n_blocks
+    opt = option.copy()
+    s = shares(units, opt)
+    n_t = s.shape[1]
+    total = max(nb * n_t, 1)
+    tgt = band.target[:, None]
+    dev = np.abs(s - tgt).sum(axis=1)
+    for _ in range(max_rounds):
+        changed = np.flatnonzero(opt != units.current)
+        best = None
+        for p in range(nb + 1):
+            for q in range(p + 1, nb + 1):
+                a = changed[(units.current[changed] == p) & (opt[changed] == q)]
+                b = changed[(units.current[changed] == q) & (opt[changed] == p)]
+                if a.size == 0 or b.size == 0:
+                    continue
+                if p < nb:
+                    a = a[units.allowed[a, p]]
+                if q < nb:
+                    b = b[units.allowed[b, q]]
+                if a.size == 0 or b.size == 0:
+                    continue
+                a, b = a[:40], b[:40]
+                # d[u, v, t] = pp_u - pp_v: row p gains d, row q loses d
+                d = units.pp[a][:, None, :] - units.pp[b][None, :, :]
+                ok = np.ones((a.size, b.size), dtype=bool)
+                new_dev = np.full((a.size, b.size), dev.sum())
+                for row, sign in ((p, 1.0), (q, -1.0)):
+                    if row >= nb:
+                        continue
+                    r = s[row][None, None, :] + sign * d
+                    v = np.maximum(np.maximum(band.lo[row] - r, r - band.hi[row]), 0.0).max(
+                        axis=2) / band.scale[row]
+                    ok &= v <= z_cap
+                    new_dev += np.abs(r - band.target[row]).sum(axis=2) - dev[row]
+                ok &= new_dev / total <= mad_cap
+                if not ok.any():
+                    continue
+                cand = np.where(ok, new_dev, np.inf)
+                i, j = np.unravel_index(int(np.argmin(cand)), cand.shape)
+                if best is None or cand[i, j] < best[0]:
+                    best = (cand[i, j], int(a[i]), int(b[j]), p, q)
+        if best is None:
+            break
+        _, u, v, p, q = best
+        if p < nb:
+            s[p] += units.pp[u] - units.pp[v]
+            dev[p] = np.abs(s[p] - band.target[p]).sum()
+        if q < nb:
+            s[q] += units.pp[v] - units.pp[u]
+            dev[q] = np.abs(s[q] - band.target[q]).sum()
+        opt[u], opt[v] = p, q
+    return opt

@@ -248,8 +248,13 @@ def plan_allocation(study: Study, year: Year, solver: str = "highs",
     mad_cap_full = k2[1] * (1 + tol) + 1e-12
     from .heuristic import revert_pass
 
+    from .heuristic import swap_revert_pass
+
     opt2r = revert_pass(units, band, opt2, z_cap, mad_cap_full,
                         np.random.default_rng(seed + 3))
+    opt2r = swap_revert_pass(units, band, opt2r, z_cap, mad_cap_full)
+    opt2r = revert_pass(units, band, opt2r, z_cap, mad_cap_full,
+                        np.random.default_rng(seed + 4))
     if substation_excess(units, opt2r, sub_cap):
         opt2r = opt2
     opt3, info3 = neighbourhood_search(
