@@ -13,6 +13,7 @@ message, never an exception that loses the incumbent plan.
 from __future__ import annotations
 
 import os
+import sys
 import time
 from dataclasses import dataclass
 
@@ -33,12 +34,34 @@ class SolveOutcome:
     message: str = ""
 
 
+def _new_highs():
+    """A ``highspy.Highs`` object without the copyright banner HiGHS writes to the process's
+    standard output on construction (it ignores ``output_flag``, which can only be set
+    afterwards); the banner would break ``--quiet`` and machine-read output."""
+    import highspy
+
+    try:
+        sys.stdout.flush()
+        saved = os.dup(1)
+        with open(os.devnull, "wb") as null:
+            os.dup2(null.fileno(), 1)
+            try:
+                h = highspy.Highs()
+            finally:
+                os.dup2(saved, 1)
+                os.close(saved)
+    except OSError:  # no usable file descriptor 1 (embedded use): accept the banner
+        h = highspy.Highs()
+    h.setOptionValue("output_flag", False)
+    return h
+
+
 def solver_version(name: str) -> str:
     try:
         if name == "highs":
             import highspy
 
-            return f"HiGHS {highspy.Highs().version()}"
+            return f"HiGHS {_new_highs().version()}"
         if name == "cbc":
             import pulp
 
@@ -98,8 +121,8 @@ def _solve_highs(a: MilpArrays, tl, gap, start, seed, threads, node_limit=None
                  ) -> SolveOutcome:
     import highspy
 
-    h = highspy.Highs()
-    h.setOptionValue("output_flag", bool(__import__("os").environ.get("HIGHS_LOG")))
+    h = _new_highs()
+    h.setOptionValue("output_flag", bool(os.environ.get("HIGHS_LOG")))
     h.setOptionValue("time_limit", float(tl))
     h.setOptionValue("mip_rel_gap", float(gap))
     h.setOptionValue("random_seed", int(seed))
