@@ -77,21 +77,30 @@ def cmd_validate(args, console) -> int:
     return EXIT_OK
 
 
-def cmd_check(args, console) -> int:
+def _checked_allocation(args, console, leaf: str):
+    """Shared start of ``check`` and ``frequency``: refuse a bad ``--out`` before reading
+    anything, read the inputs, take ``--assignment`` (or the workbook's current_block) and
+    run the armed-load check.  Returns (out, study, year, check, warnings)."""
     from .assignment import current_assignment, read_assignment
     from .check import run_check
-    from .console import statement_table, verdict_table, warnings, worst_windows
-    from .export import write_check_files
-    from .safeio import atomic_dir, check_out_dir
+    from .safeio import check_out_dir
 
-    out = Path(args.out) if args.out else _default_out(args.workbook, "check")
+    out = Path(args.out) if args.out else _default_out(args.workbook, leaf)
     check_out_dir(out, _inputs(args))
     study, year = _load(args.workbook, args.metered, console, args.quiet)
     if args.assignment:
         block_idx, warns = read_assignment(args.assignment, study)
     else:
         block_idx, warns = current_assignment(study)
-    chk = run_check(study, year, block_idx, warns)
+    return out, study, year, run_check(study, year, block_idx, warns), warns
+
+
+def cmd_check(args, console) -> int:
+    from .console import statement_table, verdict_table, warnings, worst_windows
+    from .export import write_check_files
+    from .safeio import atomic_dir
+
+    out, study, year, chk, warns = _checked_allocation(args, console, "check")
     with atomic_dir(out) as tmp:
         write_check_files(chk, tmp)
         _reports(args, chk, tmp,
@@ -278,18 +287,9 @@ def _print_frequency(console, summary: dict) -> None:
 
 
 def cmd_frequency(args, console) -> int:
-    from .assignment import current_assignment, read_assignment
-    from .check import run_check
-    from .safeio import atomic_dir, check_out_dir
+    from .safeio import atomic_dir
 
-    out = Path(args.out) if args.out else _default_out(args.workbook, "frequency")
-    check_out_dir(out, _inputs(args))
-    study, year = _load(args.workbook, args.metered, console, args.quiet)
-    if args.assignment:
-        block_idx, warns = read_assignment(args.assignment, study)
-    else:
-        block_idx, warns = current_assignment(study)
-    chk = run_check(study, year, block_idx, warns)
+    out, study, year, chk, _ = _checked_allocation(args, console, "frequency")
     with atomic_dir(out) as tmp:
         fs, summary = _frequency_into(study, chk, tmp, args.at, args.quiet, console)
         fmts = _formats(args)
