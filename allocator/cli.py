@@ -233,8 +233,7 @@ def cmd_plan(args, console) -> int:
 
 def _frequency_into(study, chk, out_tmp: Path, at, quiet, console):
     """Run the frequency indication for ``chk`` and write its files into out_tmp."""
-    from .frequency_study import (frequency_figures, frequency_summary, frequency_table,
-                                  run_frequency_study)
+    from .frequency_study import frequency_summary, frequency_table, run_frequency_study
     from .safeio import write_csv, write_json
 
     with console.status("frequency indication") if not quiet else _null():
@@ -261,12 +260,10 @@ def _write_frequency_figures(fs, folder: Path) -> None:
 def _critical_trace_png(fs) -> bytes:
     import io
 
-    from .frequency_study import frequency_figures
+    from .frequency_study import critical_traces_figure
 
-    figs = frequency_figures(fs)
     buf = io.BytesIO()
-    figs["frequency_traces_critical"].savefig(buf, format="png", dpi=100,
-                                               metadata={"Software": None})
+    critical_traces_figure(fs).savefig(buf, format="png", dpi=100, metadata={"Software": None})
     return buf.getvalue()
 
 

@@ -4,8 +4,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-DEMO_STEM = None  # set once the demo workbook exists; see demo_workbook_path
-
 
 def _candidates() -> list[Path]:
     here = Path.cwd() / "inputs_demo"

@@ -177,16 +177,22 @@ def frequency_summary(fs: FrequencyStudy) -> dict:
     return out
 
 
-def frequency_figures(fs: FrequencyStudy) -> dict[str, object]:
-    """name → matplotlib Figure: traces at the most critical interval (lowest largest
-    covered disturbance) and nadir/zenith vs size for every examined interval."""
-    from .frequency import plot_nadir_vs_size, plot_traces
+def critical_traces_figure(fs: FrequencyStudy):
+    """Frequency traces at the examined interval with the smallest largest-covered loss."""
+    from .frequency import plot_traces
 
     lc = np.where(np.isfinite(fs.largest_covered_pct), fs.largest_covered_pct, -1.0)
     crit = int(np.argmin(lc))
-    figs = {"frequency_traces_critical": plot_traces(
-        fs.sweep, case=crit, title=f"Frequency after a generation loss — {fs.labels[crit]} "
-        f"({fs.local_times[crit]})")}
+    return plot_traces(fs.sweep, case=crit, title=f"Frequency after a generation loss — "
+                       f"{fs.labels[crit]} ({fs.local_times[crit]})")
+
+
+def frequency_figures(fs: FrequencyStudy) -> dict[str, object]:
+    """name → matplotlib Figure: traces at the most critical interval (lowest largest
+    covered disturbance) and nadir/zenith vs size for every examined interval."""
+    from .frequency import plot_nadir_vs_size
+
+    figs = {"frequency_traces_critical": critical_traces_figure(fs)}
     for c, label in enumerate(fs.labels):
         figs[f"frequency_nadir_{label.split('+')[0]}"] = plot_nadir_vs_size(
             fs.sweep, case=c, title=f"Nadir and zenith vs loss size — {label} "

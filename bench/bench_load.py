@@ -21,7 +21,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import os
 import resource
 import subprocess
@@ -33,17 +32,8 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "tests"))
 
-PROFILES = ("res", "com", "ind", "agri", "mixed")
-SEASONS = {"winter": "12,1,2", "spring": "3,4,5", "summer": "6,7,8", "autumn": "9,10,11"}
-
-
-def _value(p: str, s: str, d: str, m: int) -> float:
-    """Invented load shape per unit of peak by profile, season, day type and minute."""
-    pi, si = PROFILES.index(p), list(SEASONS).index(s)
-    dip = {"workday": 1.0, "saturday": 0.85, "sunday": 0.75}[d]
-    h = m / 60
-    return round(dip * (0.45 + 0.1 * si / 3 + 0.35 * math.sin(math.pi * ((h + pi) % 24) / 24)
-                        ** 2 + 0.05 * math.cos(2 * math.pi * h / 6)), 6)
+sys.path.insert(0, str(ROOT / "bench"))
+from bench_year import PROFILES, SEASONS, _value  # noqa: E402  (one invented load shape)
 
 
 def write_study(path: Path, n_feeders: int, interval_minutes: int) -> Path:

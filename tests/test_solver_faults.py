@@ -143,7 +143,8 @@ def test_nonsense_claimed_optimal_is_not_trusted(case, monkeypatch):
     assert not out.proven
 
 
-def test_crash_after_good_solves_keeps_the_solver_plan(case, monkeypatch):
+def _crash_from_third_solve(monkeypatch) -> dict:
+    """Let HiGHS solve twice, then crash on every later solve; returns the call counter."""
     real = solvers._solve_highs
     calls = {"n": 0}
 
@@ -153,6 +154,11 @@ def test_crash_after_good_solves_keeps_the_solver_plan(case, monkeypatch):
             raise RuntimeError("simulated crash on solve 3")
         return real(*a, **kw)
     monkeypatch.setattr(solvers, "_solve_highs", flaky)
+    return calls
+
+
+def test_crash_after_good_solves_keeps_the_solver_plan(case, monkeypatch):
+    calls = _crash_from_third_solve(monkeypatch)
     out = plan_allocation(case["study"], case["year"], time_limit_s=TIME_LIMIT)
     assert calls["n"] > 2, "the fault never fired"
     _assert_sound(case, out)
@@ -209,15 +215,7 @@ def test_neighbourhood_levels_do_not_claim_converged_when_every_solve_failed(cas
 
 
 def test_crash_during_neighbourhood_search_is_reported(case, monkeypatch):
-    real = solvers._solve_highs
-    calls = {"n": 0}
-
-    def flaky(*a, **kw):
-        calls["n"] += 1
-        if calls["n"] > 2:
-            raise RuntimeError("simulated crash on solve 3")
-        return real(*a, **kw)
-    monkeypatch.setattr(solvers, "_solve_highs", flaky)
+    calls = _crash_from_third_solve(monkeypatch)
     out = plan_allocation(case["study"], case["year"], time_limit_s=TIME_LIMIT)
     assert calls["n"] > 2
     assert any("simulated crash" in e for e in out.events), (out.status, out.events)

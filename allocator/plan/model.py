@@ -56,7 +56,6 @@ class AllocationModel:
     i_z: int
     band_set: np.ndarray  # positions into Units' valid intervals
     mad_set: np.ndarray
-    y_index: dict  # (b, t_pos) -> column
     i_e0: int
     n_e: int
     change_coef: np.ndarray  # per pair
@@ -206,8 +205,7 @@ def build_model(units: Units, targets: np.ndarray, lo: np.ndarray, hi: np.ndarra
         raise ValueError(objective)
     arrays = MilpArrays(c, A, np.concatenate(rlb), np.concatenate(rub), lb, ub, integral,
                         offset)
-    y_index = {}
-    return AllocationModel(arrays, pair_u, pair_b, i_z, band_set, mad_set, y_index, i_e0, n_e,
+    return AllocationModel(arrays, pair_u, pair_b, i_z, band_set, mad_set, i_e0, n_e,
                            change_coef, change_const)
 
 

@@ -143,9 +143,6 @@ def _level(units, band, level, band_set, mad_set, incumbent, *, solver, deadline
         band_set = np.union1d(band_set, new)
         if level != "worst":
             mad_set = np.union1d(mad_set, new) if mad_set.size else mad_set
-        if out.status != "optimal" and level == "worst":
-            # not proven on this set: keep going, the bound may still improve
-            pass
     if _rank(units, band, option, sub_cap_pct, level) > best_key:
         events.append(f"{level_name}: the last round's plan was worse than an earlier one "
                       "(time limit); the best plan found is kept")
@@ -157,11 +154,9 @@ def _rank(units, band, option, sub_cap_pct, level) -> tuple:
     """Order plans: hard substation rule first, then the level's full-year objective."""
     k = evaluate(units, option, band)
     n_sub = len(substation_excess(units, option, sub_cap_pct))
-    if level == "worst":
-        return (n_sub, round(k[0], 9), k[1], k[2])
-    if level == "mad":
-        return (n_sub, round(k[0], 9), k[1], k[2])
-    return (n_sub, round(k[0], 9), k[2], k[1])
+    if level == "changes":
+        return (n_sub, round(k[0], 9), k[2], k[1])
+    return (n_sub, round(k[0], 9), k[1], k[2])
 
 
 def plan_allocation(study: Study, year: Year, solver: str = "highs",
@@ -324,10 +319,6 @@ def plan_allocation(study: Study, year: Year, solver: str = "highs",
                 f"{int(out.alternatives['changes'])} changes give a worst violation of "
                 f"{100 * out.alternatives['worst_violation_rel']:.1f} % of target.")
     return out
-
-
-def _lex_le(a, b) -> bool:
-    return (a[0] < b[0] - Z_TOL) or (abs(a[0] - b[0]) <= Z_TOL and a[1] <= b[1] + 1e-12)
 
 
 def _without_cap(study, year, units, band, solver, seed, gap, tl) -> dict:
