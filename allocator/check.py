@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from .domain import RELAY_DIRECTION_BLOCKED, RELAY_STANDARD, UNARMED, Block, Study
+from .timefmt import iso_local
 from .year import Year
 
 
@@ -104,6 +105,11 @@ class BlockStats:
     worst_violation_pp: float  # max over intervals of the distance outside the band, pp
     min_share_local_time: str
     compliant: bool
+    #: smallest (share − min_pct) and (max_pct − share) over the valid intervals, pp;
+    #: negative where the band is left
+    headroom_to_min_pp: float = float("nan")
+    headroom_to_max_pp: float = float("nan")
+    max_share_local_time: str = ""
 
 
 @dataclass(frozen=True)
@@ -125,6 +131,10 @@ class Check:
     @property
     def blocks(self) -> tuple[Block, ...]:
         return self.study.blocks
+
+    @property
+    def scenario(self) -> str:
+        return self.year.scenario
 
     @cached_property
     def worst_violation_pp(self) -> float:
@@ -155,7 +165,7 @@ class Check:
         y = self.year
         cols: dict[str, object] = {
             "timestamp_utc": y.timestamps_utc.strftime("%Y-%m-%dT%H:%M:%SZ"),
-            "local_time": y.local_times.strftime("%Y-%m-%dT%H:%M:%S%z"),
+            "local_time": iso_local(y.local_times),
             "demand_mw": y.demand_mw,
         }
         for j, b in enumerate(self.blocks):
@@ -214,6 +224,7 @@ def run_check(study: Study, year: Year, block_idx: np.ndarray,
         excess = np.maximum(a - b.max_pct / 100.0 * dem, 0.0)
         viol = np.maximum(np.maximum(b.min_pct - s, s - b.max_pct), 0.0)
         i_min = int(np.flatnonzero(valid)[np.argmin(s)]) if s.size else 0
+        i_max = int(np.flatnonzero(valid)[np.argmax(s)]) if s.size else 0
         stats.append(BlockStats(
             block=b.name, order=b.order, pickup_hz=b.pickup_hz, delay_s=b.delay_s,
             rocof_hz_per_s=b.rocof_hz_per_s, target_pct=b.target_pct, min_pct=b.min_pct,
@@ -226,8 +237,11 @@ def run_check(study: Study, year: Year, block_idx: np.ndarray,
             intervals_below_min=int(below.sum()), intervals_above_max=int(above.sum()),
             shortfall_mwh=float(short.sum() * h), excess_mwh=float(excess.sum() * h),
             worst_violation_pp=float(viol.max()) if s.size else float("nan"),
-            min_share_local_time=local[i_min].isoformat() if s.size else "",
+            min_share_local_time=iso_local(local[i_min]) if s.size else "",
             compliant=_compliant(s_rule.compliance_rule, s_rule.compliance_percentile, s, b),
+            headroom_to_min_pp=float((s - b.min_pct).min()) if s.size else float("nan"),
+            headroom_to_max_pp=float((b.max_pct - s).min()) if s.size else float("nan"),
+            max_share_local_time=iso_local(local[i_max]) if s.size else "",
         ))
     return Check(study, year, block_idx, armed, share, cum, valid, tuple(stats),
                  all(st.compliant for st in stats), s_rule.rule_text, tuple(warnings))
@@ -268,8 +282,8 @@ def shortfall_windows(check: Check) -> pd.DataFrame:
             energy = np.add.reduceat(np.where(mask, gap, 0.0), st) * h
             frames.append(pd.DataFrame({
                 "block": b.name, "kind": kind,
-                "start_local": local[st].strftime("%Y-%m-%d %H:%M %Z"),
-                "end_local": (local[en - 1] + step).strftime("%Y-%m-%d %H:%M %Z"),
+                "start_local": iso_local(local[st]),
+                "end_local": iso_local(local[en - 1] + step),
                 "duration_h": (en - st) * h, "intervals": en - st,
                 "worst_share_pct": worst, "band_pct": band, "energy_mwh": energy,
                 "_start": st,
@@ -289,7 +303,7 @@ def low_load_view(check: Check, fraction: float = 0.01) -> pd.DataFrame:
     idx = np.flatnonzero(check.valid)
     n = max(1, int(round(fraction * idx.size)))
     pick = idx[np.argsort(y.demand_mw[idx], kind="stable")[:n]]
-    cols: dict[str, object] = {"local_time": y.local_times[pick].strftime("%Y-%m-%d %H:%M %Z"),
+    cols: dict[str, object] = {"local_time": iso_local(y.local_times[pick]),
                                "demand_mw": y.demand_mw[pick]}
     for j, b in enumerate(check.blocks):
         cols[f"{b.name}_pct"] = check.share_pct[j, pick]
@@ -329,7 +343,7 @@ def exporting_feeders(check: Check) -> pd.DataFrame:
         "exporting_intervals": exp[has].sum(axis=1),
         "exporting_hours": exp[has].sum(axis=1) * y.interval_h,
         "most_export_mw": -n_sub[np.arange(rows.size), i_min],
-        "most_export_local_time": y.local_times[i_min].strftime("%Y-%m-%d %H:%M %Z"),
+        "most_export_local_time": iso_local(y.local_times[i_min]),
         "negative_contribution_mwh": -neg_mwh,
     })
     return df.sort_values(["negative_contribution_mwh", "feeder_id"],
@@ -425,4 +439,201 @@ def summary_dict(check: Check) -> dict:
         "annual_statement": annual_statement(check),
         "customers_per_block": customers_per_block(check),
         "warnings": list(check.warnings),
+    }
+
+
+# --------------------------------------------------------------------------------------------
+# several scenarios: the verdict is the worst
+# --------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class BlockVerdict:
+    """One block judged on every scenario: the worst case and where it happens.
+
+    ``headroom_to_min_pp`` is the smallest (share − min_pct) over every valid interval of
+    every scenario, ``headroom_to_max_pp`` the smallest (max_pct − share); negative where
+    the band is left.  Counts and MWh are those of the worst scenario for that figure."""
+
+    block: str
+    order: int
+    pickup_hz: float
+    delay_s: float
+    target_pct: float
+    min_pct: float
+    max_pct: float
+    compliant: bool
+    failing_scenarios: tuple[str, ...]
+    min_share_pct: float
+    min_share_scenario: str
+    min_share_local_time: str
+    max_share_pct: float
+    max_share_scenario: str
+    max_share_local_time: str
+    headroom_to_min_pp: float
+    headroom_to_max_pp: float
+    intervals_below_min: int
+    intervals_above_max: int
+    shortfall_mwh: float
+    excess_mwh: float
+    worst_violation_pp: float
+
+
+def _block_verdict(j: int, b: Block, checks: tuple[Check, ...]) -> BlockVerdict:
+    st = [c.stats[j] for c in checks]
+    names = [c.scenario for c in checks]
+
+    def arg(vals, fn):
+        v = np.array([np.nan if x is None else x for x in vals], dtype=float)
+        return int(fn(np.where(np.isfinite(v), v, np.inf if fn is np.argmin else -np.inf)))
+
+    lo = arg([s.min_share_pct for s in st], np.argmin)
+    hi = arg([s.max_share_pct for s in st], np.argmax)
+    return BlockVerdict(
+        block=b.name, order=b.order, pickup_hz=b.pickup_hz, delay_s=b.delay_s,
+        target_pct=b.target_pct, min_pct=b.min_pct, max_pct=b.max_pct,
+        compliant=all(s.compliant for s in st),
+        failing_scenarios=tuple(n for n, s in zip(names, st) if not s.compliant),
+        min_share_pct=st[lo].min_share_pct, min_share_scenario=names[lo],
+        min_share_local_time=st[lo].min_share_local_time,
+        max_share_pct=st[hi].max_share_pct, max_share_scenario=names[hi],
+        max_share_local_time=st[hi].max_share_local_time,
+        headroom_to_min_pp=float(np.nanmin([s.headroom_to_min_pp for s in st])),
+        headroom_to_max_pp=float(np.nanmin([s.headroom_to_max_pp for s in st])),
+        intervals_below_min=max(s.intervals_below_min for s in st),
+        intervals_above_max=max(s.intervals_above_max for s in st),
+        shortfall_mwh=max(s.shortfall_mwh for s in st),
+        excess_mwh=max(s.excess_mwh for s in st),
+        worst_violation_pp=float(np.nanmax([s.worst_violation_pp for s in st])),
+    )
+
+
+@dataclass(frozen=True)
+class ScenarioChecks:
+    """One allocation checked on every scenario's year (``checks`` in scenario order).
+    The allocation is compliant only if it is compliant in every scenario."""
+
+    study: Study
+    checks: tuple[Check, ...]
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return tuple(c.scenario for c in self.checks)
+
+    @property
+    def block_idx(self) -> np.ndarray:
+        return self.checks[0].block_idx
+
+    @property
+    def blocks(self) -> tuple[Block, ...]:
+        return self.study.blocks
+
+    @property
+    def rule(self) -> str:
+        return self.checks[0].rule
+
+    @property
+    def compliant(self) -> bool:
+        return all(c.compliant for c in self.checks)
+
+    @cached_property
+    def verdicts(self) -> tuple[BlockVerdict, ...]:
+        return tuple(_block_verdict(j, b, self.checks) for j, b in enumerate(self.blocks))
+
+    @cached_property
+    def worst_violation_pp(self) -> float:
+        return max(c.worst_violation_pp for c in self.checks)
+
+    @cached_property
+    def worst_relative_violation(self) -> float:
+        return max(c.worst_relative_violation for c in self.checks)
+
+    @property
+    def failing_scenarios(self) -> tuple[str, ...]:
+        return tuple(c.scenario for c in self.checks if not c.compliant)
+
+    def check(self, name: str) -> Check:
+        for c in self.checks:
+            if c.scenario == name:
+                return c
+        raise KeyError(name)
+
+    def windows(self) -> pd.DataFrame:
+        """Every scenario's windows outside a band, with a ``scenario`` column, ranked
+        together by energy then duration."""
+        frames = []
+        for c in self.checks:
+            w = c.windows()
+            if not w.empty:
+                w = w.drop(columns=["rank"])
+                w.insert(0, "scenario", c.scenario)
+                frames.append(w)
+        if not frames:
+            return pd.DataFrame(columns=["rank", "scenario"] + WINDOW_COLUMNS[1:] + ["_start"])
+        df = pd.concat(frames, ignore_index=True)
+        df = df.sort_values(["energy_mwh", "duration_h", "block", "scenario", "_start"],
+                            ascending=[False, False, True, True, True], kind="stable")
+        df.insert(0, "rank", np.arange(1, len(df) + 1))
+        return df.reset_index(drop=True)
+
+
+def statement_check(checks: ScenarioChecks) -> Check:
+    """The scenario the annual statement is made from: the metered year when there is one
+    (what the scheme really held), otherwise the first scenario."""
+    for c in checks.checks:
+        if c.year.source == "metered":
+            return c
+    return checks.checks[0]
+
+
+def run_checks(study: Study, years, block_idx: np.ndarray,
+               warnings: tuple[str, ...] | list[str] = ()) -> ScenarioChecks:
+    """Check assignment ``block_idx[feeder]`` on every year (scenario) of ``years``."""
+    years = (years,) if isinstance(years, Year) else tuple(years)
+    return ScenarioChecks(study, tuple(run_check(study, y, block_idx, warnings)
+                                       for y in years), tuple(warnings))
+
+
+def verdict_covers(checks: ScenarioChecks) -> str:
+    """Which years the verdict speaks for, in one sentence."""
+    parts = []
+    for c in checks.checks:
+        i = c.year.scenario_info
+        pv = i.get("pv", c.year.source)
+        extra = [f"PV ×{i['pv_scale']:g}"] if i.get("pv_scale", 1.0) != 1.0 else []
+        if i.get("load_scale", 1.0) != 1.0:
+            extra.append(f"load ×{i['load_scale']:g}")
+        parts.append(f"{c.scenario} ({pv}, {c.year.calendar_year}"
+                     + (", " + ", ".join(extra) if extra else "") + ")")
+    return ("The verdict covers these scenarios and no other year: " + "; ".join(parts)
+            + ".")
+
+
+def summary_set_dict(checks: ScenarioChecks) -> dict:
+    """The ``summary.json`` content for an allocation checked on several scenarios:
+    the overall verdict (worst over scenarios), per block the worst case and the scenario it
+    occurs in, and each scenario's own summary under ``scenarios``."""
+    first = checks.checks[0]
+    per = []
+    for c in checks.checks:
+        d = summary_dict(c)
+        d.pop("utility", None)
+        d.pop("warnings", None)
+        d = {"scenario": c.scenario, **c.year.scenario_info, "calendar_year":
+             c.year.calendar_year, **d}
+        per.append(d)
+    return {
+        "utility": checks.study.settings.utility,
+        "year": checks.study.settings.year,
+        "rule": checks.rule,
+        "compliant": checks.compliant,
+        "scenarios_judged": list(checks.names),
+        "failing_scenarios": list(checks.failing_scenarios),
+        "verdict_covers": verdict_covers(checks),
+        "worst_violation_pp": checks.worst_violation_pp,
+        "blocks": [asdict(v) for v in checks.verdicts],
+        "intervals": int(first.year.n_intervals),
+        "interval_minutes": first.year.interval_minutes,
+        "customers_per_block": customers_per_block(first),
+        "scenarios": per,
+        "warnings": list(checks.warnings),
     }

@@ -25,10 +25,12 @@ EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
 # --------------------------------------------------------------------------------------------
 # shared steps
 # --------------------------------------------------------------------------------------------
-def _load(workbook: str, metered: str | None, console, quiet: bool):
-    """Read the workbook (and metered file) and build the year, with a spinner."""
+def _load(workbook: str, metered: str | None, console, quiet: bool,
+          scenarios: str | None = None):
+    """Read the workbook (and metered file) and build every scenario's year, with a
+    spinner.  Returns (study, years)."""
+    from .scenarios import build_years
     from .workbook import read_study
-    from .year import build_year
 
     with console.status("reading workbook", spinner="dots") if not quiet else _null():
         study = read_study(workbook)
@@ -41,9 +43,17 @@ def _load(workbook: str, metered: str | None, console, quiet: bool):
         with console.status("reading metered data") if not quiet else _null():
             met = read_metered(metered, study,
                                study_intervals(s.year, s.timezone, s.interval_minutes))
-    with console.status("building the year of net load") if not quiet else _null():
-        year = build_year(study, met)
-    return study, year
+    names = [n.strip() for n in scenarios.split(",") if n.strip()] if scenarios else None
+    with console.status("building the scenarios' years of net load") if not quiet else _null():
+        years = build_years(study, met, names)
+    return study, years
+
+
+def _year_notes(years) -> list[str]:
+    out: list[str] = []
+    for y in years:
+        out += [f"{y.scenario}: {n}" if len(years) > 1 else n for n in y.notes]
+    return out
 
 
 class _null:
@@ -82,17 +92,17 @@ def _checked_allocation(args, console, leaf: str):
     anything, read the inputs, take ``--assignment`` (or the workbook's current_block) and
     run the armed-load check.  Returns (out, study, year, check, warnings)."""
     from .assignment import current_assignment, read_assignment
-    from .check import run_check
+    from .check import run_checks
     from .safeio import check_out_dir
 
     out = Path(args.out) if args.out else _default_out(args.workbook, leaf)
     check_out_dir(out, _inputs(args))
-    study, year = _load(args.workbook, args.metered, console, args.quiet)
+    study, years = _load(args.workbook, args.metered, console, args.quiet, args.scenarios)
     if args.assignment:
         block_idx, warns = read_assignment(args.assignment, study)
     else:
         block_idx, warns = current_assignment(study)
-    return out, study, year, run_check(study, year, block_idx, warns), warns
+    return out, study, years, run_checks(study, years, block_idx, warns), warns
 
 
 def cmd_check(args, console) -> int:
@@ -100,7 +110,7 @@ def cmd_check(args, console) -> int:
     from .export import write_check_files
     from .safeio import atomic_dir
 
-    out, study, year, chk, warns = _checked_allocation(args, console, "check")
+    out, study, years, chk, warns = _checked_allocation(args, console, "check")
     with atomic_dir(out) as tmp:
         write_check_files(chk, tmp)
         _reports(args, chk, tmp,
@@ -108,7 +118,7 @@ def cmd_check(args, console) -> int:
     verdict_table(console, chk)
     worst_windows(console, chk)
     statement_table(console, chk)
-    warnings(console, list(warns) + list(year.notes))
+    warnings(console, list(warns) + _year_notes(years))
     console.print(f"Wrote {out}/")
     return EXIT_OK
 
@@ -122,30 +132,37 @@ def _reports(args, chk, out: Path, previous_idx=None, plan_info=None, before=Non
 
 
 def plan_json(outcome, chk, args_info: dict) -> dict:
-    """The ``plan.json`` content: the planner's own account plus the check's numbers."""
-    changed = int((outcome.block_idx != chk.study.current_assignment).sum())
+    """The ``plan.json`` content: the planner's own account plus the check's numbers
+    (``chk`` is the plan checked on every scenario)."""
+    from .check import verdict_covers
+
     return {
         "status": outcome.status,
-        "proven_optimal_worst_violation": outcome.proven,
         "every_interval_in_band": chk.worst_violation_pp <= 1e-9,
+        "scenarios": list(outcome.scenarios),
+        "verdict_covers": verdict_covers(chk),
+        "objective": outcome.objective,
+        "band_margin_pp": outcome.margin_pp,
+        "relays_changed": outcome.relays_changed,
+        "feeders_changed": outcome.feeders_changed,
+        "relays_changed_lower_bound": outcome.changes_lower_bound,
         "worst_violation_pp": chk.worst_violation_pp,
         "worst_violation_pct_of_target": 100.0 * chk.worst_relative_violation,
+        "worst_violation_proven_optimal": outcome.proven,
         "lower_bound_worst_violation_pct_of_target": (
             None if outcome.lower_bound_worst is None else 100.0 * outcome.lower_bound_worst),
-        "all_blocks_in_band_pct_of_intervals": 100.0 * chk.all_in_band_fraction,
         "mean_abs_deviation_pp": outcome.full_year["mad_pp"],
-        "changed_feeders": changed,
-        "objective_terms": {
-            "level_1_worst_violation_rel": outcome.full_year["worst_violation_rel"],
-            "level_2_mean_abs_deviation_pp": outcome.full_year["mad_pp"],
-            "level_3_changed_feeders": changed,
-        },
+        "headroom_pp": {v.block: {"to_min": v.headroom_to_min_pp, "to_max": v.headroom_to_max_pp}
+                        for v in chk.verdicts},
         "levels": outcome.levels,
         "combination": outcome.combination,
         "rounds": outcome.rounds,
         "intervals_in_model": {"band_rows": outcome.band_intervals,
                                "deviation_sample": outcome.mad_intervals,
-                               "year": int(chk.year.n_intervals)},
+                               "all_scenarios": int(sum(c.year.n_intervals
+                                                        for c in chk.checks))},
+        "exporting_standard_relays_kept_armed": list(outcome.exporting_kept),
+        "exporting_standard_relays_not_armed": list(outcome.exporting_avoided),
         "solve_seconds": outcome.seconds,
         "solver": outcome.solver,
         "solver_version": outcome.solver_version,
@@ -157,12 +174,13 @@ def plan_json(outcome, chk, args_info: dict) -> dict:
     }
 
 
-def _plan_into(args, console, study, year, out_tmp: Path, quiet: bool):
-    """Plan, write plan.csv / plan.json, check the plan into out_tmp/check/."""
+def _plan_into(args, console, study, years, out_tmp: Path, quiet: bool):
+    """Plan, write plan.csv / plan.json, check the plan on every scenario into
+    out_tmp/check/."""
     from rich.progress import Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
 
     from .assignment import assignment_rows
-    from .check import run_check
+    from .check import run_checks
     from .plan import plan_allocation
     import pandas as pd
     from .safeio import write_csv, write_json
@@ -179,11 +197,13 @@ def _plan_into(args, console, study, year, out_tmp: Path, quiet: bool):
             w = "…" if worst != worst else f"{100 * worst:.2f} % of target"
             prog.update(task, description=f"planning: {level}, round {round}, "
                         f"{intervals} intervals held, worst violation {w} [{status}]")
-        outcome = plan_allocation(study, year, solver=getattr(args, "solver", "highs"),
+        outcome = plan_allocation(study, years, solver=getattr(args, "solver", "highs"),
                                   time_limit_s=tl, max_changes=mc,
-                                  seed=getattr(args, "seed", 0), progress=cb)
+                                  seed=getattr(args, "seed", 0), progress=cb,
+                                  objective=getattr(args, "objective", None),
+                                  margin_pp=getattr(args, "margin", None))
         prog.update(task, description=f"planning done: {outcome.status}")
-    chk = run_check(study, year, outcome.block_idx)
+    chk = run_checks(study, years, outcome.block_idx)
     rows = assignment_rows(study, outcome.block_idx, previous=study.current_assignment)
     write_csv(pd.DataFrame(rows, columns=["feeder_id", "block", "previous_block", "changed"]),
               out_tmp / "plan.csv")
@@ -199,12 +219,16 @@ def _print_plan(console, outcome, chk, info) -> None:
 
     verdict_table(console, chk, "Planned allocation")
     worst_windows(console, chk)
-    colour = {"optimal": "green", "feasible": "green", "infeasible": "red"}.get(outcome.status,
-                                                                             "yellow")
-    console.print(f"Plan status: [{colour}]{outcome.status}[/{colour}]; "
-                  f"{info['changed_feeders']} feeder(s) change block; worst violation "
-                  f"{info['worst_violation_pp']:.2f} pp; solved in {outcome.seconds:.1f} s "
+    colour = "green" if outcome.status == "in_band" else "red"
+    words = {"in_band": "every block in band in every interval of every scenario",
+             "out_of_band": "not every block can be held in band"}
+    console.print(f"Plan: [{colour}]{words.get(outcome.status, outcome.status)}[/{colour}]; "
+                  f"{outcome.relays_changed} relay(s) change setting "
+                  f"({outcome.feeders_changed} feeder(s)); worst violation "
+                  f"{info['worst_violation_pp']:.2f} pp; {outcome.seconds:.1f} s "
                   f"({outcome.rounds} rounds, {outcome.solver_version}).")
+    for lv in outcome.levels:
+        console.print(f"  {lv['level']}: {lv['claim']}")
     for line in outcome.explanation:
         console.print(f"  [bold]why:[/bold] {line}")
     for line in outcome.events:
@@ -216,14 +240,14 @@ def cmd_plan(args, console) -> int:
 
     out = Path(args.out) if args.out else _default_out(args.workbook, "plan")
     check_out_dir(out, _inputs(args))
-    study, year = _load(args.workbook, args.metered, console, args.quiet)
+    study, years = _load(args.workbook, args.metered, console, args.quiet, args.scenarios)
     from .assignment import current_assignment
-    from .check import run_check
+    from .check import run_checks
 
     cur, cur_warns = current_assignment(study)
-    before = run_check(study, year, cur, cur_warns)
+    before = run_checks(study, years, cur, cur_warns)
     with atomic_dir(out) as tmp:
-        outcome, chk, info = _plan_into(args, console, study, year, tmp, args.quiet)
+        outcome, chk, info = _plan_into(args, console, study, years, tmp, args.quiet)
         _reports(args, chk, tmp, previous_idx=study.current_assignment,
                  plan_info=info, before=before)
     _print_plan(console, outcome, chk, info)
@@ -231,37 +255,68 @@ def cmd_plan(args, console) -> int:
     return EXIT_OK
 
 
-def _frequency_into(study, chk, out_tmp: Path, at, quiet, console):
-    """Run the frequency indication for ``chk`` and write its files into out_tmp."""
+def _frequency_into(study, checks, out_tmp: Path, at, quiet, console):
+    """Run the frequency indication on every scenario of ``checks`` (``--at`` times apply
+    to the scenarios in the study's calendar year) and write frequency.csv (a ``scenario``
+    column first) and frequency.json (each examined interval names its scenario).
+    Returns ([(scenario, FrequencyStudy)], summary)."""
+    import pandas as pd
+
+    from .export import as_set
     from .frequency_study import frequency_summary, frequency_table, run_frequency_study
     from .safeio import write_csv, write_json
 
+    cs = as_set(checks)
+    studies, tables, summary = [], [], None
     with console.status("frequency indication") if not quiet else _null():
-        fs = run_frequency_study(chk, at)
+        for c in cs.checks:
+            fs = run_frequency_study(c, at if c.year.calendar_year == study.settings.year
+                                     else None)
+            studies.append((c.scenario, fs))
+            t = frequency_table(fs)
+            t.insert(0, "scenario", c.scenario)
+            tables.append(t)
+            one = frequency_summary(fs)
+            for r in one["intervals"]:
+                r["scenario"] = c.scenario
+            if summary is None:
+                summary = one
+            else:
+                summary["intervals"] += one["intervals"]
     out_tmp.mkdir(parents=True, exist_ok=True)
-    write_csv(frequency_table(fs), out_tmp / "frequency.csv")
-    summary = frequency_summary(fs)
+    write_csv(pd.concat(tables, ignore_index=True), out_tmp / "frequency.csv")
     write_json(summary, out_tmp / "frequency.json")
-    return fs, summary
+    return studies, summary
 
 
-def _write_frequency_figures(fs, folder: Path) -> None:
-    """PNG files of the frequency figures (matplotlib Figure objects on the Agg canvas; no
-    pyplot, so no display backend is involved)."""
+def _write_frequency_figures(studies, folder: Path) -> None:
+    """PNG files of the frequency figures of every scenario, named ``<scenario>_<figure>``
+    when there are several (matplotlib Figure objects on the Agg canvas; no pyplot, so no
+    display backend is involved)."""
     from .frequency_study import frequency_figures
     from .safeio import safe_filename
 
     folder.mkdir(parents=True, exist_ok=True)
-    for name, fig in frequency_figures(fs).items():
-        fig.savefig(folder / f"{safe_filename(name)}.png", dpi=150,
-                    metadata={"Software": None})
+    for scenario, fs in studies:
+        prefix = f"{scenario}_" if len(studies) > 1 else ""
+        for name, fig in frequency_figures(fs).items():
+            fig.savefig(folder / f"{safe_filename(prefix + name)}.png", dpi=150,
+                        metadata={"Software": None})
 
 
-def _critical_trace_png(fs) -> bytes:
+def _critical_trace_png(studies) -> bytes:
+    """Traces at the most critical examined interval over every scenario."""
     import io
+
+    import numpy as np
 
     from .frequency_study import critical_traces_figure
 
+    def worst(fs):
+        lc = fs.largest_covered_pct
+        return float(np.min(np.where(np.isfinite(lc), lc, -1.0)))
+
+    fs = min((fs for _, fs in studies), key=worst)
     buf = io.BytesIO()
     critical_traces_figure(fs).savefig(buf, format="png", dpi=100, metadata={"Software": None})
     return buf.getvalue()
@@ -286,7 +341,7 @@ def _print_frequency(console, summary: dict) -> None:
 def cmd_frequency(args, console) -> int:
     from .safeio import atomic_dir
 
-    out, study, year, chk, _ = _checked_allocation(args, console, "frequency")
+    out, study, years, chk, _ = _checked_allocation(args, console, "frequency")
     with atomic_dir(out) as tmp:
         fs, summary = _frequency_into(study, chk, tmp, args.at, args.quiet, console)
         fmts = _formats(args)
@@ -306,17 +361,18 @@ def _formats(args) -> set[str]:
 def cmd_demo(args, console) -> int:
     """validate → check the current allocation → plan → check the plan → frequency → reports."""
     from .assignment import current_assignment
-    from .check import run_check
+    from .check import run_checks
     from .console import study_overview, verdict_table, warnings, worst_windows
     from .demo import demo_workbook_path
     from .export import write_check_files
     from .safeio import atomic_dir, write_csv
+    from .scenarios import build_years
     from .workbook import read_study
-    from .year import build_year, year_summary
+    from .year import year_summary
 
     out = Path(args.out)
     fmts = _formats(args)
-    stages = ["validate the workbook", "build the year of net load",
+    stages = ["validate the workbook", "build the scenarios' years of net load",
               "check the current allocation", "plan a new allocation", "check the plan",
               "frequency indication", "reports"]
     with atomic_dir(out) as tmp:
@@ -327,24 +383,26 @@ def cmd_demo(args, console) -> int:
             study = read_study(wb)
         study_overview(console, study)
         warnings(console, study.warnings, limit=5)
-        with step("build the year of net load"):
-            year = build_year(study)
-            summary = year_summary(study, year)
+        with step("build the scenarios' years of net load"):
+            years = build_years(study)
+            summary = year_summary(study, years[0])
             write_csv(summary, tmp / "year_summary.csv")
-        console.print(f"Year: {year.n_intervals} intervals × {len(study.feeders)} feeders; "
-                      f"demand {year.demand_mw.min():.0f}–{year.demand_mw.max():.0f} MW; "
-                      f"{int((summary['exporting_hours'] > 0).sum())} feeders export at some "
-                      "interval.")
+        for y in years:
+            console.print(f"Scenario {y.scenario}: {y.n_intervals} intervals × "
+                          f"{len(study.feeders)} feeders; demand {y.demand_mw.min():.0f}–"
+                          f"{y.demand_mw.max():.0f} MW; "
+                          f"{int(((y.net_mw < 0).any(axis=1)).sum())} feeders export at "
+                          "some interval.")
         with step("check the current allocation"):
             cur, cur_warns = current_assignment(study)
-            before = run_check(study, year, cur, cur_warns)
+            before = run_checks(study, years, cur, cur_warns)
             write_check_files(before, tmp / "current")
         verdict_table(console, before, "Current allocation")
         worst_windows(console, before, n=3)
         args.solver = "highs"
         args.max_changes = None
         with step("plan a new allocation"):
-            outcome, chk, info = _plan_into(args, console, study, year, tmp, True)
+            outcome, chk, info = _plan_into(args, console, study, years, tmp, True)
         with step("check the plan"):
             write_check_files(chk, tmp)
         _print_plan(console, outcome, chk, info)
@@ -408,25 +466,28 @@ class _Stage:
 def _demo_verdicts(console, before, after, fb, fa) -> None:
     from rich.table import Table
 
-    t = Table(title="Before and after", title_justify="left")
-    for c in ("block", "band %", "current min %", "planned min %", "current", "planned"):
-        t.add_column(c, no_wrap=True)
-    for sb, sa in zip(before.stats, after.stats):
+    t = Table(title="Before and after (worst over every scenario)", title_justify="left")
+    for c in ("block", "band %", "current lowest %", "planned lowest %", "current",
+              "planned"):
+        t.add_column(c, no_wrap=c != "block")
+    for sb, sa in zip(before.verdicts, after.verdicts):
         t.add_row(sb.block, f"{sb.min_pct:g}–{sb.max_pct:g}", f"{sb.min_share_pct:.1f}",
                   f"{sa.min_share_pct:.1f}",
-                  "[green]in band[/green]" if sb.compliant else "[red]out[/red]",
-                  "[green]in band[/green]" if sa.compliant else "[red]out[/red]")
+                  "[green]in band[/green]" if sb.compliant else "[red]out of band[/red]",
+                  "[green]in band[/green]" if sa.compliant else "[red]out of band[/red]")
     console.print(t)
     v = lambda c: "[green]COMPLIANT[/green]" if c.compliant else "[red]NOT COMPLIANT[/red]"
-    console.print(f"Verdict before: {v(before)}   after: {v(after)}")
-    lb = {r["interval"]: r["largest_covered_pct"] for r in fb["intervals"]}
-    la = {r["interval"]: r["largest_covered_pct"] for r in fa["intervals"]}
+    console.print(f"Verdict before: {v(before)}   after: {v(after)}   (scenarios "
+                  f"{', '.join(after.names)})")
+    key = lambda r: (r.get("scenario", ""), r["interval"])  # noqa: E731
+    lb = {key(r): r["largest_covered_pct"] for r in fb["intervals"]}
+    la = {key(r): r["largest_covered_pct"] for r in fa["intervals"]}
     crit_b = min((k for k in lb if lb[k] is not None), key=lambda k: lb[k], default=None)
-    if crit_b is not None:
-        console.print(f"Largest loss kept within {fb['floor_hz']:g}–{fb['ceiling_hz']:g} Hz at the worst interval: "
-                      f"{lb[crit_b]:g} % of demand before ({crit_b}), "
-                      f"{min(v for v in la.values() if v is not None):g} % after; typical "
-                      f"interval {lb.get('typical')} % before, {la.get('typical')} % after "
+    crit_a = [v for v in la.values() if v is not None]
+    if crit_b is not None and crit_a:
+        console.print(f"Largest loss kept within {fb['floor_hz']:g}–{fb['ceiling_hz']:g} Hz "
+                      f"at the worst interval: {lb[crit_b]:g} % of demand before "
+                      f"({crit_b[0]} {crit_b[1]}), {min(crit_a):g} % after "
                       "(indicative single-bus model).")
 
 
@@ -459,6 +520,9 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--assignment", help="CSV feeder_id,block (blank = unarmed); default: the "
                                         "workbook's current_block")
     c.add_argument("--metered", help="metered net load (CSV or Parquet: timestamp,feeder_id,mw)")
+    c.add_argument("--scenarios", metavar="NAMES",
+                   help="comma list of scenarios to judge (default: all of the workbook's, "
+                        "plus 'metered' with --metered)")
     c.add_argument("--out", help="output folder (default outputs/<workbook>/check/)")
     c.add_argument("--format", help="comma list of outputs among xlsx,html,png (default all; "
                                     "'none' for CSV/JSON only)")
@@ -472,6 +536,14 @@ def build_parser() -> argparse.ArgumentParser:
                                     "then check the plan.")
     pl.add_argument("workbook", help="study workbook (.xlsx)")
     pl.add_argument("--metered", help="metered net load (CSV or Parquet)")
+    pl.add_argument("--scenarios", metavar="NAMES",
+                    help="comma list of scenarios to hold (default: all)")
+    pl.add_argument("--objective", choices=("fewest_changes", "closest_to_target"),
+                    help="order after the worst violation (default: the workbook's "
+                         "'objective', else fewest_changes)")
+    pl.add_argument("--margin", type=float, metavar="PP",
+                    help="keep every block this many percentage points inside its band "
+                         "(default: the workbook's band_margin_pp, else 0)")
     pl.add_argument("--out", help="output folder (default outputs/<workbook>/plan/)")
     pl.add_argument("--time-limit", type=float, help="seconds for the whole plan (default: "
                                                       "the workbook's solver_time_limit_s)")
@@ -492,6 +564,8 @@ def build_parser() -> argparse.ArgumentParser:
     fq.add_argument("workbook", help="study workbook (.xlsx); optional sheet 'system'")
     fq.add_argument("--assignment", help="CSV feeder_id,block (default: current_block)")
     fq.add_argument("--metered", help="metered net load (CSV or Parquet)")
+    fq.add_argument("--scenarios", metavar="NAMES",
+                    help="comma list of scenarios (default: all)")
     fq.add_argument("--out", help="output folder (default outputs/<workbook>/frequency/)")
     fq.add_argument("--at", action="append", metavar="LOCAL_TIME",
                     help="also examine this local time, e.g. '2025-04-20 13:00' (repeatable)")

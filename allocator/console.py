@@ -45,32 +45,62 @@ def warnings(console: Console, items: list[str] | tuple[str, ...], limit: int = 
         console.print(f"  … and {len(items) - limit} more")
 
 
-def verdict_table(console: Console, check: Check, title: str = "Armed load per block") -> None:
-    t = Table(title=f"{title} — rule {check.rule}", title_justify="left", padding=(0, 1))
-    for c, j in (("block", "left"), ("Hz", "right"), ("band %", "right"), ("min %", "right"),
-                 ("P5 %", "right"), ("mean %", "right"), ("max %", "right"),
-                 ("<min", "right"), (">max", "right"), ("MWh short", "right"),
-                 ("verdict", "left")):
-        t.add_column(c, justify=j, no_wrap=True)
-    for s in check.stats:
-        t.add_row(escape(s.block), f"{s.pickup_hz:.2f}", f"{s.min_pct:g}–{s.max_pct:g}",
-                  f"{s.min_share_pct:.1f}", f"{s.p5_share_pct:.1f}",
-                  f"{s.mean_share_pct:.1f}", f"{s.max_share_pct:.1f}",
-                  str(s.intervals_below_min), str(s.intervals_above_max),
-                  f"{s.shortfall_mwh:.1f}",
-                  "[green]in band[/green]" if s.compliant else "[red]OUT[/red]")
+def verdict_table(console: Console, checks, title: str = "Armed load per block") -> None:
+    """Per block the worst case over every scenario (lowest and highest share, where, the
+    headroom to the band's edges), then one line per scenario, then the overall verdict."""
+    from .export import as_set
+
+    cs = as_set(checks)
+    t = Table(title=f"{title} — rule {cs.rule}", title_justify="left", padding=(0, 1))
+    for c, j in (("block", "left"), ("Hz", "right"), ("band %", "right"),
+                 ("lowest %", "right"), ("in", "left"), ("highest %", "right"),
+                 ("in", "left"), ("room to min/max pp", "right"), ("verdict", "left")):
+        t.add_column(c, justify=j, no_wrap=j == "right")
+    for v in cs.verdicts:
+        t.add_row(escape(v.block), f"{v.pickup_hz:.2f}", f"{v.min_pct:g}–{v.max_pct:g}",
+                  f"{v.min_share_pct:.1f}", escape(v.min_share_scenario),
+                  f"{v.max_share_pct:.1f}", escape(v.max_share_scenario),
+                  f"{v.headroom_to_min_pp:+.2f}/{v.headroom_to_max_pp:+.2f}",
+                  "[green]in band[/green]" if v.compliant else
+                  f"[red]out of band[/red] ({escape(', '.join(v.failing_scenarios))})")
     console.print(t)
-    v = "[green]COMPLIANT[/green]" if check.compliant else "[red]NOT COMPLIANT[/red]"
-    nonpos = int((~check.valid).sum())
-    console.print(f"Overall: {v}  (all blocks in band in {100 * check.all_in_band_fraction:.1f} % "
-                  f"of {check.year.n_intervals} intervals; worst violation "
-                  f"{check.worst_violation_pp:.2f} pp)"
-                  + (f"; {nonpos} intervals with demand ≤ 0 left out" if nonpos else ""))
+    scenario_table(console, cs)
+    v = "[green]COMPLIANT[/green]" if cs.compliant else "[red]NOT COMPLIANT[/red]"
+    bad = cs.failing_scenarios
+    console.print(f"Overall: {v} in {len(cs.checks) - len(bad)} of {len(cs.checks)} "
+                  f"scenario(s); worst violation {cs.worst_violation_pp:.2f} pp"
+                  + (f" (not compliant in {escape(', '.join(bad))})" if bad else ""))
 
 
-def statement_table(console: Console, check: Check) -> None:
+def scenario_table(console: Console, cs) -> None:
+    """One row per scenario: how it was made, its verdict and where it fails."""
+    t = Table(title="Scenarios judged", title_justify="left", padding=(0, 1))
+    for c, j in (("scenario", "left"), ("PV", "left"), ("year", "right"),
+                 ("in band %", "right"), ("worst pp", "right"), ("verdict", "left")):
+        t.add_column(c, justify=j, no_wrap=j == "right")
+    for c in cs.checks:
+        i = c.year.scenario_info
+        pv = str(i.get("pv", c.year.source))
+        if i.get("pv_scale", 1.0) != 1.0:
+            pv += f" ×{i['pv_scale']:g}"
+        if i.get("load_scale", 1.0) != 1.0:
+            pv += f", load ×{i['load_scale']:g}"
+        bad = [s.block for s in c.stats if not s.compliant]
+        t.add_row(escape(c.scenario), escape(pv), str(c.year.calendar_year),
+                  f"{100 * c.all_in_band_fraction:.1f}", f"{c.worst_violation_pp:.2f}",
+                  "[green]compliant[/green]" if c.compliant else
+                  f"[red]not compliant[/red] ({escape(', '.join(bad))})")
+    console.print(t)
+
+
+def statement_table(console: Console, checks) -> None:
+    from .check import statement_check
+    from .export import as_set
+
+    check = statement_check(as_set(checks))
     t = Table(title="Annual statement: frequency setting and % of netted demand disconnected "
-              "(Regulation (EU) 2017/2196 Art. 35(1))", title_justify="left")
+              "(Regulation (EU) 2017/2196 Art. 35(1))", title_justify="left",
+              caption=f"scenario {escape(check.scenario)}", caption_justify="left")
     for c in ("block", "pickup Hz", "delay s", "mean %", "min %", "cum. mean %", "cum. min %"):
         t.add_column(c, justify="right" if c != "block" else "left", no_wrap=True)
     for r in annual_statement(check):
@@ -81,16 +111,19 @@ def statement_table(console: Console, check: Check) -> None:
     console.print(t)
 
 
-def worst_windows(console: Console, check: Check, n: int = 5) -> None:
-    w = check.windows()
+def worst_windows(console: Console, check, n: int = 5) -> None:
+    from .export import as_set
+
+    w = as_set(check).windows()
     if w.empty:
-        console.print("No interval outside any block's band.")
+        console.print("No interval outside any block's band in any scenario.")
         return
     t = Table(title=f"Worst windows outside the band (of {len(w)})", title_justify="left")
-    for c in ("#", "block", "kind", "start", "end", "hours", "worst %", "MWh"):
-        t.add_column(c, no_wrap=True)
+    for c in ("#", "scenario", "block", "kind", "start", "end", "hours", "worst %", "MWh"):
+        t.add_column(c, no_wrap=c in ("#", "start", "end", "hours", "worst %", "MWh"))
     for r in w.head(n).itertuples():
-        t.add_row(str(r.rank), escape(r.block), "below min" if r.kind == "below_min" else "above max",
+        t.add_row(str(r.rank), escape(r.scenario), escape(r.block),
+                  "below band" if r.kind == "below_min" else "above band",
                   r.start_local, r.end_local, f"{r.duration_h:g}", f"{r.worst_share_pct:.1f}",
                   f"{r.energy_mwh:.1f}")
     console.print(t)

@@ -46,12 +46,54 @@ class Settings:
     #: level 3 of the planner may let the mean deviation from target rise by this % of
     #: level 2's value to save relay changes (0 = strictly lexicographic)
     deviation_tolerance_pct: float = 10.0
+    #: the planner keeps every block within [min + margin, max − margin] (pp of demand)
+    band_margin_pp: float = 0.0
+    #: planner objective order: "fewest_changes" | "closest_to_target"
+    objective: str = "fewest_changes"
+    #: "allow" | "avoid": may a new plan arm exporting feeders on standard relays
+    exporting_standard_relays: str = "allow"
+    #: fixed plane of the weather-year PV (degrees; azimuth None = equator-facing)
+    pv_tilt_deg: float = 0.0
+    pv_azimuth_deg: float | None = None
 
     @property
     def rule_text(self) -> str:
         if self.compliance_rule == "percentile":
             return f"percentile:{self.compliance_percentile:g}"
         return self.compliance_rule
+
+
+PV_KINDS: tuple[str, ...] = ("clear_sky", "none", "weather")
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """One year to judge a plan on (the ``scenarios`` sheet, or the defaults).
+
+    ``pv``: ``clear_sky`` (clear sky every day), ``none`` (no PV output: an overcast year) or
+    ``weather`` (the irradiance year in ``weather_file``).  ``pv_scale`` multiplies every
+    feeder's ``pv_mw``, ``load_scale`` every ``peak_mw`` (growth until the next review);
+    ``year`` is the calendar year built (its own weekdays, holidays and DST days).
+    """
+
+    name: str
+    pv: str
+    year: int
+    pv_scale: float = 1.0
+    load_scale: float = 1.0
+    weather_file: str | None = None
+    row: int | None = None  # row in the scenarios sheet (None: a default scenario)
+
+    @property
+    def pv_text(self) -> str:
+        return f"weather:{self.weather_file}" if self.pv == "weather" else self.pv
+
+
+def default_scenarios(year: int) -> tuple[Scenario, ...]:
+    """Without a ``scenarios`` sheet: clear-sky PV and no PV output, both in the study year.
+    Clear sky gives the lowest netted load on PV-rich feeders (the low edge of a band);
+    no PV the highest on the others, so the two bracket the weather in between."""
+    return (Scenario("clear_sky", "clear_sky", year), Scenario("no_pv", "none", year))
 
 
 @dataclass(frozen=True)
@@ -119,6 +161,12 @@ class Study:
     profiles: Profiles
     system: dict[str, object] = field(default_factory=dict)  # {"values": {...}, "rows": {...}}
     warnings: tuple[str, ...] = ()
+    #: the years a plan is judged on; empty = :func:`default_scenarios` of the study year
+    scenario_list: tuple[Scenario, ...] = ()
+
+    @cached_property
+    def scenarios(self) -> tuple[Scenario, ...]:
+        return self.scenario_list or default_scenarios(self.settings.year)
 
     # ---- per-feeder arrays, feeder order -------------------------------------------------
     @cached_property
@@ -180,6 +228,23 @@ class Study:
                     allowed[i, :] = False
                     allowed[i, last] = keep
         return allowed
+
+    @cached_property
+    def relay_index(self) -> np.ndarray:
+        """``[feeder]`` index of the relay that trips it: the members of a trip group share
+        one relay (one setting, one site visit), every other feeder has its own."""
+        out = np.arange(len(self.feeders), dtype=np.intp)
+        for members in self.trip_groups().values():
+            out[members] = members[0]
+        _, dense = np.unique(out, return_inverse=True)
+        return dense.astype(np.intp)
+
+    def relays_changed(self, new: np.ndarray, old: np.ndarray | None = None) -> int:
+        """How many relays get a new block setting going from ``old`` (default: the current
+        allocation) to ``new`` (block index per feeder); a trip group counts once."""
+        old = self.current_assignment if old is None else np.asarray(old)
+        diff = np.asarray(new) != old
+        return int(np.unique(self.relay_index[diff]).size)
 
     def trip_groups(self) -> dict[str, list[int]]:
         """Trip-group id → feeder indices (only groups named in the workbook)."""

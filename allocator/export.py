@@ -1,31 +1,53 @@
 """Write a check's files into an output folder (the folder itself is made atomic by the
-caller; see :func:`allocator.safeio.atomic_dir`)."""
+caller; see :func:`allocator.safeio.atomic_dir`).
+
+With several scenarios every table gets a ``scenario`` column (first) and holds the rows of
+every scenario, one after the other; ``summary.json`` carries the overall verdict (the worst
+over scenarios) and each scenario's own summary.
+"""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-from .check import (Check, by_substation, exporting_feeders, low_load_view, summary_dict)
+import pandas as pd
+
+from .check import (Check, ScenarioChecks, by_substation, exporting_feeders, low_load_view,
+                    summary_set_dict)
 from .safeio import write_csv, write_json
 
+CHECK_FILES = ("summary.json", "armed_load.csv", "shortfalls.csv", "exporting_feeders.csv",
+               "by_substation.csv", "low_load.csv")
 
-def write_check_files(check: Check, out: Path) -> dict[str, Path]:
+
+def as_set(checks: Check | ScenarioChecks) -> ScenarioChecks:
+    """A single-scenario :class:`Check` as a one-element :class:`ScenarioChecks`."""
+    if isinstance(checks, ScenarioChecks):
+        return checks
+    return ScenarioChecks(checks.study, (checks,), checks.warnings)
+
+
+def stacked(checks: ScenarioChecks, table) -> pd.DataFrame:
+    """``table(check)`` for every scenario, stacked, with a ``scenario`` column first."""
+    frames = []
+    for c in checks.checks:
+        df = table(c)
+        df.insert(0, "scenario", c.scenario)
+        frames.append(df)
+    frames = [f for f in frames if not f.empty] or frames[:1]
+    return pd.concat(frames, ignore_index=True)
+
+
+def write_check_files(checks: Check | ScenarioChecks, out: Path) -> dict[str, Path]:
     """summary.json, armed_load.csv, shortfalls.csv, exporting_feeders.csv,
     by_substation.csv, low_load.csv.  Returns name → path."""
+    cs = as_set(checks)
     out.mkdir(parents=True, exist_ok=True)
-    paths = {
-        "summary": out / "summary.json",
-        "armed_load": out / "armed_load.csv",
-        "shortfalls": out / "shortfalls.csv",
-        "exporting_feeders": out / "exporting_feeders.csv",
-        "by_substation": out / "by_substation.csv",
-        "low_load": out / "low_load.csv",
-    }
-    write_json(summary_dict(check), paths["summary"])
-    write_csv(check.armed_load_table(), paths["armed_load"])
-    w = check.windows().drop(columns=["_start"])
-    write_csv(w, paths["shortfalls"])
-    write_csv(exporting_feeders(check), paths["exporting_feeders"])
-    write_csv(by_substation(check), paths["by_substation"])
-    write_csv(low_load_view(check), paths["low_load"])
+    paths = {name.split(".")[0]: out / name for name in CHECK_FILES}
+    write_json(summary_set_dict(cs), paths["summary"])
+    write_csv(stacked(cs, lambda c: c.armed_load_table()), paths["armed_load"])
+    write_csv(cs.windows().drop(columns=["_start"]), paths["shortfalls"])
+    write_csv(stacked(cs, exporting_feeders), paths["exporting_feeders"])
+    write_csv(stacked(cs, by_substation), paths["by_substation"])
+    write_csv(stacked(cs, low_load_view), paths["low_load"])
     return paths

@@ -25,7 +25,9 @@ from .domain import (
     RELAY_KINDS,
     Block,
     Feeder,
+    PV_KINDS,
     Profiles,
+    Scenario,
     Settings,
     Study,
 )
@@ -48,7 +50,13 @@ SETTING_KEYS_REQUIRED = ("utility", "year", "timezone", "nominal_hz", "interval_
                          "compliance_rule")
 SETTING_KEYS_OPTIONAL = ("holiday_country", "holiday_subdivision", "pv_derate", "max_changes",
                          "solver_time_limit_s", "mip_gap", "gap_fill",
-                         "max_substation_share_pct", "deviation_tolerance_pct")
+                         "max_substation_share_pct", "deviation_tolerance_pct",
+                         "band_margin_pp", "objective", "exporting_standard_relays",
+                         "pv_tilt_deg", "pv_azimuth_deg")
+SCENARIO_COLUMNS = ("scenario", "pv")
+SCENARIO_OPTIONAL = ("pv_scale", "load_scale", "year")
+OBJECTIVES = ("fewest_changes", "closest_to_target")
+EXPORTING_CHOICES = ("allow", "avoid")
 
 
 def max_workbook_bytes() -> int:
@@ -352,6 +360,18 @@ def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, l
               what="a percentage 0..100")
     dev_tol = num("deviation_tolerance_pct", required=False, minimum=0, maximum=1000,
                   what="a percentage ≥ 0")
+    margin = num("band_margin_pp", required=False, minimum=0, maximum=50,
+                 what="percentage points ≥ 0")
+    objective = txt("objective") or "fewest_changes"
+    if objective not in OBJECTIVES:
+        bad("objective", f"expected {' or '.join(OBJECTIVES)}, found '{objective}'")
+    exporting = (txt("exporting_standard_relays") or "allow").lower()
+    if exporting not in EXPORTING_CHOICES:
+        bad("exporting_standard_relays", f"expected 'allow' or 'avoid', found '{exporting}'")
+    tilt = num("pv_tilt_deg", required=False, minimum=0, maximum=90,
+               what="a tilt in degrees 0..90")
+    azimuth = num("pv_azimuth_deg", required=False, minimum=0, maximum=360,
+                  what="an azimuth in degrees 0..360 (180 = south)")
     if len(col.problems) > n_before or any(
             v is None for v in (utility, year, tz, nominal, interval, lat, lon, basis, policy,
                                 rule)):
@@ -367,6 +387,9 @@ def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, l
         mip_gap=float(gap) if gap is not None else 1e-4, gap_fill=gap_fill,
         max_substation_share_pct=mss,
         deviation_tolerance_pct=10.0 if dev_tol is None else float(dev_tol),
+        band_margin_pp=0.0 if margin is None else float(margin), objective=objective,
+        exporting_standard_relays=exporting,
+        pv_tilt_deg=0.0 if tilt is None else float(tilt), pv_azimuth_deg=azimuth,
     ), warnings
 
 
@@ -655,6 +678,84 @@ def _cross_checks(col: Collector, settings: Settings | None, blocks: list[Block]
     return warnings
 
 
+_SCENARIO_NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9 ._+-]{0,39}")
+
+
+def _parse_pv(col: Collector, cells: "_Cells", r: Row, base: Path) -> tuple[str, str | None]:
+    """The ``pv`` cell: ``clear_sky``, ``none`` or ``weather:FILE`` (FILE relative to the
+    workbook's folder unless absolute).  Returns (kind, weather file path or None)."""
+    raw = cells.text(r, "pv")
+    if raw is None:
+        return "", None
+    kind, _, rest = raw.partition(":")
+    kind = kind.strip().lower()
+    if kind in ("clear_sky", "none") and not rest:
+        return kind, None
+    if kind == "weather" and rest.strip():
+        f = Path(rest.strip())
+        f = f if f.is_absolute() else base / f
+        if not f.is_file():
+            col.add(f"weather file not found: {f}", "scenarios", r.number, "pv")
+            return "", None
+        return "weather", str(f)
+    col.add(f"expected clear_sky, none or weather:FILE (a TMY3 .csv or an .epw irradiance "
+            f"file), found '{raw[:60]}'", "scenarios", r.number, "pv")
+    return "", None
+
+
+def _parse_scenarios(col: Collector, rows: list[Row], study_year: int | None,
+                     base: Path) -> list[Scenario]:
+    """The optional ``scenarios`` sheet; every problem collected."""
+    sheet = "scenarios"
+    cells = _Cells(col, sheet)
+    out: list[Scenario] = []
+    seen: dict[str, int] = {}
+    for r in rows:
+        n0 = len(col.problems)
+        name = cells.text(r, "scenario")
+        if name is not None:
+            if not _SCENARIO_NAME.fullmatch(name):
+                col.add(f"expected a name of 1-40 letters, digits, spaces or ._+- starting "
+                        f"with a letter or digit, found '{name[:60]}'", sheet, r.number,
+                        "scenario")
+            elif name.lower() in seen:
+                col.add(f"scenario '{name}' appears twice (also row {seen[name.lower()]})",
+                        sheet, r.number, "scenario")
+            seen.setdefault((name or "").lower(), r.number)
+        kind, wfile = _parse_pv(col, cells, r, base)
+        pv_scale = cells.number(r, "pv_scale", required=False, minimum=0, maximum=100,
+                                what="a multiplier ≥ 0")
+        load_scale = cells.number(r, "load_scale", required=False, maximum=100,
+                                  what="a multiplier")
+        if load_scale is not None and load_scale <= 0:
+            col.add(f"expected a multiplier > 0, found {load_scale:g}", sheet, r.number,
+                    "load_scale")
+        year = cells.number(r, "year", required=False, minimum=1900, maximum=2200,
+                            what="a year such as 2026")
+        if year is not None and not float(year).is_integer():
+            col.add(f"expected a whole year, found {year}", sheet, r.number, "year")
+        if len(col.problems) > n0 or study_year is None and year is None:
+            continue
+        out.append(Scenario(name, kind, int(year) if year is not None else int(study_year),
+                            1.0 if pv_scale is None else pv_scale,
+                            1.0 if load_scale is None else load_scale, wfile, r.number))
+    if not rows:
+        col.add("the scenarios sheet has no rows; delete it to use the default scenarios "
+                "(clear_sky and no_pv)", sheet, None, None)
+    return out
+
+
+def _weather_problems(col: Collector, scenarios: list[Scenario]) -> None:
+    """Read every weather file once so a bad one is reported with the workbook's problems."""
+    from .weather import read_weather
+
+    for sc in {s.weather_file: s for s in scenarios if s.pv == "weather"}.values():
+        try:
+            read_weather(sc.weather_file)
+        except InputError as exc:
+            col.extend(exc.problems)
+
+
 def read_study(path: str | os.PathLike) -> Study:
     """Read, validate and type the workbook at ``path``.
 
@@ -716,15 +817,24 @@ def read_study(path: str | os.PathLike) -> Study:
                     continue
                 system[_text(k).lower()] = r.values.get("value")
                 system_rows[_text(k).lower()] = r.number
+    scenarios: list[Scenario] = []
+    if "scenarios" in sheets:
+        h, rows = sheets["scenarios"]
+        if _require_columns(col, "scenarios", h, SCENARIO_COLUMNS):
+            scenarios = _parse_scenarios(col, rows, settings.year if settings else None,
+                                         p.resolve().parent)
+            _weather_problems(col, scenarios)
     col.raise_if_any()
     assert settings is not None and profiles is not None
     profiles = Profiles(profiles.names, profiles.seasons, profiles.values_pu, month_season,
                         profiles.resolution_minutes)
     study = Study(str(p), settings, tuple(blocks), tuple(feeders), profiles,
-                  system={"values": system, "rows": system_rows}, warnings=())
+                  system={"values": system, "rows": system_rows}, warnings=(),
+                  scenario_list=tuple(scenarios))
     warnings += _scheme_warnings(study)
     return Study(study.path, settings, study.blocks, study.feeders, profiles,
-                 system=study.system, warnings=tuple(warnings))
+                 system=study.system, warnings=tuple(warnings),
+                 scenario_list=study.scenario_list)
 
 
 def _scheme_warnings(study: Study) -> list[str]:

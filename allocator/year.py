@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from .domain import DAY_TYPES, MINUTES_PER_DAY, Settings, Study
+from .domain import DAY_TYPES, MINUTES_PER_DAY, Scenario, Settings, Study
 from .solar import clearsky_pv_pu
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -46,12 +46,16 @@ class Year:
     feeder_ids: tuple[str, ...]
     net_mw: np.ndarray  # [feeder, interval]
     demand_mw: np.ndarray  # [interval]
-    pv_pu: np.ndarray  # [interval] clear-sky PV per unit of installed capacity
+    pv_pu: np.ndarray  # [interval] PV per unit of installed capacity (before derate)
     season_index: np.ndarray  # [interval] index into Study.profiles.seasons
     day_type_index: np.ndarray  # [interval] index into DAY_TYPES
     source: str = "profiles"  # "profiles" | "metered"
     flags: tuple[FeederFlag, ...] = ()
     notes: tuple[str, ...] = field(default_factory=tuple)
+    #: the scenario this year is (its name appears in every output)
+    scenario: str = "clear_sky"
+    #: how the scenario was made, for reports: pv kind, scales, calendar year
+    scenario_info: dict = field(default_factory=dict)
 
     @property
     def n_intervals(self) -> int:
@@ -64,6 +68,11 @@ class Year:
     @cached_property
     def local_times(self) -> pd.DatetimeIndex:
         return self.timestamps_utc.tz_convert(self.timezone)
+
+    @property
+    def calendar_year(self) -> int:
+        """The local calendar year the intervals cover."""
+        return int(self.local_times[0].year) if self.n_intervals else 0
 
 
 # --------------------------------------------------------------------------------------------
@@ -78,16 +87,16 @@ def study_intervals(year: int, timezone: str, interval_minutes: int) -> pd.Datet
                          freq=pd.Timedelta(minutes=interval_minutes))
 
 
-def holiday_dates(settings: Settings) -> set:
-    """Public holidays of the configured country/subdivision for the study year
-    (``holidays`` package); empty when no country is set."""
+def holiday_dates(settings: Settings, year: int | None = None) -> set:
+    """Public holidays of the configured country/subdivision for ``year`` (default the
+    study year; ``holidays`` package); empty when no country is set."""
     if not settings.holiday_country:
         return set()
     import holidays
 
     cal = holidays.country_holidays(settings.holiday_country,
                                     subdiv=settings.holiday_subdivision,
-                                    years=[settings.year])
+                                    years=[settings.year if year is None else year])
     return set(cal.keys())
 
 
@@ -135,24 +144,50 @@ def gross_load_mw(study: Study, local_times: pd.DatetimeIndex, season_idx: np.nd
     return out
 
 
-def build_year(study: Study, metered: "MeteredData | None" = None) -> Year:
-    """Build the study year of per-feeder net load.
+REFERENCE_SCENARIO = Scenario("clear_sky", "clear_sky", 0)
 
-    Profile path: net = peak_mw × profile(season, day type, local time) − pv_mw × pv_derate
-    × clear-sky PV per unit.  With ``metered`` data, metered values replace the profile ones
-    where present; gaps are filled by ``gap_fill`` (see :mod:`allocator.metered`).
+
+def scenario_pv_pu(study: Study, scenario: Scenario, ts: pd.DatetimeIndex) -> np.ndarray:
+    """``[interval]`` PV per unit of installed capacity for the scenario's PV kind:
+    clear sky (:mod:`allocator.solar`), none (zeros) or a weather year
+    (:mod:`allocator.weather`, on the plane of ``pv_tilt_deg``/``pv_azimuth_deg``)."""
+    s = study.settings
+    if scenario.pv == "none":
+        return np.zeros(len(ts))
+    if scenario.pv == "weather":
+        from .weather import read_weather, weather_pv_pu
+
+        return weather_pv_pu(read_weather(scenario.weather_file), ts, s.timezone,
+                             s.interval_minutes, tilt_deg=s.pv_tilt_deg,
+                             azimuth_deg=s.pv_azimuth_deg)
+    return clearsky_pv_pu(ts, s.interval_minutes, s.latitude_deg, s.longitude_deg)
+
+
+def build_year(study: Study, metered: "MeteredData | None" = None,
+               scenario: Scenario | None = None) -> Year:
+    """Build one year of per-feeder net load: the scenario's calendar year, PV and scales.
+
+    Profile path: net = load_scale × peak_mw × profile(season, day type, local time)
+    − pv_scale × pv_mw × pv_derate × PV per unit (clear sky, none or a weather year).
+    ``scenario`` None is the clear-sky study year.  With ``metered`` data (the metered
+    scenario, in the study year), metered values replace the profile ones where present;
+    gaps are filled by ``gap_fill`` (see :mod:`allocator.metered`).
     Demand per ``demand_basis``: ``feeders`` = sum of all feeders' net load;
     ``metered_total`` = the metered TOTAL series.
     """
     s = study.settings
-    ts = study_intervals(s.year, s.timezone, s.interval_minutes)
+    sc = scenario or REFERENCE_SCENARIO
+    cal_year = s.year if (scenario is None or metered is not None) else sc.year
+    ts = study_intervals(cal_year, s.timezone, s.interval_minutes)
     local = ts.tz_convert(s.timezone)
     season_idx = study.profiles.month_season[local.month.to_numpy() - 1]
-    day_idx = day_type_index(local, holiday_dates(s))
-    pv_pu = clearsky_pv_pu(ts, s.interval_minutes, s.latitude_deg, s.longitude_deg)
+    day_idx = day_type_index(local, holiday_dates(s, cal_year))
+    pv_pu = scenario_pv_pu(study, sc, ts)
 
     net = gross_load_mw(study, local, season_idx, day_idx)
-    pv_cap = study.pv_mw * s.pv_derate
+    if sc.load_scale != 1.0:
+        net *= sc.load_scale
+    pv_cap = study.pv_mw * s.pv_derate * sc.pv_scale
     for a in range(0, net.shape[0], _CHUNK_FEEDERS):
         b = min(a + _CHUNK_FEEDERS, net.shape[0])
         net[a:b] -= pv_cap[a:b, None] * pv_pu[None, :]
@@ -180,8 +215,13 @@ def build_year(study: Study, metered: "MeteredData | None" = None) -> Year:
     net.setflags(write=False)
     demand = np.asarray(demand, dtype=float)
     demand.setflags(write=False)
+    name = "metered" if metered is not None else sc.name
+    info = ({"pv": "metered", "pv_scale": 1.0, "load_scale": 1.0, "year": cal_year}
+            if metered is not None else
+            {"pv": sc.pv_text, "pv_scale": sc.pv_scale, "load_scale": sc.load_scale,
+             "year": cal_year})
     return Year(ts, s.timezone, s.interval_minutes, study.feeder_ids, net, demand, pv_pu,
-                season_idx, day_idx, source, tuple(flags), tuple(notes))
+                season_idx, day_idx, source, tuple(flags), tuple(notes), name, info)
 
 
 def year_summary(study: Study, year: Year) -> pd.DataFrame:

@@ -1,24 +1,29 @@
-"""Say in a planner's words why a scheme cannot be held in band, before and after solving."""
+"""Say in a planner's words why a plan looks as it does, before and after solving."""
 
 from __future__ import annotations
+
+import math
 
 import numpy as np
 
 from ..domain import Study
-from ..year import Year
+from ..timefmt import iso_local
 from .heuristic import Band, shares, violation_rel
 from .units import Units
 
 
-def _when(year: Year, units: Units, pos: int) -> str:
-    t = units.valid_index[pos]
-    return year.local_times[t].strftime("%a %d %b %Y %H:%M %Z")
+def _when(years, units: Units, pos: int) -> str:
+    """Scenario and local time of a column: ``no_pv 2025-06-02T13:00+02:00``."""
+    k = 0 if units.col_scenario is None else int(units.col_scenario[pos])
+    y = years[k]
+    return f"{y.scenario} {iso_local(y.local_times[units.valid_index[pos]])}"
 
 
-def explain_before(study: Study, year: Year, units: Units, band: Band) -> list[str]:
-    """Necessary conditions checked on every interval before any solve.
+def explain_before(study: Study, years, units: Units, band: Band) -> list[str]:
+    """Necessary conditions checked on every column (every interval of every scenario)
+    before any solve.
 
-    At interval t no plan can give block b more than the sum of the positive contributions
+    At a column no plan can give block b more than the sum of the positive contributions
     of the units allowed in it, nor the whole scheme more than that over all armable units
     (a unit is in one block only, and exporting feeders are best left out)."""
     out: list[str] = []
@@ -30,44 +35,88 @@ def explain_before(study: Study, year: Year, units: Units, band: Band) -> list[s
     need = float(band.lo.sum())
     t = int(np.argmin(total))
     if total[t] < need - 1e-9:
-        out.append(f"The armable, non-priority load at its lowest interval ({_when(year, units, t)}) "
-                   f"is {total[t]:.1f} % of demand, while the blocks' minima add to {need:.1f} %: "
-                   "no allocation can keep every block in band there.")
+        out.append(f"The armable, non-priority load at its lowest interval "
+                   f"({_when(years, units, t)}) is {total[t]:.1f} % of demand, while the "
+                   f"blocks' minima add to {need:.1f} %: no allocation can keep every block "
+                   "in band there.")
     for b, blk in enumerate(study.blocks):
         cap = pos[units.allowed[:, b]].sum(axis=0)
         tb = int(np.argmin(cap))
         if cap[tb] < band.lo[b] - 1e-9:
             out.append(f"Block {blk.name}: the feeders that may be armed in it carry at most "
-                       f"{cap[tb]:.1f} % of demand at {_when(year, units, tb)}, below its "
-                       f"minimum of {blk.min_pct:g} %.")
+                       f"{cap[tb]:.1f} % of demand at {_when(years, units, tb)}, below the "
+                       f"{band.lo[b]:g} % the plan must hold.")
     return out
 
 
-def explain_after(study: Study, year: Year, units: Units, band: Band, option: np.ndarray,
-                  key: tuple, lower_bound: float | None, max_changes: int | None) -> list[str]:
-    """Where the chosen plan still leaves a block out of band, and whether that is proven
-    unavoidable."""
+def explain_after(study: Study, years, units: Units, band: Band, option: np.ndarray,
+                  key: tuple, lower_bound: float | None, max_changes: int | None,
+                  margin_pp: float = 0.0) -> list[str]:
+    """Where the chosen plan still leaves a block outside the band it must hold (the band
+    narrowed by the margin), and whether that is proven unavoidable."""
     out: list[str] = []
     if key[0] <= 1e-9:
         return out
     s = shares(units, option)
     v = violation_rel(s, band)
+    what = "band" if not margin_pp else f"band less the {margin_pp:g} pp margin"
     for b, blk in enumerate(study.blocks):
         if v[b].max() <= 1e-9:
             continue
         t = int(np.argmax(v[b]))
         n_bad = int((v[b] > 1e-9).sum())
-        side = "below its minimum" if s[b, t] < band.lo[b] else "above its maximum"
-        lim = blk.min_pct if s[b, t] < band.lo[b] else blk.max_pct
-        out.append(f"Block {blk.name} is {side} in {n_bad} interval(s); worst {s[b, t]:.1f} % "
-                   f"against {lim:g} % at {_when(year, units, t)}.")
+        low = s[b, t] < band.lo[b]
+        lim = band.lo[b] if low else band.hi[b]
+        out.append(f"Block {blk.name} is {'below' if low else 'above'} its {what} in {n_bad} "
+                   f"interval(s); worst {s[b, t]:.1f} % against {lim:g} % at "
+                   f"{_when(years, units, t)}.")
     if lower_bound is not None and lower_bound > 1e-9:
         rules = "these feeders and rules" + (f" and at most {max_changes} changes"
                                               if max_changes is not None else "")
         out.append(f"This is unavoidable with {rules}: no allocation has a worst violation "
                    f"below {100 * lower_bound:.2f} % of target (solver bound on a subset of "
-                   "intervals, valid for the whole year).")
+                   "intervals, valid for every scenario).")
     elif max_changes is None:
         out.append("The solver did not prove that a better plan is impossible within the time "
                    "limit; a longer --time-limit may improve it.")
     return out
+
+
+def explain_changes(levels: list[dict], changes: float) -> list[str]:
+    """"At least 9 changes are needed; this plan makes 11" when the bound is known."""
+    for info in levels:
+        if info.get("level") != "relays changed" or info.get("bound") is None:
+            continue
+        need = max(0, math.ceil(info["bound"] - 1e-6))
+        n = int(round(changes))
+        if info.get("proven_optimal"):
+            return [f"{n} relay changes is the fewest that holds this result in every "
+                    "scenario (proven by the solver's bound)."]
+        return [f"At least {need} relay changes are needed to hold this result in every "
+                f"scenario; this plan makes {n}."]
+    return []
+
+
+def explain_exporting(ctx, option: np.ndarray, explanation: list[str]
+                      ) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """``exporting_standard_relays = avoid``: which exporting feeders on standard relays the
+    plan keeps armed (only where disarming them would break the band) and which it leaves
+    out.  Returns (kept, avoided) feeder ids and adds a sentence to ``explanation``."""
+    units, study = ctx.units, ctx.study
+    m = ctx.exporting_mask
+    if m is None or not m.any():
+        return (), ()
+    armed = option < units.n_blocks
+    ids = study.feeder_ids
+    kept = tuple(ids[f] for u in np.flatnonzero(m & armed) for f in units.members[u])
+    avoided = tuple(ids[f] for u in np.flatnonzero(m & ~armed) for f in units.members[u])
+    if kept:
+        explanation.append(
+            f"{len(kept)} exporting feeder(s) on standard relays stay armed: the planner found "
+            f"no plan without them that holds the band in every scenario: "
+            f"{', '.join(kept[:20])}"
+            + (" ..." if len(kept) > 20 else "") + ".")
+    if avoided:
+        explanation.append(f"{len(avoided)} feeder(s) that export in some interval and have "
+                           "standard relays are not armed (exporting_standard_relays = avoid).")
+    return kept, avoided

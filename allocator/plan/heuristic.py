@@ -254,7 +254,8 @@ def _better(a: tuple, b: tuple, tol: float = 1e-9) -> bool:
 
 
 def revert_pass(units: Units, band: Band, option: np.ndarray, z_cap: float,
-                mad_cap: float, rng: np.random.Generator, max_passes: int = 3) -> np.ndarray:
+                mad_cap: float, rng: np.random.Generator, max_passes: int = 3,
+                deadline: float = float("inf")) -> np.ndarray:
     """Level-3 helper: move changed units back to their current block (or to unarmed when
     that is what they were) one at a time, keeping the full-year worst violation ≤ z_cap and
     the full-year mean absolute deviation ≤ mad_cap.  Each trial updates two rows of the
@@ -275,6 +276,8 @@ def revert_pass(units: Units, band: Band, option: np.ndarray, z_cap: float,
         changed = np.flatnonzero(opt != units.current)
         moved = False
         for u in rng.permutation(changed):
+            if time.perf_counter() > deadline:
+                return opt
             q = int(units.current[u])
             p = int(opt[u])
             if q < nb and not units.allowed[u, q]:
@@ -306,51 +309,72 @@ def revert_pass(units: Units, band: Band, option: np.ndarray, z_cap: float,
     return opt
 
 
+#: elements of one [u, v, column] slab in the swapped-pair scoring (bounds memory: 4e6
+#: float64 = 32 MB per temporary, whatever the number of intervals)
+SWAP_SLAB = 4_000_000
+SWAP_CANDIDATES = 40
+
+
+def _swap_scores(units: Units, band: Band, s: np.ndarray, dev: np.ndarray, a: np.ndarray,
+                 b: np.ndarray, p: int, q: int, z_cap: float) -> tuple[np.ndarray, np.ndarray]:
+    """For every pair (u in a, v in b): is reverting both admissible (rows p and q keep the
+    worst violation ≤ z_cap), and the new total |deviation| of rows p and q.  Row p gains
+    pp_u − pp_v, row q loses it.  Computed over slabs of columns so no temporary exceeds
+    :data:`SWAP_SLAB` elements."""
+    nb = units.n_blocks
+    n_t = s.shape[1]
+    step = max(1, SWAP_SLAB // max(a.size * b.size, 1))
+    worst = np.zeros((2, a.size, b.size))
+    new_dev = np.zeros((a.size, b.size))
+    for c0 in range(0, n_t, step):
+        c1 = min(n_t, c0 + step)
+        d = units.pp[a, c0:c1][:, None, :] - units.pp[b, c0:c1][None, :, :]
+        for k, (row, sign) in enumerate(((p, 1.0), (q, -1.0))):
+            if row >= nb:
+                continue
+            r = s[row, c0:c1][None, None, :] + sign * d
+            v = np.maximum(np.maximum(band.lo[row] - r, r - band.hi[row]), 0.0).max(axis=2)
+            np.maximum(worst[k], v / band.scale[row], out=worst[k])
+            new_dev += np.abs(r - band.target[row]).sum(axis=2)
+    untouched = dev.sum() - sum(dev[r] for r in (p, q) if r < nb)
+    return (worst <= z_cap).all(axis=0), new_dev + untouched
+
+
 def swap_revert_pass(units: Units, band: Band, option: np.ndarray, z_cap: float,
-                     mad_cap: float, max_rounds: int = 200) -> np.ndarray:
-    """Level-3 helper: revert *pairs* of changed units that swapped places.
+                     mad_cap: float, max_rounds: int = 200,
+                     deadline: float = float("inf")) -> np.ndarray:
+    """Revert *pairs* of changed units that swapped places.
 
     Unit u moved p → q and unit v moved q → p (p or q may be "unarmed"); reverting both
     changes only rows p and q, by ``±(pp_u − pp_v)``, which often keeps both blocks in band
     where reverting either alone would not.  All candidate pairs of a block pair are scored
-    at once (``[u, v, interval]`` arrays, chunked); the best admissible pair (lowest total
-    deviation, worst violation ≤ z_cap, mean deviation ≤ mad_cap) is applied, then the next.
+    at once (:func:`_swap_scores`, in slabs of columns); the best admissible pair (lowest
+    total deviation, worst violation ≤ z_cap, mean deviation ≤ mad_cap) is applied, then
+    the next, until none is left or the deadline passes.
     """
     nb = units.n_blocks
     opt = option.copy()
     s = shares(units, opt)
     n_t = s.shape[1]
     total = max(nb * n_t, 1)
-    tgt = band.target[:, None]
-    dev = np.abs(s - tgt).sum(axis=1)
+    dev = np.abs(s - band.target[:, None]).sum(axis=1)
     for _ in range(max_rounds):
         changed = np.flatnonzero(opt != units.current)
         best = None
         for p in range(nb + 1):
             for q in range(p + 1, nb + 1):
+                if time.perf_counter() > deadline:
+                    return opt
                 a = changed[(units.current[changed] == p) & (opt[changed] == q)]
                 b = changed[(units.current[changed] == q) & (opt[changed] == p)]
-                if a.size == 0 or b.size == 0:
-                    continue
                 if p < nb:
                     a = a[units.allowed[a, p]]
                 if q < nb:
                     b = b[units.allowed[b, q]]
                 if a.size == 0 or b.size == 0:
                     continue
-                a, b = a[:40], b[:40]
-                # d[u, v, t] = pp_u - pp_v: row p gains d, row q loses d
-                d = units.pp[a][:, None, :] - units.pp[b][None, :, :]
-                ok = np.ones((a.size, b.size), dtype=bool)
-                new_dev = np.full((a.size, b.size), dev.sum())
-                for row, sign in ((p, 1.0), (q, -1.0)):
-                    if row >= nb:
-                        continue
-                    r = s[row][None, None, :] + sign * d
-                    v = np.maximum(np.maximum(band.lo[row] - r, r - band.hi[row]), 0.0).max(
-                        axis=2) / band.scale[row]
-                    ok &= v <= z_cap
-                    new_dev += np.abs(r - band.target[row]).sum(axis=2) - dev[row]
+                a, b = a[:SWAP_CANDIDATES], b[:SWAP_CANDIDATES]
+                ok, new_dev = _swap_scores(units, band, s, dev, a, b, p, q, z_cap)
                 ok &= new_dev / total <= mad_cap
                 if not ok.any():
                     continue

@@ -58,14 +58,16 @@ def neighbourhood_search(units: Units, band: Band, option: np.ndarray, level: st
                          mad_cap_sample: float | None = None,
                          seed: int, deadline: float, events: list[str],
                          progress=None, max_passes: int = 3,
-                         sub_cap_pct: float | None = None) -> tuple[np.ndarray, dict]:
+                         sub_cap_pct: float | None = None,
+                         armed_caps: list[tuple[np.ndarray, float]] = ()
+                         ) -> tuple[np.ndarray, dict]:
     """Improve ``option`` for ``level`` (``"mad"`` or ``"changes"``) by exact solves on
     neighbourhoods of block pairs.  Returns (option, info)."""
     nb = units.n_blocks
     rng = np.random.default_rng(seed + (1 if level == "mad" else 2))
     cur = option.copy()
     key = evaluate(units, cur, band)
-    info = {"level": "mean deviation" if level == "mad" else "changes", "method":
+    info = {"level": "deviation from target" if level == "mad" else "relays changed", "method":
             "neighbourhood search", "steps": 0, "accepted": 0, "status": "converged",
             "objective": key[1] if level == "mad" else key[2], "bound": None, "gap": None,
             "seconds": 0.0, "rounds": 0}
@@ -120,9 +122,12 @@ def neighbourhood_search(units: Units, band: Band, option: np.ndarray, level: st
                 budget = mad_cap_sample * nb * mad_set.size - dev[other].sum()
                 mad_cap = budget / (blocks.size * mad_set.size)
             sub_cur = sub.current.copy()
+            caps = [(m[free], cap - float(np.sum(m[fixed] & (cur[fixed] < nb))))
+                    for m, cap in armed_caps]
             model = build_model(sub, sub_band.target, sub_band.lo, sub_band.hi, band_set,
                                 mad_set, level, z_cap=z_cap, mad_cap=mad_cap, max_changes=mc,
-                                share_offset=s_fixed, change_offset=fixed_changes)
+                                share_offset=s_fixed, change_offset=fixed_changes,
+                                armed_caps=caps)
             start = start_vector(model, sub, sub_cur, sub_band.target, sub_band.lo,
                                  sub_band.hi, share_offset=s_fixed)
             remaining = max(0.5, min(SUB_TIME_LIMIT_S, deadline - time.perf_counter()))
@@ -153,6 +158,8 @@ def neighbourhood_search(units: Units, band: Band, option: np.ndarray, level: st
                 band_set = np.union1d(band_set, worst_t)
                 continue
             if sub_cap_pct is not None and substation_excess(units, new, sub_cap_pct):
+                continue
+            if any(np.sum(m & (new < nb)) > cap + 1e-9 for m, cap in armed_caps):
                 continue
             if _better(level, new_key, key, z_cap, mad_cap_full):
                 cur, key = new, new_key

@@ -77,17 +77,20 @@ def build_model(units: Units, targets: np.ndarray, lo: np.ndarray, hi: np.ndarra
                 z_cap: float | None = None, mad_cap: float | None = None,
                 max_changes: int | None = None,
                 substation_rows: list[tuple[int, int, np.ndarray, float]] = (),
-                share_offset: np.ndarray | None = None, change_offset: float = 0.0
-                ) -> AllocationModel:
+                share_offset: np.ndarray | None = None, change_offset: float = 0.0,
+                armed_caps: list[tuple[np.ndarray, float]] = (),
+                armed_cost: np.ndarray | None = None) -> AllocationModel:
     """Build the model on ``band_set`` (band rows) and ``mad_set`` (MAD rows), both index
-    arrays into the units' valid intervals.  ``objective`` is ``"worst"``, ``"mad"`` or
-    ``"changes"``.  ``substation_rows``: (block, interval position, member mask [unit],
-    cap fraction) — the block's armed pp from the masked units at that interval is at most
-    ``cap`` of its total there."""
+    arrays into the units' columns.  ``objective`` is ``"worst"``, ``"mad"``, ``"changes"``
+    (relays changed) or ``"armed"`` (Σ ``armed_cost[u]`` over armed units).
+    ``substation_rows``: (block, column, member mask [unit], cap fraction) — the block's
+    armed pp from the masked units at that column is at most ``cap`` of its total there.
+    ``armed_caps``: (unit mask, cap) — at most ``cap`` of the masked units are armed.
+    The deviation rows are built for ``"mad"`` and whenever ``mad_cap`` is given."""
     nb = units.n_blocks
     pair_u, pair_b = np.nonzero(units.allowed)
     n_x = pair_u.size
-    need_mad = objective in ("mad", "changes")
+    need_mad = objective == "mad" or mad_cap is not None
     model_t = np.union1d(band_set, mad_set if need_mad else np.array([], dtype=np.intp))
     n_t = model_t.size
     i_z = n_x
@@ -171,6 +174,13 @@ def build_model(units: Units, targets: np.ndarray, lo: np.ndarray, hi: np.ndarra
         rlb.append(np.array([-np.inf]))
         rub.append(np.array([mad_cap]))
         r0 += 1
+    # armed-count caps: sum over masked units of sum_b x[u,b] <= cap
+    for (mask, cap) in armed_caps:
+        cols = np.flatnonzero(mask[pair_u])
+        add(np.full(cols.size, r0), cols, np.ones(cols.size))
+        rlb.append(np.array([-np.inf]))
+        rub.append(np.array([float(cap)]))
+        r0 += 1
     # substation share rows: sum_u (mask_u - cap) pp[u,t] x[u,b] <= 0
     for (b, tpos, mask, cap) in substation_rows:
         cols = np.flatnonzero(pair_b == b)
@@ -201,6 +211,8 @@ def build_model(units: Units, targets: np.ndarray, lo: np.ndarray, hi: np.ndarra
     elif objective == "changes":
         c[:n_x] = change_coef
         offset = change_const
+    elif objective == "armed":
+        c[:n_x] = np.asarray(armed_cost, dtype=float)[pair_u]
     else:  # pragma: no cover
         raise ValueError(objective)
     arrays = MilpArrays(c, A, np.concatenate(rlb), np.concatenate(rub), lb, ub, integral,

@@ -54,7 +54,8 @@ def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
                   frequency: dict | None = None) -> dict[str, Path]:
     """Write the report files of ``check`` into the existing folder ``out``.
 
-    ``previous_idx[feeder]``: the block index each feeder had before (the workbook's current
+    ``check`` is a :class:`~allocator.check.ScenarioChecks` (every scenario) or one
+    :class:`~allocator.check.Check`.  ``previous_idx[feeder]``: the block index each feeder had before (the workbook's current
     allocation) when ``check`` is of a new plan or assignment, None when ``check`` is of the
     current allocation.  ``plan_info``: the planner's plan.json dict, if reporting a plan.
     ``before``: the check of the current allocation, for before/after comparisons.
@@ -62,8 +63,11 @@ def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
     adds the frequency indication section to the HTML report.
     Returns ``{"xlsx": path, "html": path, "png:<name>": path, ...}`` for what was written.
     """
+    from ..export import as_set
     from . import content
 
+    check = as_set(check)
+    before = as_set(before) if before is not None else None
     out = Path(out)
     formats = set(formats)
     unknown = formats - set(FORMATS)
@@ -75,7 +79,7 @@ def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
     if not formats:
         return written
     out.mkdir(parents=True, exist_ok=True)
-    fc = content.feeder_contrib(check)
+    fc = content.feeder_contrib(check.checks[0])
     if "xlsx" in formats:
         from .excel import write_workbook
 

@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..check import Check, contribution_mw
+from ..check import Check, ScenarioChecks, contribution_mw
 from ..domain import UNARMED
 
 #: shown in the workbook summary and the HTML page, in this order
@@ -24,7 +24,8 @@ CAUTIONS: tuple[str, ...] = (
     "other site your local rules name - must be protected as those rules require. Check that "
     "none of them is armed against those rules before adopting an allocation.",
     "The results are indicative and for planning support only. They rest on load profiles or "
-    "metered data and a clear-sky PV model, not on a dynamic study of the power system.",
+    "metered data and on the PV scenarios named in this report, not on a dynamic study of "
+    "the power system. A verdict holds for the scenarios judged and for no other year.",
     "The system operator's requirements, local codes and licensed engineering practice "
     "govern. This report does not replace them.",
     "Verify every relay setting (pickup frequency, time delay, RoCoF) against the approved "
@@ -77,6 +78,24 @@ def verdict_words(check: Check) -> str:
     return (f"Not compliant: {len(bad)} of {len(check.stats)} blocks fall outside their band "
             f"under the rule '{check.rule}': {'; '.join(parts)}. "
             f"Worst distance outside a band: {check.worst_violation_pp:.2f} percentage points.")
+
+
+def verdict_words_set(checks: ScenarioChecks) -> str:
+    """The overall verdict over every scenario in one or two plain sentences."""
+    if len(checks.checks) == 1:
+        return verdict_words(checks.checks[0])
+    bad = checks.failing_scenarios
+    names = ", ".join(checks.names)
+    if not bad:
+        return (f"Compliant in every scenario judged ({names}): every block holds its band "
+                f"of netted demand under the rule '{checks.rule}' ({rule_words(checks.checks[0])}).")
+    parts = []
+    for v in checks.verdicts:
+        if not v.compliant:
+            parts.append(f"{v.block} in {', '.join(v.failing_scenarios)}")
+    return (f"Not compliant in {len(bad)} of {len(checks.checks)} scenarios "
+            f"({', '.join(bad)}): {'; '.join(parts)}. Worst distance outside a band: "
+            f"{checks.worst_violation_pp:.2f} percentage points.")
 
 
 def block_verdict(compliant: bool) -> str:
@@ -248,7 +267,7 @@ def relay_changes(check: Check, previous_idx: np.ndarray | None) -> pd.DataFrame
     return df.sort_values(["substation", "feeder_id"], kind="stable").reset_index(drop=True)
 
 
-def windows_table(check: Check) -> pd.DataFrame:
+def windows_table(check: Check | ScenarioChecks) -> pd.DataFrame:
     w = check.windows().drop(columns=["_start"], errors="ignore").copy()
     if not w.empty:
         w["kind"] = w["kind"].map(lambda k: KIND_WORDS.get(k, k))
@@ -268,9 +287,14 @@ def assumptions(check: Check) -> list[tuple[str, str]]:
                          f"(gap_fill '{s.gap_fill}')"}
     nonpos = int((~check.valid).sum())
     return [
-        ("PV", "clear-sky PV output on every day of the year at the study's latitude and "
-               f"longitude, multiplied by pv_derate {s.pv_derate:g}: the conservative case, "
-               "since clouds only lower PV and so raise the load that a block would shed."),
+        ("PV", f"per scenario (see the scenarios table), multiplied by pv_derate "
+               f"{s.pv_derate:g} and the scenario's pv_scale: clear_sky = clear-sky output on "
+               "every day at the study's latitude and longitude, which gives the lowest "
+               "netted load on PV-rich feeders and so tests a block's minimum; none = no PV "
+               "output (an overcast year), which raises netted demand and the share of "
+               "blocks with little PV and so tests a block's maximum; weather = a weather "
+               "year's irradiance. No single scenario is conservative for both edges of a "
+               "band."),
         ("netted demand", f"{basis.get(s.demand_basis, s.demand_basis)}."
                           + (f" {nonpos} intervals with demand of 0 MW or less are left out of "
                              "the shares and the verdict." if nonpos else "")),
@@ -289,11 +313,46 @@ def assumptions(check: Check) -> list[tuple[str, str]]:
     ]
 
 
-#: plan.json keys shown first (the rest goes under "solver details")
-PLAN_KEY_FIELDS = ("changed_feeders", "every_interval_in_band", "worst_violation_pp",
-                   "all_blocks_in_band_pct_of_intervals", "mean_abs_deviation_pp",
-                   "proven_optimal_worst_violation", "solve_seconds", "time_limit_s",
-                   "max_changes", "solver", "solver_version")
+#: plan.json keys the labelled plan facts are made from (the rest: "solver details")
+PLAN_KEY_FIELDS = ("status", "scenarios", "objective", "band_margin_pp", "relays_changed",
+                   "feeders_changed", "relays_changed_lower_bound", "levels",
+                   "every_interval_in_band", "worst_violation_pp", "mean_abs_deviation_pp",
+                   "solve_seconds", "time_limit_s", "max_changes", "solver_version",
+                   "explanation", "events", "verdict_covers")
+OBJECTIVE_WORDS = {"fewest_changes": "worst violation, then fewest relay changes, then "
+                                     "closest to target",
+                   "closest_to_target": "worst violation, then closest to target, then "
+                                        "fewest relay changes"}
+STATUS_WORDS = {"in_band": "every block in band in every interval of every scenario",
+                "out_of_band": "not every block can be held in band (see why)"}
+
+
+def plan_facts(p: dict) -> list[tuple[str, str]]:
+    """The plan's key facts as (label, value with unit) pairs for people."""
+    out = [("result", STATUS_WORDS.get(p.get("status", ""), str(p.get("status", "")))),
+           ("scenarios held", ", ".join(p.get("scenarios", []))),
+           ("objective order", OBJECTIVE_WORDS.get(p.get("objective"), str(p.get("objective")))),
+           ("margin kept inside each band", f"{p.get('band_margin_pp', 0):g} pp")]
+    rc, fc, lb = p.get("relays_changed"), p.get("feeders_changed"), p.get(
+        "relays_changed_lower_bound")
+    if rc is not None:
+        out.append(("relays changed", f"{rc} (feeders affected: {fc})"))
+    if lb is not None:
+        out.append(("fewest relay changes possible", f"at least {lb}"))
+    for i, lv in enumerate(p.get("levels", []), 1):
+        out.append((f"level {i}: {lv.get('level', '')}", str(lv.get("claim", ""))))
+    if p.get("worst_violation_pp") is not None:
+        out.append(("worst distance outside a band", f"{p['worst_violation_pp']:.2f} pp"))
+    if p.get("mean_abs_deviation_pp") is not None:
+        out.append(("mean deviation from target", f"{p['mean_abs_deviation_pp']:.2f} pp"))
+    if p.get("solve_seconds") is not None:
+        out.append(("planning time", f"{p['solve_seconds']:.1f} s of a "
+                                     f"{p.get('time_limit_s', 0):g} s limit"))
+    if p.get("max_changes") is not None:
+        out.append(("max_changes", str(p["max_changes"])))
+    if p.get("solver_version"):
+        out.append(("solver", str(p["solver_version"])))
+    return out
 
 
 @dataclass(frozen=True)
@@ -332,8 +391,8 @@ def plan_text(plan_info: dict | None) -> PlanText:
     details, the explanation lines and the solver's notes (``events``)."""
     if not plan_info:
         return PlanText("", [], [], [], [])
-    key = [(k, _fmt(plan_info[k])) for k in PLAN_KEY_FIELDS if k in plan_info]
-    skip = set(PLAN_KEY_FIELDS) | {"status", "explanation", "events"}
+    key = plan_facts(plan_info)
+    skip = set(PLAN_KEY_FIELDS)
     details: list[tuple[str, str]] = []
     for k, v in plan_info.items():
         if k in skip:
@@ -348,9 +407,12 @@ def plan_text(plan_info: dict | None) -> PlanText:
                     _lines(plan_info.get("explanation")), _lines(plan_info.get("events")))
 
 
-def all_warnings(check: Check) -> list[str]:
-    out = list(check.study.warnings) + list(check.warnings) + list(check.year.notes)
-    out += [f"feeder {fl.feeder_id}: {fl.flag} ({fl.detail})" for fl in check.year.flags]
+def all_warnings(check: Check | ScenarioChecks) -> list[str]:
+    checks = check.checks if isinstance(check, ScenarioChecks) else (check,)
+    out = list(check.study.warnings) + list(check.warnings)
+    for c in checks:
+        out += list(c.year.notes)
+        out += [f"feeder {fl.feeder_id}: {fl.flag} ({fl.detail})" for fl in c.year.flags]
     seen = set()
     uniq = []
     for w in out:

@@ -20,7 +20,9 @@ from openpyxl.formatting.rule import CellIsRule
 from openpyxl.styles import Alignment, Font, PatternFill
 
 from .. import __version__
-from ..check import Check, by_substation, exporting_feeders, summary_dict
+from ..check import Check, ScenarioChecks, by_substation, exporting_feeders, summary_dict
+from ..export import stacked
+from ..timefmt import offset_hours
 from . import content, palette
 from .xlsxtable import Col, Table, put, put_text, save, table_sheet
 
@@ -65,10 +67,14 @@ SHARE_KEYS = ("min_share_pct", "p1_share_pct", "p5_share_pct", "mean_share_pct",
 
 SHEETS = {
     "summary": "verdicts, plan status, worst windows, what the fills mean, cautions",
-    "blocks": "block settings and the year's statistics (the same values as summary.json)",
-    "feeders": "every feeder: its block, relay settings, net load and share of its block",
+    "scenarios": "every scenario judged: how its year was made and its verdict",
+    "blocks": "per scenario, block settings and the year's statistics (the values of "
+              "summary.json)",
+    "feeders": "every feeder: its block, relay settings, net load and share of its block "
+               "(net load figures of the first scenario)",
     "relay_changes": "the field work list: feeders whose block changes, with the new settings",
-    "intervals": "every interval: netted demand, MW and % of demand armed in each block",
+    "intervals": "every interval of every scenario: netted demand, MW and % of demand armed "
+                 "in each block",
     "windows": "runs of intervals outside a block's band, worst (most MWh) first",
     "exports": "armed feeders that export at some interval",
     "substations": "mean armed MW per substation, zone and block",
@@ -90,31 +96,47 @@ def _num(v: float) -> str:
 # --------------------------------------------------------------------------------------------
 # sheets
 # --------------------------------------------------------------------------------------------
-def _blocks_sheet(wb, check: Check, before: Check | None) -> Table:
-    summ = summary_dict(check)["blocks"]
-    cols = []
+def _block_cols(checks: list[Check]) -> list[Col]:
+    """The blocks sheet's columns for the (scenario, block) rows of ``checks``."""
+    summ = [(c, r) for c in checks for r in summary_dict(c)["blocks"]]
+    cols = [Col("scenario", [c.scenario for c, _ in summ], "text")]
     for key, header, kind, fmt in BLOCK_COLUMNS:
         if key in ("rocof_hz_per_s", "rocof_arm_hz"):
-            vals = [getattr(b, key) for b in check.blocks]
+            vals = [getattr(c.blocks[i % len(c.blocks)], key) for i, (c, _) in enumerate(summ)]
             vals = [np.nan if v is None else v for v in vals]
         elif kind == "num":
-            vals = [content.json_number(r[key]) for r in summ]
+            vals = [content.json_number(r[key]) for _, r in summ]
             vals = [np.nan if v is None else v for v in vals]
         else:
-            vals = [r[key] for r in summ]
+            vals = [r[key] for _, r in summ]
         cols.append(Col(header, vals, kind, fmt))
+    for key, header in (("headroom_to_min_pp", "room above band min pp"),
+                        ("headroom_to_max_pp", "room below band max pp")):
+        vals = [content.json_number(getattr(c.stats[i % len(c.blocks)], key))
+                for i, (c, _) in enumerate(summ)]
+        cols.append(Col(header, [np.nan if v is None else v for v in vals], "num", F_PP))
+    return cols
+
+
+def _blocks_sheet(wb, cs: ScenarioChecks, before: ScenarioChecks | None) -> Table:
+    cols = _block_cols(list(cs.checks))
     if before is not None:
-        bs = summary_dict(before)["blocks"]
+        nb = len(cs.blocks)
+        prev = {c.scenario: c for c in before.checks}
+        rows = [(c, j) for c in cs.checks for j in range(nb)]
         for key, header in (("min_share_pct", "current allocation: lowest share %"),
                             ("mean_share_pct", "current allocation: mean share %"),
                             ("intervals_below_min", "current allocation: intervals below min"),
                             ("intervals_above_max", "current allocation: intervals above max")):
             kind = "int" if key.startswith("intervals") else "num"
-            vals = [content.json_number(r[key]) for r in bs]
+            vals = [content.json_number(getattr(prev[c.scenario].stats[j], key))
+                    if c.scenario in prev else None for c, j in rows]
             cols.append(Col(header, [np.nan if v is None else v for v in vals], kind,
                             F_INT if kind == "int" else "0.00"))
-        cols.append(Col("current allocation: compliant", [r["compliant"] for r in bs], "bool"))
-    t = table_sheet(wb, "blocks", cols, freeze="B2")
+        cols.append(Col("current allocation: compliant",
+                        [prev[c.scenario].stats[j].compliant if c.scenario in prev else None
+                         for c, j in rows], "bool"))
+    t = table_sheet(wb, "blocks", cols, freeze="C2")
     lo = t.col_letter("band min %")
     hi = t.col_letter("band max %")
     share_headers = [h for k, h, _, _ in BLOCK_COLUMNS if k in SHARE_KEYS]
@@ -124,6 +146,25 @@ def _blocks_sheet(wb, check: Check, before: Check | None) -> Table:
     for h in share_headers:
         _cf_band(t.ws, t.data_range(h), f"${lo}2", f"${hi}2")
     return t
+
+
+def _scenarios_sheet(wb, cs: ScenarioChecks) -> Table:
+    info = [c.year.scenario_info for c in cs.checks]
+    cols = [Col("scenario", list(cs.names), "text"),
+            Col("PV", [str(i.get("pv", "")) for i in info], "text"),
+            Col("PV scale", [float(i.get("pv_scale", 1.0)) for i in info], "num", "0.00"),
+            Col("load scale", [float(i.get("load_scale", 1.0)) for i in info], "num", "0.00"),
+            Col("calendar year", [c.year.calendar_year for c in cs.checks], "int", F_INT),
+            Col("data source", [c.year.source for c in cs.checks], "text"),
+            Col("intervals", [c.year.n_intervals for c in cs.checks], "int", F_INT),
+            Col("compliant", [c.compliant for c in cs.checks], "bool"),
+            Col("worst distance outside band pp", [c.worst_violation_pp for c in cs.checks],
+                "num", F_PP),
+            Col("all blocks in band % of intervals",
+                [100.0 * c.all_in_band_fraction for c in cs.checks], "num", F_PCT),
+            Col("blocks out of band", [", ".join(s.block for s in c.stats if not s.compliant)
+                                       for c in cs.checks], "text")]
+    return table_sheet(wb, "scenarios", cols, freeze="B2")
 
 
 def _feeders_sheet(wb, check: Check, previous_idx, fc) -> Table:
@@ -138,7 +179,7 @@ def _feeders_sheet(wb, check: Check, previous_idx, fc) -> Table:
         ("previous_block", "previous block", "text", None), ("changed", "changed", "bool", None),
         ("mean_net_mw", "mean net MW", "num", F_MW), ("min_net_mw", "min net MW", "num", F_MW),
         ("max_net_mw", "max net MW", "num", F_MW),
-        ("mean_contribution_mw", "mean armed MW", "num", F_MW),
+        ("mean_contribution_mw", "mean armed MW (first scenario)", "num", F_MW),
         ("share_of_block_pct", "share of its block %", "num", F_PCT),
     ]
     cols = [Col(h, df[k].tolist() if kind in ("text", "bool") else df[k].to_numpy(), kind, fmt)
@@ -168,24 +209,33 @@ def _relay_sheet(wb, check: Check, previous_idx) -> Table:
     return table_sheet(wb, "relay_changes", cols, freeze="C2")
 
 
-def _intervals_sheet(wb, check: Check) -> Table:
-    y = check.year
-    cols = [Col(f"local time ({y.timezone})", y.local_times.tz_localize(None), "date",
-                "yyyy-mm-dd hh:mm", 17),
-            Col("UTC time", y.timestamps_utc.tz_localize(None), "date", "yyyy-mm-dd hh:mm", 17),
-            Col("netted demand MW", y.demand_mw, "num", F_MW, 11)]
-    for j, b in enumerate(check.blocks):
-        cols.append(Col(f"{b.name} armed MW", check.armed_mw[j], "num", F_MW, 10))
-        cols.append(Col(f"{b.name} share %", check.share_pct[j], "num", F_PCT, 10))
-    t = table_sheet(wb, "intervals", cols, freeze="B2")
-    for b in check.blocks:
+def _intervals_sheet(wb, cs: ScenarioChecks) -> Table:
+    """Every interval of every scenario, one after the other (a scenario column first)."""
+    checks = cs.checks
+    tz = checks[0].year.timezone
+    cat = lambda f: np.concatenate([f(c) for c in checks])  # noqa: E731
+    cols = [Col("scenario", [c.scenario for c in checks for _ in range(c.year.n_intervals)],
+                "text", None, 10),
+            Col(f"local time ({tz})", cat(lambda c: c.year.local_times.tz_localize(None)
+                                          .to_numpy()), "date", "yyyy-mm-dd hh:mm", 17),
+            Col("UTC offset h", cat(lambda c: offset_hours(c.year.local_times)), "num",
+                "+0.00;-0.00", 8),
+            Col("UTC time", cat(lambda c: c.year.timestamps_utc.tz_localize(None).to_numpy()),
+                "date", "yyyy-mm-dd hh:mm", 17),
+            Col("netted demand MW", cat(lambda c: c.year.demand_mw), "num", F_MW, 11)]
+    for j, b in enumerate(cs.blocks):
+        cols.append(Col(f"{b.name} armed MW", cat(lambda c: c.armed_mw[j]), "num", F_MW, 10))
+        cols.append(Col(f"{b.name} share %", cat(lambda c: c.share_pct[j]), "num", F_PCT, 10))
+    t = table_sheet(wb, "intervals", cols, freeze="C2")
+    for b in cs.blocks:
         _cf_band(t.ws, t.data_range(f"{b.name} share %"), _num(b.min_pct), _num(b.max_pct))
     return t
 
 
-def _windows_sheet(wb, check: Check) -> Table:
+def _windows_sheet(wb, check: ScenarioChecks) -> Table:
     w = content.windows_table(check)
-    spec = [("rank", "rank", "int", F_INT), ("block", "block", "text", None),
+    spec = [("rank", "rank", "int", F_INT), ("scenario", "scenario", "text", None),
+            ("block", "block", "text", None),
             ("kind", "kind", "text", None), ("start_local", "start (local)", "text", None),
             ("end_local", "end (local)", "text", None), ("duration_h", "duration h", "num", F_H),
             ("intervals", "intervals", "int", F_INT),
@@ -211,9 +261,10 @@ def _windows_sheet(wb, check: Check) -> Table:
     return t
 
 
-def _exports_sheet(wb, check: Check) -> Table:
-    df = exporting_feeders(check)
-    spec = [("feeder_id", "feeder", "text", None), ("substation", "substation", "text", None),
+def _exports_sheet(wb, check: ScenarioChecks) -> Table:
+    df = stacked(check, exporting_feeders)
+    spec = [("scenario", "scenario", "text", None),
+            ("feeder_id", "feeder", "text", None), ("substation", "substation", "text", None),
             ("block", "block", "text", None), ("relay", "relay", "text", None),
             ("exporting_intervals", "exporting intervals", "int", F_INT),
             ("exporting_hours", "exporting hours h", "num", F_H),
@@ -231,9 +282,10 @@ def _exports_sheet(wb, check: Check) -> Table:
     return table_sheet(wb, "exports", cols, freeze="B2")
 
 
-def _substations_sheet(wb, check: Check) -> Table:
-    df = by_substation(check)
-    spec = [("substation", "substation", "text", None), ("zone", "zone", "text", None),
+def _substations_sheet(wb, check: ScenarioChecks) -> Table:
+    df = stacked(check, by_substation)
+    spec = [("scenario", "scenario", "text", None),
+            ("substation", "substation", "text", None), ("zone", "zone", "text", None),
             ("block", "block", "text", None), ("feeders", "feeders", "int", F_INT),
             ("customers", "customers", "int", F_INT),
             ("mean_armed_mw", "mean armed MW", "num", F_MW),
@@ -248,7 +300,9 @@ def _substations_sheet(wb, check: Check) -> Table:
     return table_sheet(wb, "substations", cols)
 
 
-def _summary_sheet(ws, check: Check, previous_idx, plan_info, before: Check | None) -> None:
+def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
+                   before: ScenarioChecks | None) -> None:
+    check = cs.checks[0]
     s = check.study.settings
     ws.column_dimensions["A"].width = 34
     for col in "BCDEFGHIJK":
@@ -276,23 +330,24 @@ def _summary_sheet(ws, check: Check, previous_idx, plan_info, before: Check | No
     what = ("a planned allocation" if plan_info else
             "a proposed assignment" if previous_idx is not None else
             "the workbook's current allocation")
+    from ..check import verdict_covers
+
     pair("allocation checked", what)
-    pair("overall verdict", "COMPLIANT" if check.compliant else "NOT COMPLIANT", bold=True)
-    put_text(ws, r, 1, content.verdict_words(check))
+    pair("overall verdict", "COMPLIANT" if cs.compliant else "NOT COMPLIANT", bold=True)
+    put_text(ws, r, 1, content.verdict_words_set(cs))
+    r += 1
+    put_text(ws, r, 1, verdict_covers(cs))
     r += 1
     if before is not None:
         pair("current allocation", "COMPLIANT" if before.compliant else "NOT COMPLIANT")
-        put_text(ws, r, 1, "Current allocation: " + content.verdict_words(before))
+        put_text(ws, r, 1, "Current allocation: " + content.verdict_words_set(before))
         r += 1
     pair("compliance rule", check.rule)
     pair("utility", s.utility)
     pair("study year", s.year)
-    pair("intervals", check.year.n_intervals, "0")
+    pair("scenarios judged", ", ".join(cs.names))
     pair("interval length min", check.year.interval_minutes, "0")
-    pair("all blocks in band, % of intervals", 100.0 * check.all_in_band_fraction, "0.0")
-    pair("worst distance outside a band, pp", check.worst_violation_pp, "0.00")
-    pair("intervals with demand <= 0 (left out)", int((~check.valid).sum()), "0")
-    pair("data source", check.year.source)
+    pair("worst distance outside a band, pp", cs.worst_violation_pp, "0.00")
     pair("priority sites", content.priority_summary(check).words(s.priority_policy))
     if plan_info:
         pt = content.plan_text(plan_info)
@@ -314,10 +369,11 @@ def _summary_sheet(ws, check: Check, previous_idx, plan_info, before: Check | No
         pair("feeders whose block changes", n_changed, "0")
 
     r += 1
-    put_text(ws, r, 1, "Verdict per block").font = H2_FONT
+    put_text(ws, r, 1, "Verdict per block (worst over every scenario)").font = H2_FONT
     r += 1
     heads = ["block", "pickup Hz", "band min %", "band max %", "lowest share %",
-             "mean share %", "intervals below min", "intervals above max", "verdict"]
+             "scenario of lowest", "highest share %", "scenario of highest",
+             "room above min pp", "room below max pp", "verdict"]
     if before is not None:
         heads += ["current: lowest share %", "current: verdict"]
     for j, h in enumerate(heads, 1):
@@ -326,42 +382,44 @@ def _summary_sheet(ws, check: Check, previous_idx, plan_info, before: Check | No
     ws.row_dimensions[r].height = 30
     r += 1
     first = r
-    for k, st in enumerate(check.stats):
-        vals = [st.block, st.pickup_hz, st.min_pct, st.max_pct, st.min_share_pct,
-                st.mean_share_pct, st.intervals_below_min, st.intervals_above_max,
-                content.block_verdict(st.compliant)]
-        fmts = [None, "0.000", "0.0", "0.0", "0.00", "0.00", "0", "0", None]
+    for k, v in enumerate(cs.verdicts):
+        vals = [v.block, v.pickup_hz, v.min_pct, v.max_pct, v.min_share_pct,
+                v.min_share_scenario, v.max_share_pct, v.max_share_scenario,
+                v.headroom_to_min_pp, v.headroom_to_max_pp,
+                content.block_verdict(v.compliant)
+                + (f" ({', '.join(v.failing_scenarios)})" if v.failing_scenarios else "")]
+        fmts = [None, "0.000", "0.0", "0.0", "0.00", None, "0.00", None, "0.00", "0.00", None]
         if before is not None:
-            b = before.stats[k]
+            b = before.verdicts[k]
             vals += [b.min_share_pct, content.block_verdict(b.compliant)]
             fmts += ["0.00", None]
-        for j, (v, f) in enumerate(zip(vals, fmts), 1):
-            put(ws, r, j, v, f)
+        for j, (val, f) in enumerate(zip(vals, fmts), 1):
+            put(ws, r, j, val, f)
         r += 1
     last = r - 1
-    for col in ("E", "F") + (("J",) if before is not None else ()):
+    for col in ("E", "G") + (("L",) if before is not None else ()):
         _cf_band(ws, f"{col}{first}:{col}{last}", f"$C{first}", f"$D{first}")
 
     r += 1
     put_text(ws, r, 1, "Worst windows outside the band").font = H2_FONT
     r += 1
-    w = content.windows_table(check)
+    w = content.windows_table(cs)
     if w.empty:
-        put_text(ws, r, 1, "No interval lies outside any block's band.")
+        put_text(ws, r, 1, "No interval lies outside any block's band in any scenario.")
         r += 1
     else:
         put_text(ws, r, 1, f"{len(w)} windows in all; the 10 with the most MWh outside the band "
                            "(all of them on the 'windows' sheet):")
         r += 1
-        heads = ["rank", "block", "kind", "start (local)", "end (local)", "duration h",
-                 "worst share %", "MWh outside band"]
+        heads = ["rank", "scenario", "block", "kind", "start (local)", "end (local)",
+                 "duration h", "worst share %", "MWh outside band"]
         for j, h in enumerate(heads, 1):
             put_text(ws, r, j, h).font = BOLD
         r += 1
         for row in w.head(10).itertuples():
-            vals = [row.rank, row.block, row.kind, row.start_local, row.end_local,
-                    row.duration_h, row.worst_share_pct, row.energy_mwh]
-            fmts = ["0", None, None, None, None, "0.00", "0.00", "0.0"]
+            vals = [row.rank, row.scenario, row.block, row.kind, row.start_local,
+                    row.end_local, row.duration_h, row.worst_share_pct, row.energy_mwh]
+            fmts = ["0", None, None, None, None, None, "0.00", "0.00", "0.0"]
             for j, (v, f) in enumerate(zip(vals, fmts), 1):
                 put(ws, r, j, v, f)
             r += 1
@@ -404,7 +462,7 @@ def _summary_sheet(ws, check: Check, previous_idx, plan_info, before: Check | No
         put_text(ws, r, 1, "! " + text)
         r += 1
 
-    warns = content.all_warnings(check)
+    warns = content.all_warnings(cs)
     if warns:
         r += 1
         put_text(ws, r, 1, f"Warnings ({len(warns)})").font = H2_FONT
@@ -417,20 +475,27 @@ def _summary_sheet(ws, check: Check, previous_idx, plan_info, before: Check | No
     ws.sheet_view.showGridLines = False
 
 
-def write_workbook(check: Check, path: Path, previous_idx: np.ndarray | None = None,
-                   plan_info: dict | None = None, before: Check | None = None,
+def write_workbook(check: Check | ScenarioChecks, path: Path,
+                   previous_idx: np.ndarray | None = None, plan_info: dict | None = None,
+                   before: Check | ScenarioChecks | None = None,
                    fc: content.FeederContrib | None = None) -> Path:
     """Write ``report.xlsx`` to ``path`` and return it."""
+    from ..export import as_set
+
+    cs = as_set(check)
+    before = as_set(before) if before is not None else None
+    first = cs.checks[0]
     path = Path(path)
-    fc = content.feeder_contrib(check) if fc is None else fc
+    fc = content.feeder_contrib(first) if fc is None else fc
     wb = openpyxl.Workbook()
     wb.properties.creator = f"ufls-allocator {__version__}"
     ws = wb.active
     ws.title = "summary"
-    _summary_sheet(ws, check, previous_idx, plan_info, before)
-    tables = [_blocks_sheet(wb, check, before), _feeders_sheet(wb, check, previous_idx, fc),
-              _relay_sheet(wb, check, previous_idx), _intervals_sheet(wb, check),
-              _windows_sheet(wb, check), _exports_sheet(wb, check),
-              _substations_sheet(wb, check)]
+    _summary_sheet(ws, cs, previous_idx, plan_info, before)
+    tables = [_scenarios_sheet(wb, cs), _blocks_sheet(wb, cs, before),
+              _feeders_sheet(wb, first, previous_idx, fc),
+              _relay_sheet(wb, first, previous_idx), _intervals_sheet(wb, cs),
+              _windows_sheet(wb, cs), _exports_sheet(wb, cs),
+              _substations_sheet(wb, cs)]
     save(wb, path, tables)
     return path

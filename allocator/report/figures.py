@@ -34,7 +34,7 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from ..check import Check
+from ..check import Check, ScenarioChecks
 from ..domain import DAY_TYPES
 from ..safeio import safe_filename
 from . import content, palette
@@ -179,7 +179,7 @@ def share_map(check: Check, j: int) -> tuple[Figure, str, str]:
     handles.append(Patch(facecolor=palette.BLUE, label="above max"))
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(0.0, -0.12), ncols=4,
               frameon=False)
-    _month_axis(ax, check.study.settings.year)
+    _month_axis(ax, check.year.calendar_year)
     ax.set_ylim(0, 24)
     ax.set_yticks(range(0, 25, 3))
     ax.set_yticklabels([f"{h:02d}:00" for h in range(0, 25, 3)])
@@ -191,12 +191,13 @@ def share_map(check: Check, j: int) -> tuple[Figure, str, str]:
     cb.set_ticks(ticks)
     cb.set_ticklabels([f"{t:g}" for t in ticks])
     n_out = st.intervals_below_min + st.intervals_above_max
-    ax.set_title(f"Block {_block_title(b)}: share of netted demand by date and local time "
-                 f"of day\nband {b.min_pct:g}-{b.max_pct:g} % (target {b.target_pct:g} %); "
+    ax.set_title(f"Block {_block_title(b)}, scenario {check.scenario}: share of netted "
+                 f"demand by date and local time of day\nband {b.min_pct:g}-{b.max_pct:g} % "
+                 f"(target {b.target_pct:g} %); "
                  f"{n_out} intervals outside the band; lowest {st.min_share_pct:.1f} %, "
                  f"highest {st.max_share_pct:.1f} % (colours stop at {norm.vmin:g} and "
                  f"{norm.vmax:g} %)", loc="left")
-    title = f"Block {b.name}: share of demand by date and time of day"
+    title = f"Block {b.name}: share of demand by date and time of day ({check.scenario})"
     caption = (f"Each cell is one interval: date left to right, local time of day bottom to "
                f"top. Pale cells are inside the band {b.min_pct:g}-{b.max_pct:g} %; strong "
                f"orange cells hold less than the minimum, strong blue cells more than the "
@@ -219,7 +220,14 @@ def duration_size(n_blocks: int) -> tuple[float, float]:
     return _snap(11.0, 1.0 + 2.9 * rows)
 
 
-def duration_curves(check: Check, before: Check | None) -> tuple[Figure, str, str]:
+SCENARIO_STYLES = ("solid", (0, (1, 1)), (0, (5, 1, 1, 1)), (0, (3, 1)), (0, (1, 2, 4, 2)))
+
+
+def duration_curves(cs: ScenarioChecks, before: ScenarioChecks | None
+                    ) -> tuple[Figure, str, str]:
+    """Every block's share sorted, one curve per scenario (line style), the current
+    allocation's worst scenario behind when a plan is reported."""
+    check = cs.checks[0]
     nb = len(check.blocks)
     rows, cols = _grid_shape(nb)
     fig = _new(duration_size(nb))
@@ -229,29 +237,31 @@ def duration_curves(check: Check, before: Check | None) -> tuple[Figure, str, st
         if k >= nb:
             ax.set_visible(False)
             continue
-        b, st = check.blocks[k], check.stats[k]
-        s = np.sort(check.share_pct[k, check.valid])[::-1]
-        x = (np.arange(s.size) + 0.5) / max(s.size, 1) * 100.0
+        b, v = check.blocks[k], cs.verdicts[k]
         ax.axhspan(b.min_pct, b.max_pct, color=palette.BAND_SHADE, alpha=0.5, lw=0)
+        shown = []
         if before is not None:
-            sb = np.sort(before.share_pct[k, before.valid])[::-1]
-            xb = (np.arange(sb.size) + 0.5) / max(sb.size, 1) * 100.0
-            ax.plot(xb, sb, color=palette.BEFORE, lw=1.4, ls=(0, (4, 2)),
-                    label="current allocation")
-        ax.plot(x, s, color=palette.INK, lw=1.6,
-                label="this plan, sorted" if before is not None else "share, sorted")
+            for c in before.checks:
+                sb = np.sort(c.share_pct[k, c.valid])[::-1]
+                xb = (np.arange(sb.size) + 0.5) / max(sb.size, 1) * 100.0
+                ax.plot(xb, sb, color=palette.BEFORE, lw=1.2, ls=(0, (4, 2)),
+                        label="current allocation" if c is before.checks[0] else None)
+                shown.append(sb)
+        for i, c in enumerate(cs.checks):
+            sc = np.sort(c.share_pct[k, c.valid])[::-1]
+            x = (np.arange(sc.size) + 0.5) / max(sc.size, 1) * 100.0
+            ax.plot(x, sc, color=palette.INK, lw=1.5,
+                    ls=SCENARIO_STYLES[i % len(SCENARIO_STYLES)],
+                    label=c.scenario + (" (this plan)" if before is not None else ""))
+            shown.append(sc)
         ax.axhline(b.min_pct, color=palette.BELOW, lw=1.1, ls="solid", label="band minimum")
         ax.axhline(b.target_pct, color=palette.TARGET, lw=0.9, ls="dotted", label="target")
         ax.axhline(b.max_pct, color=palette.ABOVE, lw=1.1, ls="dashed", label="band maximum")
-        n = max(int(check.valid.sum()), 1)
-        below = 100.0 * st.intervals_below_min / n
-        above = 100.0 * st.intervals_above_max / n
-        verdict = content.block_verdict(st.compliant)
-        ax.set_title(f"{_block_title(b)} - {verdict}\nbelow min {below:.1f} %, above max "
-                     f"{above:.1f} % of intervals", loc="left", fontsize=9,
-                     fontweight="normal" if st.compliant else "bold")
+        verdict = content.block_verdict(v.compliant)
+        ax.set_title(f"{_block_title(b)} - {verdict}\nroom to min {v.headroom_to_min_pp:+.2f} "
+                     f"pp, to max {v.headroom_to_max_pp:+.2f} pp", loc="left", fontsize=9,
+                     fontweight="normal" if v.compliant else "bold")
         ax.set_xlim(0, 100)
-        shown = [s] + ([sb] if before is not None else [])
         lo = min([b.min_pct] + [float(np.nanmin(v)) for v in shown if v.size])
         hi = max([b.max_pct] + [float(np.nanmax(v)) for v in shown if v.size])
         pad = 0.08 * (hi - lo if hi > lo else 1.0)
@@ -267,11 +277,13 @@ def duration_curves(check: Check, before: Check | None) -> tuple[Figure, str, st
                  "(sorted from highest to lowest share)", x=0.01, ha="left", fontsize=11)
     title = "Duration curves of each block's share"
     caption = ("Each block's share of netted demand, sorted from the highest interval to the "
-               "lowest. Where the black curve drops under the orange min line, the block sheds "
-               "too little for that part of the year; above the blue dashed line, too much. "
-               "The grey band is the allowed range.")
+               "lowest, one black curve per scenario (line styles in the legend). Where a "
+               "curve drops under the orange min line, the block sheds too little for that "
+               "part of the year; above the blue dashed line, too much. The grey band is the "
+               "allowed range; 'room' is the smallest distance to its edges over every "
+               "scenario.")
     if before is not None:
-        caption += " The grey dashed curve is the current allocation, for comparison."
+        caption += " The grey dashed curves are the current allocation, for comparison."
     return fig, title, caption
 
 
@@ -343,7 +355,7 @@ def average_day(check: Check) -> tuple[Figure, str, str]:
     fig.legend(h, lab, loc="outside lower center", ncols=len(lab))
     fig.suptitle("Average day: each block's share of netted demand by local hour, per season "
                  "and day type", x=0.01, ha="left", fontsize=11)
-    title = "Average day per season"
+    title = f"Average day per season ({check.scenario})"
     caption = ("Rows are blocks, columns seasons. The lines are the mean share at each local "
                "hour for workdays, Saturdays and Sundays (public holidays count as Sundays); "
                "the light blue area spans the lowest to the highest day of the season at that "
@@ -417,7 +429,7 @@ def feeder_classes(check: Check, fc: content.FeederContrib) -> tuple[Figure, str
     fig.legend(h, lab, loc="outside lower center", ncols=min(len(h), 5))
     fig.suptitle("Which feeder classes (profiles) make up each block's armed load",
                  x=0.01, ha="left", fontsize=11)
-    title = "Feeder classes in each block"
+    title = f"Feeder classes in each block ({check.scenario})"
     caption = ("Armed MW of each block split by feeder class (the workbook's profile). Left: "
                "mean over the year; right: at the interval where the block's share is lowest "
                "(its date and time under each bar). Parts below zero are feeders exporting "
@@ -434,13 +446,30 @@ def windows_size(n: int) -> tuple[float, float]:
     return _snap(11.0, 1.9 + 0.3 * (max(n, 3) + 1.5))
 
 
-def worst_windows(check: Check) -> tuple[Figure, str, str]:
-    w = check.windows()
+def _window_times(cs: ScenarioChecks, w: pd.DataFrame, year: int
+                  ) -> tuple[pd.DatetimeIndex, pd.DatetimeIndex]:
+    """Local start and end of each window, moved onto ``year``'s calendar so windows of
+    scenarios in other years share one axis (same month, day and time)."""
+    by = {c.scenario: c for c in cs.checks}
+    t0, t1 = [], []
+    for sc, st, n in zip(w["scenario"], w["_start"], w["intervals"]):
+        y = by[sc].year
+        lt = y.local_times
+        a = lt[int(st)].tz_localize(None)
+        b = lt[int(st) + int(n) - 1].tz_localize(None) + pd.Timedelta(minutes=y.interval_minutes)
+        shift = pd.DateOffset(years=year - a.year)
+        t0.append(a + shift)
+        t1.append(b + shift)
+    return pd.DatetimeIndex(t0), pd.DatetimeIndex(t1)
+
+
+def worst_windows(cs: ScenarioChecks) -> tuple[Figure, str, str]:
+    w = cs.windows()
     top = w.head(TOP_WINDOWS)
     n = len(top)
     fig = _new(windows_size(n))
     ax = fig.add_subplot()
-    year = check.study.settings.year
+    year = cs.study.settings.year
     _month_axis(ax, year)
     ax.set_xlabel("date")
     if n == 0:
@@ -449,14 +478,10 @@ def worst_windows(check: Check) -> tuple[Figure, str, str]:
                 ha="center", va="center", fontsize=11)
         ax.set_title("Worst windows outside the band", loc="left")
     else:
-        lt = check.year.local_times
-        step = pd.Timedelta(minutes=check.year.interval_minutes)
+        starts, ends = _window_times(cs, top, year)
         labels = []
-        starts = top["_start"].to_numpy(dtype=np.intp)
         for i, r in enumerate(top.drop(columns=["_start"]).itertuples()):
-            st = int(starts[i])
-            t0 = lt[st].tz_localize(None)
-            t1 = lt[st + int(r.intervals) - 1].tz_localize(None) + step
+            t0, t1 = starts[i], ends[i]
             below = r.kind == "below_min"
             color = palette.BELOW if below else palette.ABOVE
             yv = n - 1 - i
@@ -467,11 +492,10 @@ def worst_windows(check: Check) -> tuple[Figure, str, str]:
             kind = content.KIND_WORDS.get(r.kind, r.kind)
             end = f"{t1:%H:%M}" if t1.normalize() == t0.normalize() or t1 == \
                 t0.normalize() + pd.Timedelta(days=1) else f"{t1:%a %d %b %H:%M}"
-            labels.append(f"#{r.rank} {r.block} {kind}: {t0:%a %d %b %H:%M}-{end}, "
-                          f"{r.duration_h:g} h, {r.energy_mwh:.1f} MWh")
+            labels.append(f"#{r.rank} {r.scenario} {r.block} {kind}: {t0:%a %d %b %H:%M}-"
+                          f"{end}, {r.duration_h:g} h, {r.energy_mwh:.1f} MWh")
         # every window, as a rug under the ranked rows
-        all_st = w["_start"].to_numpy(dtype=np.intp)
-        all_x = mdates.date2num(lt[all_st].tz_localize(None))
+        all_x = mdates.date2num(_window_times(cs, w, year)[0])
         kinds = w["kind"].to_numpy()
         for kname, color in (("below_min", palette.BELOW), ("above_max", palette.ABOVE)):
             m = kinds == kname
@@ -493,26 +517,42 @@ def worst_windows(check: Check) -> tuple[Figure, str, str]:
                      f"{len(w)} windows in all)", loc="left")
     title = "Worst windows on the year's timeline"
     caption = (f"The {min(TOP_WINDOWS, len(w))} runs of consecutive intervals outside a block's "
-               "band with the most energy outside it, placed on the year. Each row names the "
-               "block, the date and local time, the duration and the MWh outside the band; "
+               "band with the most energy outside it, placed on the year (windows of a "
+               "scenario in another calendar year at the same date and time). Each row names "
+               "the scenario, the block, the date and local time, the duration and the MWh "
+               "outside the band; "
                "the full list is in the windows table below and on the workbook's windows "
                "sheet.")
     return fig, title, caption
 
 
 # --------------------------------------------------------------------------------------------
-def render_figures(check: Check, out_dir: Path | None, before: Check | None = None,
+def _weakest(cs: ScenarioChecks, j: int) -> Check:
+    """The scenario where block j comes closest to (or goes furthest past) a band edge."""
+    return min(cs.checks, key=lambda c: min(c.stats[j].headroom_to_min_pp,
+                                            c.stats[j].headroom_to_max_pp))
+
+
+def render_figures(check: Check | ScenarioChecks, out_dir: Path | None,
+                   before: Check | ScenarioChecks | None = None,
                    fc: content.FeederContrib | None = None) -> list[FigureFile]:
-    """Render every figure; save PNGs into ``out_dir`` (created) unless it is None."""
-    fc = content.feeder_contrib(check) if fc is None else fc
+    """Render every figure; save PNGs into ``out_dir`` (created) unless it is None.
+    Share maps show each block in its weakest scenario; the duration curves every
+    scenario; the average day and feeder classes the first scenario."""
+    from ..export import as_set
+
+    cs = as_set(check)
+    before = as_set(before) if before is not None else None
+    first = cs.checks[0]
+    fc = content.feeder_contrib(first) if fc is None else fc
     jobs = []
-    for j, b in enumerate(check.blocks):
+    for j, b in enumerate(first.blocks):
         jobs.append((f"share_map_{b.order:02d}_{safe_filename(b.name, 40)}",
-                     lambda j=j: share_map(check, j)))
-    jobs += [("duration_curves", lambda: duration_curves(check, before)),
-             ("average_day", lambda: average_day(check)),
-             ("feeder_classes", lambda: feeder_classes(check, fc)),
-             ("worst_windows", lambda: worst_windows(check))]
+                     lambda j=j: share_map(_weakest(cs, j), j)))
+    jobs += [("duration_curves", lambda: duration_curves(cs, before)),
+             ("average_day", lambda: average_day(first)),
+             ("feeder_classes", lambda: feeder_classes(first, fc)),
+             ("worst_windows", lambda: worst_windows(cs))]
     if out_dir is not None:
         out_dir = Path(out_dir)
         out_dir.mkdir(parents=True, exist_ok=True)

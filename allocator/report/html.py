@@ -15,7 +15,8 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from ..check import Check, annual_statement, exporting_feeders
+from ..check import Check, ScenarioChecks, annual_statement, exporting_feeders
+from ..export import as_set, stacked
 from . import content
 
 #: windows listed in the page (all of them are in the workbook)
@@ -111,14 +112,31 @@ def _table(headers: list[str], rows: list[str]) -> str:
             f"<tbody>{''.join(rows)}</tbody></table></div>")
 
 
-def _verdict_box(check: Check, label: str) -> str:
-    ok = check.compliant
+def _verdict_box(cs: ScenarioChecks, label: str) -> str:
+    from ..check import verdict_covers
+
+    ok = cs.compliant
     word = "COMPLIANT" if ok else "NOT COMPLIANT"
     return (f'<div class="verdict {"ok" if ok else "bad"}"><div class="small">{esc(label)}'
-            f'</div><div class="word">{word}</div><p>{esc(content.verdict_words(check))}</p>'
-            f'<p class="small">All blocks are in their bands together in '
-            f'{100 * check.all_in_band_fraction:.1f} % of the {check.year.n_intervals} '
-            f'intervals.</p></div>')
+            f'</div><div class="word">{word}</div><p>{esc(content.verdict_words_set(cs))}</p>'
+            f'<p class="small">{esc(verdict_covers(cs))}</p></div>')
+
+
+def _scenario_table(cs: ScenarioChecks) -> str:
+    heads = ["scenario", "PV", "PV scale", "load scale", "calendar year", "all blocks in band "
+             "% of intervals", "worst distance outside band pp", "verdict"]
+    rows = []
+    for c in cs.checks:
+        i = c.year.scenario_info
+        bad = [s.block for s in c.stats if not s.compliant]
+        rows.append(f"<tr><td>{esc(c.scenario)}</td><td>{esc(i.get('pv', c.year.source))}</td>"
+                    f"{_td(i.get('pv_scale', 1.0), 'g')}{_td(i.get('load_scale', 1.0), 'g')}"
+                    f"{_td(c.year.calendar_year, 'd')}{_td(100 * c.all_in_band_fraction, '.1f')}"
+                    f"{_td(c.worst_violation_pp, '.2f')}"
+                    f'<td class="{"good" if c.compliant else "bad"}">'
+                    f'{"compliant" if c.compliant else "not compliant: " + esc(", ".join(bad))}'
+                    "</td></tr>")
+    return _table(heads, rows)
 
 
 def _settings_table(check: Check) -> str:
@@ -132,44 +150,54 @@ def _settings_table(check: Check) -> str:
     return _table(heads, rows)
 
 
-def _block_table(check: Check, before: Check | None) -> str:
-    heads = ["block", "band %", "lowest %", "P5 %", "mean %", "highest %",
-             "intervals below min", "intervals above max", "shortfall MWh", "verdict"]
+def _block_table(cs: ScenarioChecks, before: ScenarioChecks | None) -> str:
+    heads = ["scenario", "block", "band %", "lowest %", "P5 %", "mean %", "P95 %", "highest %",
+             "room above min pp", "room below max pp", "intervals below min",
+             "intervals above max", "shortfall MWh", "verdict"]
     if before is not None:
         heads += ["current: lowest %", "current: intervals below min", "current: verdict"]
+    prev = {c.scenario: c for c in before.checks} if before is not None else {}
     rows = []
-    for k, s in enumerate(check.stats):
-        lo, hi = s.min_pct, s.max_pct
-        cells = [f"<td>{esc(s.block)}</td>", f'<td class="n">{_n(lo, "g")}-{_n(hi, "g")}</td>']
-        for v in (s.min_share_pct, s.p5_share_pct, s.mean_share_pct, s.max_share_pct):
-            cells.append(_td(v, ".2f", _band_cls(v, lo, hi)))
-        cells += [_td(s.intervals_below_min, "d"), _td(s.intervals_above_max, "d"),
-                  _td(s.shortfall_mwh, ".1f"),
-                  f'<td class="{"good" if s.compliant else "bad"}">'
-                  f'{content.block_verdict(s.compliant)}</td>']
-        if before is not None:
-            bs = before.stats[k]
-            cells += [_td(bs.min_share_pct, ".2f", _band_cls(bs.min_share_pct, lo, hi)),
-                      _td(bs.intervals_below_min, "d"),
-                      f'<td class="{"good" if bs.compliant else "bad"}">'
-                      f'{content.block_verdict(bs.compliant)}</td>']
-        rows.append("<tr>" + "".join(cells) + "</tr>")
+    for c in cs.checks:
+        for k, s in enumerate(c.stats):
+            lo, hi = s.min_pct, s.max_pct
+            cells = [f"<td>{esc(c.scenario)}</td><td>{esc(s.block)}</td>",
+                     f'<td class="n">{_n(lo, "g")}-{_n(hi, "g")}</td>']
+            for v in (s.min_share_pct, s.p5_share_pct, s.mean_share_pct, s.p95_share_pct,
+                      s.max_share_pct):
+                cells.append(_td(v, ".2f", _band_cls(v, lo, hi)))
+            cells += [_td(s.headroom_to_min_pp, "+.2f"), _td(s.headroom_to_max_pp, "+.2f"),
+                      _td(s.intervals_below_min, "d"), _td(s.intervals_above_max, "d"),
+                      _td(s.shortfall_mwh, ".1f"),
+                      f'<td class="{"good" if s.compliant else "bad"}">'
+                      f'{content.block_verdict(s.compliant)}</td>']
+            if c.scenario in prev:
+                bs = prev[c.scenario].stats[k]
+                cells += [_td(bs.min_share_pct, ".2f", _band_cls(bs.min_share_pct, lo, hi)),
+                          _td(bs.intervals_below_min, "d"),
+                          f'<td class="{"good" if bs.compliant else "bad"}">'
+                          f'{content.block_verdict(bs.compliant)}</td>']
+            elif before is not None:
+                cells += ["<td></td>"] * 3
+            rows.append("<tr>" + "".join(cells) + "</tr>")
     key = ('<p class="key small"><span style="background:var(--below)">below the band\'s '
            'minimum</span><span style="background:var(--above)">above the band\'s maximum'
-           '</span> Share = armed MW of the block / netted demand, per interval.</p>')
+           '</span> Share = armed MW of the block / netted demand, per interval. Room = the '
+           'smallest distance to the band\'s edge over the year (negative: outside).</p>')
     return _table(heads, rows) + key
 
 
-def _windows(check: Check) -> str:
+def _windows(check: ScenarioChecks) -> str:
     w = content.windows_table(check)
     if w.empty:
-        return "<p>No interval lies outside any block's band.</p>"
-    heads = ["rank", "block", "kind", "start (local)", "end (local)", "hours", "worst share %",
-             "band limit %", "MWh outside band"]
+        return "<p>No interval lies outside any block's band in any scenario.</p>"
+    heads = ["rank", "scenario", "block", "kind", "start (local)", "end (local)", "hours",
+             "worst share %", "band limit %", "MWh outside band"]
     rows = []
     for r in w.head(WINDOWS_SHOWN).itertuples():
         cls = "below" if r.kind == "below min" else "above"
-        rows.append(f"<tr>{_td(r.rank, 'd')}<td>{esc(r.block)}</td><td>{esc(r.kind)}</td>"
+        rows.append(f"<tr>{_td(r.rank, 'd')}<td>{esc(r.scenario)}</td><td>{esc(r.block)}</td>"
+                    f"<td>{esc(r.kind)}</td>"
                     f"<td>{esc(r.start_local)}</td><td>{esc(r.end_local)}</td>"
                     f"{_td(r.duration_h, 'g')}{_td(r.worst_share_pct, '.2f', cls)}"
                     f"{_td(r.band_pct, 'g')}{_td(r.energy_mwh, '.1f')}</tr>")
@@ -202,20 +230,22 @@ def _relay_changes(check: Check, previous_idx) -> str:
             "</p>" + _table(heads, rows))
 
 
-def _exports(check: Check, limit: int = 15) -> str:
-    df = exporting_feeders(check)
+def _exports(check: ScenarioChecks, limit: int = 15) -> str:
+    df = stacked(check, exporting_feeders)
     if df.empty or "substation" not in df.columns:
-        return "<p>No armed feeder exports at any interval.</p>"
-    heads = ["feeder", "substation", "block", "relay", "exporting hours", "largest export MW",
-             "time of largest export (local)", "negative contribution MWh"]
+        return "<p>No armed feeder exports at any interval of any scenario.</p>"
+    heads = ["scenario", "feeder", "substation", "block", "relay", "exporting hours",
+             "largest export MW", "time of largest export (local)", "negative contribution MWh"]
     rows = []
     for r in df.head(limit).itertuples():
-        rows.append(f"<tr><td>{esc(r.feeder_id)}</td><td>{esc(r.substation)}</td>"
+        rows.append(f"<tr><td>{esc(r.scenario)}</td><td>{esc(r.feeder_id)}</td>"
+                    f"<td>{esc(r.substation)}</td>"
                     f"<td>{esc(r.block)}</td><td>{esc(r.relay)}</td>"
                     f"{_td(r.exporting_hours, 'g')}{_td(r.most_export_mw, '.2f')}"
                     f"<td>{esc(r.most_export_local_time)}</td>"
                     f"{_td(r.negative_contribution_mwh, '.1f')}</tr>")
-    note = (f"<p>{len(df)} armed feeders export at some interval (PV above load). On a standard "
+    note = (f"<p>{len(df)} (scenario, armed feeder) pairs export at some interval (PV above "
+            "load). On a standard "
             "relay an exporting feeder lowers its block's share: tripping it would raise the "
             "system's net load. A direction-blocked relay does not trip it while it exports."
             + (f" The {limit} with the largest negative contribution are listed; all are on "
@@ -223,7 +253,10 @@ def _exports(check: Check, limit: int = 15) -> str:
     return note + _table(heads, rows)
 
 
-def _statement(check: Check) -> str:
+def _statement(cs: ScenarioChecks) -> str:
+    from ..check import statement_check
+
+    check = statement_check(cs)
     heads = ["block", "frequency setting (pickup) Hz", "time delay s",
              "netted demand disconnected, mean %", "netted demand disconnected, minimum %",
              "cumulative mean %", "cumulative minimum %"]
@@ -239,7 +272,8 @@ def _statement(check: Check) -> str:
             "emergency and restoration), Art. 35(1): each frequency setting at which netted "
             "demand disconnection starts and the percentage of netted demand disconnected at "
             "it, as the mean and the minimum over the study year. Cumulative = this block and "
-            "all blocks that trip before it.</p>" + _table(heads, rows))
+            f"all blocks that trip before it. Scenario: {esc(check.scenario)}.</p>"
+            + _table(heads, rows))
 
 
 def _kv(pairs: list[tuple[str, str]]) -> str:
@@ -286,18 +320,19 @@ def _frequency(freq: dict | None) -> str:
     if not freq:
         return ""
     after, bef = freq.get("after"), freq.get("before")
-    bmap = {r["interval"]: r for r in (bef or {}).get("intervals", [])}
-    heads = ["interval", "local time", "demand MW", "armed %", "largest loss %"]
+    key = lambda r: (r.get("scenario", ""), r["interval"])  # noqa: E731
+    bmap = {key(r): r for r in (bef or {}).get("intervals", [])}
+    heads = ["scenario", "interval", "local time", "demand MW", "armed %", "largest loss %"]
     if bef:
-        heads = heads[:3] + ["armed % before", "armed % after", "largest loss % before",
+        heads = heads[:4] + ["armed % before", "armed % after", "largest loss % before",
                              "largest loss % after"]
     rows = []
     for r in after["intervals"]:
         lc = r["largest_covered_pct"]
-        cells = [f"<td>{esc(r['interval'])}</td>", f"<td>{esc(r['local_time'])}</td>",
-                 _td(r["demand_mw"], ".0f")]
+        cells = [f"<td>{esc(r.get('scenario', ''))}</td>", f"<td>{esc(r['interval'])}</td>",
+                 f"<td>{esc(r['local_time'])}</td>", _td(r["demand_mw"], ".0f")]
         if bef:
-            b = bmap.get(r["interval"])
+            b = bmap.get(key(r))
             cells += [_td(b["total_armed_pct"] if b else None, ".1f"),
                       _td(r["total_armed_pct"], ".1f"),
                       _td(b["largest_covered_pct"] if b else None, ".0f"), _td(lc, ".0f")]
@@ -321,9 +356,12 @@ def _frequency(freq: dict | None) -> str:
     return "".join(out)
 
 
-def render_html(check: Check, figs, previous_idx: np.ndarray | None = None,
-                plan_info: dict | None = None, before: Check | None = None,
+def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray | None = None,
+                plan_info: dict | None = None, before: Check | ScenarioChecks | None = None,
                 frequency: dict | None = None) -> str:
+    cs = as_set(checks)
+    before = as_set(before) if before is not None else None
+    check = cs.checks[0]
     s = check.study.settings
     what = ("a planned allocation" if plan_info else
             "a proposed assignment" if previous_idx is not None else
@@ -339,8 +377,9 @@ def render_html(check: Check, figs, previous_idx: np.ndarray | None = None,
         f"<title>{esc(title)}</title><style>{CSS}</style></head><body>",
         f"<h1>{esc(title)}</h1>",
         f'<p class="meta">Workbook {esc(content.workbook_name(check))}; this report checks '
-        f"{esc(what)}; rule {esc(check.rule)}; {check.year.n_intervals} intervals of "
-        f"{check.year.interval_minutes} min; ufls-allocator {esc(__version__)}.</p>",
+        f"{esc(what)}; rule {esc(check.rule)}; scenarios {esc(', '.join(cs.names))}; "
+        f"intervals of {check.year.interval_minutes} min; ufls-allocator "
+        f"{esc(__version__)}.</p>",
         '<div class="caution-strip"><strong>Caution:</strong> UFLS disconnects customers. '
         "Protect priority sites (hospitals, life-support customers, water pumping) as your "
         "local rules require. These results are indicative planning support; the system "
@@ -348,40 +387,41 @@ def render_html(check: Check, figs, previous_idx: np.ndarray | None = None,
         "Verify relay settings before any change in the field. See the cautions at the end."
         "</div>",
         "<h2>Verdict</h2>",
-        _verdict_box(check, "Planned allocation (after)" if before is not None
+        _verdict_box(cs, "Planned allocation (after)" if before is not None
                      else "Allocation checked"),
     ]
     if before is not None:
         parts.append(_verdict_box(before, "Current allocation (before)"))
-        parts.append(f"<p>All blocks in band together: {100 * before.all_in_band_fraction:.1f} % "
-                     f"of intervals before, {100 * check.all_in_band_fraction:.1f} % after; "
-                     f"worst distance outside a band {before.worst_violation_pp:.2f} pp before, "
-                     f"{check.worst_violation_pp:.2f} pp after.</p>")
+        parts.append(f"<p>Worst distance outside a band over every scenario: "
+                     f"{before.worst_violation_pp:.2f} pp before, {cs.worst_violation_pp:.2f} "
+                     "pp after.</p>")
+    parts.append("<h3>Scenarios judged</h3>")
+    parts.append(_scenario_table(cs))
     if previous_idx is not None:
         n = int(np.sum(np.asarray(previous_idx) != check.block_idx))
         parts.append(f"<p>{n} feeders change block compared with the current allocation.</p>")
     parts.append(f"<p>{esc(content.priority_summary(check).words(s.priority_policy))}</p>")
     parts.append(_plan(plan_info))
     parts.append("<h3>Per block</h3>")
-    parts.append(_block_table(check, before))
+    parts.append(_block_table(cs, before))
     parts.append("<h3>Block settings</h3>")
     parts.append(_settings_table(check))
     parts.append("<h2>Pictures</h2>")
     parts.append(_figures(figs))
     parts.append("<h2>Windows outside the band</h2>")
-    parts.append(_windows(check))
+    parts.append(_windows(cs))
     parts.append("<h2>Exporting feeders</h2>")
-    parts.append(_exports(check))
+    parts.append(_exports(cs))
     parts.append("<h2>Relay changes (field work list)</h2>")
     parts.append(_relay_changes(check, previous_idx))
     parts.append("<h2>Annual statement: frequency settings and netted demand disconnected</h2>")
-    parts.append(_statement(check))
+    parts.append(_statement(cs))
     if frequency:
         parts.append("<h2>Frequency indication (single-bus model)</h2>")
         parts.append(_frequency(frequency))
     parts.append("<h2>Assumptions</h2>")
     parts.append(_kv(content.assumptions(check)))
-    warns = content.all_warnings(check)
+    warns = content.all_warnings(cs)
     if warns:
         parts.append(f"<h2>Warnings ({len(warns)})</h2><ul>"
                      + "".join(f"<li>{esc(w)}</li>" for w in warns[:200]) + "</ul>"
@@ -392,8 +432,9 @@ def render_html(check: Check, figs, previous_idx: np.ndarray | None = None,
     return "\n".join(parts)
 
 
-def write_html(check: Check, path: Path, figs, previous_idx: np.ndarray | None = None,
-               plan_info: dict | None = None, before: Check | None = None,
+def write_html(check: Check | ScenarioChecks, path: Path, figs,
+               previous_idx: np.ndarray | None = None, plan_info: dict | None = None,
+               before: Check | ScenarioChecks | None = None,
                frequency: dict | None = None) -> Path:
     path = Path(path)
     path.write_text(render_html(check, figs, previous_idx, plan_info, before, frequency),
