@@ -53,6 +53,7 @@ when it is far (e.g. over 200 km), and ``WeatherYear.utc_offset_h`` can be compa
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -206,7 +207,9 @@ def _load_tmy3(p: Path, col: Collector):
     import pvlib
 
     try:
-        df, meta = pvlib.iotools.read_tmy3(p, map_variables=True)
+        with warnings.catch_warnings():  # text in a number column: reported below, per line
+            warnings.simplefilter("ignore", pd.errors.DtypeWarning)
+            df, meta = pvlib.iotools.read_tmy3(p, map_variables=True)
         if len(df) == 0:
             col.add("holds no hourly records (expected 8760 after the two header lines)")
             return None
