@@ -399,7 +399,10 @@ def plane_of_array_w_per_m2(weather: WeatherYear, tilt_deg: float = 0.0,
                                                 method="nrel_numpy")
     zenith = pos["apparent_zenith"].to_numpy(dtype=float)
     up = pos["apparent_elevation"].to_numpy(dtype=float) > 0.0
-    dni_extra = np.asarray(pvlib.irradiance.get_extra_radiation(mid), dtype=float)
+    # day of year rather than the instants: the same Spencer value without pvlib's call of
+    # the deprecated DatetimeIndex.dayofyear (a warning under pandas 3)
+    dni_extra = np.asarray(pvlib.irradiance.get_extra_radiation(
+        mid.day_of_year.to_numpy()), dtype=float)
     total = pvlib.irradiance.get_total_irradiance(
         tilt_deg, az, zenith, pos["azimuth"].to_numpy(dtype=float),
         np.where(up, weather.dni_w_per_m2, 0.0), weather.ghi_w_per_m2, weather.dhi_w_per_m2,
