@@ -179,7 +179,7 @@ def test_hand_example_stats(hand):
     assert s1.shortfall_mwh == pytest.approx(10.0, abs=1e-12)
     assert s1.excess_mwh == pytest.approx(1.0, abs=1e-12)
     assert s1.worst_violation_pp == pytest.approx(4.0, abs=1e-12)
-    assert s1.min_share_local_time == "2025-06-02T12:00:00+02:00"  # h12, CEST
+    assert s1.min_share_local_time == "2025-06-02T12:00+02:00"  # h12, CEST (ISO 8601 local time and offset)
     assert s1.compliant is False
     # S2 sorted: 4, 5, 5, 8, 8, 10 x19.  mean = (4 + 5 + 5 + 8 + 8 + 190)/24 = 220/24
     #   P1 = 4.23, P5 = 5, P95 = 10;  below: h9, h10, h20 -> 3;  above: 0
@@ -192,7 +192,7 @@ def test_hand_example_stats(hand):
     assert (s2.intervals_below_min, s2.intervals_above_max) == (3, 0)
     assert s2.shortfall_mwh == pytest.approx(10.0, abs=1e-12)
     assert s2.excess_mwh == 0.0
-    assert s2.min_share_local_time == "2025-06-02T20:00:00+02:00"
+    assert s2.min_share_local_time == "2025-06-02T20:00+02:00"
     assert chk.compliant is False
     assert chk.worst_violation_pp == pytest.approx(4.0, abs=1e-12)
     # all blocks in band: every hour except h0, h9, h10, h11, h12, h13, h20 -> 17 of 24
@@ -209,13 +209,13 @@ def test_hand_example_windows(hand):
     #   S1 above: h0     -> 00:00-01:00, 1 h, worst 13 %, 1 MWh
     # ranked by energy: 10, 6, 4, 1.
     exp = [
-        (1, "S1", "below_min", "2025-06-02 11:00 CEST", "2025-06-02 14:00 CEST", 3.0, 3, 4.0,
+        (1, "S1", "below_min", "2025-06-02T11:00+02:00", "2025-06-02T14:00+02:00", 3.0, 3, 4.0,
          8.0, 10.0),
-        (2, "S2", "below_min", "2025-06-02 09:00 CEST", "2025-06-02 11:00 CEST", 2.0, 2, 5.0,
+        (2, "S2", "below_min", "2025-06-02T09:00+02:00", "2025-06-02T11:00+02:00", 2.0, 2, 5.0,
          8.0, 6.0),
-        (3, "S2", "below_min", "2025-06-02 20:00 CEST", "2025-06-02 21:00 CEST", 1.0, 1, 4.0,
+        (3, "S2", "below_min", "2025-06-02T20:00+02:00", "2025-06-02T21:00+02:00", 1.0, 1, 4.0,
          8.0, 4.0),
-        (4, "S1", "above_max", "2025-06-02 00:00 CEST", "2025-06-02 01:00 CEST", 1.0, 1, 13.0,
+        (4, "S1", "above_max", "2025-06-02T00:00+02:00", "2025-06-02T01:00+02:00", 1.0, 1, 13.0,
          12.0, 1.0),
     ]
     got = w[["rank", "block", "kind", "start_local", "end_local", "duration_h", "intervals",
@@ -241,10 +241,10 @@ def test_hand_example_exporting_and_substations(hand):
     assert list(ex.index) == ["F1", "F2"]
     assert ex.loc["F1", "exporting_hours"] == 3 and ex.loc["F2", "exporting_hours"] == 3
     assert ex.loc["F1", "most_export_mw"] == pytest.approx(2.0)
-    assert ex.loc["F1", "most_export_local_time"] == "2025-06-02 12:00 CEST"
+    assert ex.loc["F1", "most_export_local_time"] == "2025-06-02T12:00+02:00"
     assert ex.loc["F1", "negative_contribution_mwh"] == pytest.approx(4.0)
     assert ex.loc["F2", "most_export_mw"] == pytest.approx(2.0)
-    assert ex.loc["F2", "most_export_local_time"] == "2025-06-02 10:00 CEST"
+    assert ex.loc["F2", "most_export_local_time"] == "2025-06-02T10:00+02:00"
     assert ex.loc["F2", "negative_contribution_mwh"] == 0.0
     bs = by_substation(chk).set_index(["substation", "block"])
     # mean contribution over 24 h:  S1/SUBA F0 = 6;  S1/SUBB F1 = (7 - 4 + 20*4)/24 = 83/24;
@@ -309,8 +309,8 @@ def test_demand_nonpositive_intervals_reported_never_divided(tmp_path):
     assert s2.compliant and not s1.compliant
     w = shortfall_windows(chk)
     assert list(zip(w.block, w.start_local, w.duration_h, w.energy_mwh.round(9))) == [
-        ("S1", "2025-06-02 00:00 CEST", 2.0, 6.0),
-        ("S1", "2025-06-02 04:00 CEST", 2.0, 6.0)]
+        ("S1", "2025-06-02T00:00+02:00", 2.0, 6.0),
+        ("S1", "2025-06-02T04:00+02:00", 2.0, 6.0)]
     # all-nonpositive demand: nothing to divide by, nothing compliant
     year0 = _year(study, net, [0.0] * 6)
     with np.errstate(all="raise"):
