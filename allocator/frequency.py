@@ -333,8 +333,9 @@ class FrequencyResult:
     shed_pct            total share shed at the end, % of demand
     final_hz            frequency at the end of the run
     within_limits       floor_hz ≤ f ≤ ceiling_hz over the whole run
-    largest_covered_pct [case] largest disturbance such that it and every smaller one in the
-                        sweep stay within limits; NaN if even the smallest does not
+    largest_covered_pct [case] :func:`largest_covered_pct` of this sweep: the largest loss
+                        such that it and every smaller one stay within limits; NaN if even
+                        the smallest does not
     error_estimate_hz   step-doubling estimate of the integration error (sum over the run)
     max_late_trip_s     largest lateness of a trip applied at a step end (0 when exact)
     floor_hz, ceiling_hz, nominal_hz  limits used
@@ -885,10 +886,13 @@ def plot_traces(result: FrequencyResult, case: int = 0, disturbances=None,
     return fig
 
 
-def plot_nadir_vs_size(result: FrequencyResult, case: int = 0, title: str | None = None):
+def plot_nadir_vs_size(result: FrequencyResult, case: int = 0, title: str | None = None,
+                       covered_pct: float | None = None):
     """Nadir and zenith against disturbance size for one case; returns a matplotlib Figure.
 
-    The largest covered disturbance is marked with a vertical dotted line.
+    The largest loss kept within limits is marked with a vertical dotted line:
+    ``covered_pct`` when given (a caller that examined more sizes than ``result`` holds passes
+    its own :func:`largest_covered_pct`), else ``result.largest_covered_pct[case]``.
     """
     from matplotlib.figure import Figure
 
@@ -904,10 +908,11 @@ def plot_nadir_vs_size(result: FrequencyResult, case: int = 0, title: str | None
     if bad.any():
         ax.plot(d[bad], result.nadir_hz[case, order][bad], ls="none", marker="o", ms=10,
                 mfc="none", color=_PALETTE[3], label="outside limits")
-    cov = result.largest_covered_pct[case]
+    cov = result.largest_covered_pct[case] if covered_pct is None else covered_pct
     if np.isfinite(cov):
-        ax.axvline(cov, color=_PALETTE[2], ls=":", lw=1.4, label=f"covered up to {cov:g} %")
-    ax.set_xlim(0.0, d[-1] * 1.05)
+        ax.axvline(cov, color=_PALETTE[2], ls=":", lw=1.4,
+                   label=f"largest loss kept within limits: {cov:g} %")
+    ax.set_xlim(0.0, max(d[-1], cov if np.isfinite(cov) else 0.0) * 1.05)
     _limit_lines(ax, result)
     ax.set_xlabel("generation loss (% of demand)")
     ax.set_ylabel("frequency (Hz)")

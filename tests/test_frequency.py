@@ -441,3 +441,17 @@ def test_five_blocks_match_piecewise_solve_ivp():
         np.testing.assert_array_equal(np.isnan(r.trip_time_s[0, j]), np.isnan(trip_ref))
         m = ~np.isnan(trip_ref)
         assert np.max(np.abs(r.trip_time_s[0, j][m] - trip_ref[m])) < 1e-4
+
+
+def test_largest_covered_stops_at_the_first_loss_outside_limits():
+    # definition of this tool (no outside source): sizes in any order, a size listed twice
+    # counts only if every run of it stays within limits
+    from allocator.frequency import largest_covered_pct
+
+    sizes = [20.0, 5.0, 10.0, 15.0, 10.0, 30.0]
+    within = [[True, True, True, False, True, True],   # 15 fails → 10
+              [True, True, True, True, False, True],   # one run of 10 fails → 5
+              [False, False, True, True, True, True],  # 5 fails → none
+              [True] * 6]                              # all → 30
+    got = largest_covered_pct(sizes, within)
+    np.testing.assert_array_equal(got, [10.0, 5.0, np.nan, 30.0])
