@@ -323,18 +323,47 @@ def _critical_trace_png(studies) -> bytes:
 
 
 def _print_frequency(console, summary: dict) -> None:
+    """The frequency indication per examined interval, cutting no number at any width.
+
+    A table when it fits (80 columns do): each interval's labels and its ISO 8601 local time
+    stacked in the first column, every column fixed at least as wide as its longest value,
+    headers wrapping into the width left.  Narrower consoles get one block of lines per
+    interval.  (rich's own shrinking would cut values with "…", so widths are set here.)
+    """
     from rich.table import Table
 
-    t = Table(title="Frequency indication: largest generation loss kept within "
-              f"{summary['floor_hz']:g}–{summary['ceiling_hz']:g} Hz", title_justify="left")
-    for col in ("interval", "local time", "MW", "armed %", "max loss %", "max loss MW"):
-        t.add_column(col, no_wrap=True)
+    title = ("Frequency indication: largest generation loss kept within "
+             f"{summary['floor_hz']:g}–{summary['ceiling_hz']:g} Hz")
+    heads = ("interval and local time", "demand MW", "armed %",
+             "largest loss kept within limits %", "that loss MW")
+    rows = []
     for r in summary["intervals"]:
         lc = r["largest_covered_pct"]
-        t.add_row(r["interval"], r["local_time"][5:16], f"{r['demand_mw']:.0f}",
-                  f"{r['total_armed_pct']:.1f}", "none" if lc is None else f"{lc:g}",
-                  "—" if lc is None else f"{r['largest_covered_mw']:.0f}")
-    console.print(t)
+        rows.append(("\n".join(r["interval"].split("+")) + "\n" + r["local_time"],
+                     f"{r['demand_mw']:.0f}", f"{r['total_armed_pct']:.1f}",
+                     "none" if lc is None else f"{lc:g}",
+                     "—" if lc is None else f"{r['largest_covered_mw']:.0f}"))
+    widths = [max([len(w) for w in h.split()] + [len(x) for row in rows
+                                                  for x in row[j].split("\n")])
+              for j, h in enumerate(heads)]
+    spare = console.width - (sum(widths) + 3 * len(heads) + 1)  # borders and padding
+    if spare < 0:
+        console.print(title)
+        for row in rows:
+            console.print(row[0].replace("\n", " "), highlight=False)
+            for h, v in zip(heads[1:], row[1:]):
+                console.print(f"  {h}: {v}", highlight=False)
+    else:
+        for j in sorted(range(len(heads)), key=lambda j: len(heads[j]) - widths[j]):
+            grow = min(spare, max(0, len(heads[j]) - widths[j]))  # short headers whole first
+            widths[j] += grow
+            spare -= grow
+        t = Table(title=title, title_justify="left")
+        for j, h in enumerate(heads):
+            t.add_column(h, justify="left" if j == 0 else "right", width=widths[j])
+        for row in rows:
+            t.add_row(*row)
+        console.print(t)
     console.print("[dim]" + summary["cautions"][0] + "[/dim]")
 
 

@@ -333,8 +333,9 @@ class FrequencyResult:
     shed_pct            total share shed at the end, % of demand
     final_hz            frequency at the end of the run
     within_limits       floor_hz ≤ f ≤ ceiling_hz over the whole run
-    largest_covered_pct [case] largest disturbance such that it and every smaller one in the
-                        sweep stay within limits; NaN if even the smallest does not
+    largest_covered_pct [case] :func:`largest_covered_pct` of this sweep: the largest loss
+                        such that it and every smaller one stay within limits; NaN if even
+                        the smallest does not
     error_estimate_hz   step-doubling estimate of the integration error (sum over the run)
     max_late_trip_s     largest lateness of a trip applied at a step end (0 when exact)
     floor_hz, ceiling_hz, nominal_hz  limits used
@@ -416,6 +417,27 @@ def _cross_frac(a, b, level):
     return np.clip(np.nan_to_num(fr, nan=1.0), 0.0, 1.0)
 
 
+def largest_covered_pct(disturbances_pct, within_limits) -> np.ndarray:
+    """[case] largest loss such that it and every smaller loss of the sweep stay within limits.
+
+    ``disturbances_pct``: [disturbance] in any order (a size listed twice counts as within
+    limits only if every run of it is); ``within_limits``: [case, disturbance] bool.  NaN for
+    a case in which even the smallest loss leaves the limits.  The one definition of the
+    "largest loss kept within limits" used by the results, tables and figures.
+    """
+    dist = np.asarray(disturbances_pct, dtype=float).ravel()
+    within = np.asarray(within_limits, dtype=bool).reshape(-1, dist.size)
+    sizes, where = np.unique(dist, return_inverse=True)
+    n_bad = np.zeros((sizes.size, within.shape[0]))
+    np.add.at(n_bad, where.ravel(), (~within).T)
+    ok_sorted = np.logical_and.accumulate(n_bad.T == 0, axis=1)  # [case, sorted size]
+    covered = np.full(within.shape[0], np.nan)
+    any_ok = ok_sorted[:, 0]
+    last = ok_sorted.sum(axis=1) - 1
+    covered[any_ok] = sizes[last[any_ok]]
+    return covered
+
+
 def simulate(params: SystemParams, blocks: Sequence[Block], armed_pct,
              disturbances_pct=None, duration_s: float = 60.0, dt_s: float = 0.01, *,
              keep_traces: bool = False, relay_reset: bool = True,
@@ -426,7 +448,9 @@ def simulate(params: SystemParams, blocks: Sequence[Block], armed_pct,
     ----------
     params : SystemParams
     blocks : UFLS blocks (``pickup_hz``, ``delay_s``, ``rocof_hz_per_s``, ``rocof_arm_hz``);
-        ``rocof_hz_per_s`` is the magnitude of the falling rate (its sign is ignored).
+        ``rocof_hz_per_s`` is the magnitude of the falling rate (its sign is ignored).  The
+        workbook requires ``rocof_arm_hz`` with every RoCoF setting; called directly, a
+        missing one arms the element at nominal frequency.
     armed_pct : ``[case, block]`` (or ``[block]`` for one case) armed share of each block,
         % of demand; negative values (exporting feeders) are allowed.
     disturbances_pct : generation losses, % of demand; default ``params.disturbances_pct``.
@@ -436,9 +460,22 @@ def simulate(params: SystemParams, blocks: Sequence[Block], armed_pct,
     error_check : compute the step-doubling error estimate (about 1.5× the work).
 
     The model, relay logic and integrator are described in the module docstring
-    (Anderson & Mirheydar 1990 SFR model with a shed-load input).
+    (Anderson & Mirheydar 1990 SFR model with a shed-load input).  The steps of one time
+    step are the methods of :class:`_Run`.
     """
     blocks = tuple(blocks)
+    armed, dist, n_steps = _checked_inputs(params, blocks, armed_pct, disturbances_pct,
+                                           duration_s, dt_s)
+    run = _Run(params, blocks, armed, dist, n_steps, dt_s, keep_traces=keep_traces,
+               relay_reset=relay_reset, error_check=error_check)
+    for k in range(n_steps):
+        run.step(k)
+    return run.result()
+
+
+def _checked_inputs(params, blocks, armed_pct, disturbances_pct, duration_s, dt_s):
+    """(armed [case, block] %, disturbances [disturbance] %, number of steps); ValueError
+    for inputs :func:`simulate` cannot run."""
     nb = len(blocks)
     armed = np.asarray(armed_pct, dtype=float)
     if armed.ndim == 1:
@@ -456,25 +493,26 @@ def simulate(params: SystemParams, blocks: Sequence[Block], armed_pct,
     n_steps = int(round(duration_s / dt_s))
     if n_steps < 1 or abs(n_steps * dt_s - duration_s) > 1e-9 * max(1.0, duration_s):
         raise ValueError("duration_s must be a whole number of steps dt_s")
+    return armed, dist, n_steps
 
-    n_case, n_dist = armed.shape[0], dist.size
-    n = n_case * n_dist
-    share = np.repeat(armed / 100.0, n_dist, axis=0)  # [row, block] pu
-    p_pu = np.tile(dist / 100.0, n_case)  # [row]
-    time_s = np.arange(n_steps + 1) * dt_s
-    dt = float(dt_s)
 
+@dataclass(frozen=True)
+class _Relays:
+    """Relay settings as arrays: ``[block]``, and ``[rate element]`` for the ``rc_*`` ones
+    (``rc_blocks`` maps a rate element to its block)."""
+
+    pickup: np.ndarray
+    delay: np.ndarray
+    total_delay: np.ndarray  # delay + breaker time
+    rc_blocks: np.ndarray
+    rc_set: np.ndarray  # falling rate, Hz/s (magnitude)
+    rc_arm: np.ndarray  # arming frequency, Hz
+    rc_total: np.ndarray
+    rc_delay: np.ndarray
+
+
+def _relay_settings(params: SystemParams, blocks: tuple[Block, ...]) -> _Relays:
     f0 = float(params.nominal_hz)
-    inv2h = 1.0 / (2.0 * params.inertia_h_s)
-    km_r = params.mech_gain_km / params.droop_r_pu
-    a_wy = -km_r * (1.0 - params.hp_fraction_fh) * inv2h
-    a_w0 = km_r * params.hp_fraction_fh
-    damp = params.damping_d_pu
-    i_tr = 1.0 / params.reheat_tr_s
-
-    def coeffs(s, p):
-        return -(a_w0 + damp * (1.0 - s)) * inv2h, (s - p) * inv2h
-
     pickup = np.array([b.pickup_hz for b in blocks], dtype=float)
     delay = np.array([b.delay_s for b in blocks], dtype=float)
     if np.any(delay < 0) or not np.all(np.isfinite(pickup)):
@@ -482,270 +520,322 @@ def simulate(params: SystemParams, blocks: Sequence[Block], armed_pct,
     total_delay = delay + params.breaker_time_s
     rc_blocks = np.array([i for i, b in enumerate(blocks) if b.rocof_hz_per_s is not None],
                          dtype=np.intp)
-    nr = rc_blocks.size
     rc_set = np.array([abs(blocks[i].rocof_hz_per_s) for i in rc_blocks], dtype=float)
     rc_arm = np.array([f0 if blocks[i].rocof_arm_hz is None else blocks[i].rocof_arm_hz
                        for i in rc_blocks], dtype=float)
-    rc_total = total_delay[rc_blocks]
-    rc_delay = delay[rc_blocks]
+    return _Relays(pickup, delay, total_delay, rc_blocks, rc_set, rc_arm,
+                   total_delay[rc_blocks], delay[rc_blocks])
 
-    # state
-    w = np.zeros(n)
-    y = np.zeros(n)
-    s = np.zeros(n)
-    a_ww, b_w = coeffs(s, p_pu)
-    f_prev = np.full(n, f0)
-    below_prev = np.broadcast_to(f0 < pickup, (n, nb)).copy()
-    uf_start = np.where(below_prev, 0.0, np.nan)  # pickup above nominal: timing from t=0
-    rc_start = np.full((n, nr), np.nan)
-    tripped = np.zeros((n, nb), dtype=bool)
-    trip_time = np.full((n, nb), np.nan)
-    late_max = 0.0
 
-    def schedule(rows):
+class _Run:
+    """The state of one :func:`simulate` call; a row is one (case, disturbance) pair.
+
+    :meth:`step` advances every row by one grid step: breaker openings inside the step
+    (:meth:`_breaker_openings`), extremes, under-frequency and rate-of-change elements, trips
+    due before the end of the step (:meth:`_late_trips`) and the step-doubling estimate.
+    """
+
+    def __init__(self, params: SystemParams, blocks: tuple[Block, ...], armed, dist,
+                 n_steps: int, dt_s: float, *, keep_traces: bool, relay_reset: bool,
+                 error_check: bool):
+        self.params, self.dist = params, dist
+        self.block_names = tuple(b.name for b in blocks)
+        self.keep_traces, self.relay_reset, self.error_check = (keep_traces, relay_reset,
+                                                                error_check)
+        self.nb = len(blocks)
+        self.n_case, self.n_dist = armed.shape[0], dist.size
+        self.n = self.n_case * self.n_dist
+        self.share = np.repeat(armed / 100.0, self.n_dist, axis=0)  # [row, block] pu
+        self.p_pu = np.tile(dist / 100.0, self.n_case)  # [row]
+        self.time_s = np.arange(n_steps + 1) * dt_s
+        self.dt = float(dt_s)
+        self.f0 = float(params.nominal_hz)
+        # the linear ODE: dΔω/dt = a_ww·Δω + a_wy·y + b_w (module docstring)
+        self.inv2h = 1.0 / (2.0 * params.inertia_h_s)
+        km_r = params.mech_gain_km / params.droop_r_pu
+        self.a_wy = -km_r * (1.0 - params.hp_fraction_fh) * self.inv2h
+        self.a_w0 = km_r * params.hp_fraction_fh
+        self.damp = params.damping_d_pu
+        self.i_tr = 1.0 / params.reheat_tr_s
+        self.rel = _relay_settings(params, blocks)
+        self.nr = self.rel.rc_blocks.size
+        self._init_state(n_steps)
+
+    def coeffs(self, s, p):
+        """(a_ww, b_w) for shed share ``s`` and loss ``p`` (pu); damping scales with 1 − s."""
+        return -(self.a_w0 + self.damp * (1.0 - s)) * self.inv2h, (s - p) * self.inv2h
+
+    def _init_state(self, n_steps: int) -> None:
+        n, nb, f0 = self.n, self.nb, self.f0
+        self.w, self.y, self.s = np.zeros(n), np.zeros(n), np.zeros(n)
+        self.a_ww, self.b_w = self.coeffs(self.s, self.p_pu)
+        self.f_prev = np.full(n, f0)
+        self.below_prev = np.broadcast_to(f0 < self.rel.pickup, (n, nb)).copy()
+        # pickup above nominal: timing from t = 0
+        self.uf_start = np.where(self.below_prev, 0.0, np.nan)
+        self.rc_start = np.full((n, self.nr), np.nan)
+        self.tripped = np.zeros((n, nb), dtype=bool)
+        self.trip_time = np.full((n, nb), np.nan)
+        self.late_max = 0.0
+        self.pending = self.next_event(np.arange(n))
+        self.nadir, self.t_nadir = np.full(n, f0), np.zeros(n)
+        self.zen, self.t_zen = np.full(n, f0), np.zeros(n)
+        self.fmax = np.full(n, f0)
+        self.traces = np.empty((n_steps + 1, n)) if self.keep_traces else None
+        if self.keep_traces:
+            self.traces[0] = f0
+        if self.nr:
+            self.lag = self.params.rocof_window_s / self.dt
+            self.ring_len = int(math.ceil(self.lag)) + 2
+            self.ring = np.full((self.ring_len, n), f0)
+            self.rate_prev = np.zeros(n)
+            self.cond_prev = np.zeros((n, self.nr), dtype=bool)
+        self.err_sum = np.zeros(n)
+        self.dirty = np.zeros(n, dtype=bool)
+        self.w_pair = self.y_pair = None
+        args = (self.a_wy, self.b_w, self.i_tr)
+        self.prop = _rk4_propagator(self.dt, self.a_ww, *args)
+        self.prop2 = (_rk4_propagator(2.0 * self.dt, self.a_ww, *args) if self.error_check
+                      else None)
+
+    # ---- relay bookkeeping --------------------------------------------------------------
+    def schedule(self, rows):
         """Pending breaker-opening times [len(rows), nb] (inf where none)."""
-        t = uf_start[rows] + total_delay
-        if nr:
+        t = self.uf_start[rows] + self.rel.total_delay
+        if self.nr:
             t_rc = np.full_like(t, np.nan)
-            t_rc[:, rc_blocks] = rc_start[rows] + rc_total
+            t_rc[:, self.rel.rc_blocks] = self.rc_start[rows] + self.rel.rc_total
             t = np.fmin(t, t_rc)
-        return np.where(tripped[rows] | np.isnan(t), np.inf, t)
+        return np.where(self.tripped[rows] | np.isnan(t), np.inf, t)
 
-    def next_event(rows):
-        t = schedule(rows)
-        return t.min(axis=1) if nb else np.full(len(rows), np.inf)
+    def next_event(self, rows):
+        t = self.schedule(rows)
+        return t.min(axis=1) if self.nb else np.full(len(rows), np.inf)
 
-    pending = next_event(np.arange(n))
-
-    nadir = np.full(n, f0)
-    t_nadir = np.zeros(n)
-    zen = np.full(n, f0)
-    t_zen = np.zeros(n)
-    fmax = np.full(n, f0)
-
-    def track(rows, f, t):
+    def track(self, rows, f, t):
+        """Nadir and zenith at trip instants inside a step."""
+        nadir, zen = self.nadir, self.zen
         lower = f < nadir[rows]
         higher = f > zen[rows]
         nadir[rows] = np.where(lower, f, nadir[rows])
-        t_nadir[rows] = np.where(lower, t, t_nadir[rows])
+        self.t_nadir[rows] = np.where(lower, t, self.t_nadir[rows])
         zen[rows] = np.where(lower | higher, f, zen[rows])
-        t_zen[rows] = np.where(lower | higher, t, t_zen[rows])
-        fmax[rows] = np.maximum(fmax[rows], f)
+        self.t_zen[rows] = np.where(lower | higher, t, self.t_zen[rows])
+        self.fmax[rows] = np.maximum(self.fmax[rows], f)
 
-    traces = np.empty((n_steps + 1, n)) if keep_traces else None
-    if keep_traces:
-        traces[0] = f0
-
-    if nr:
-        lag = params.rocof_window_s / dt
-        ring_len = int(math.ceil(lag)) + 2
-        ring = np.full((ring_len, n), f0)
-        rate_prev = np.zeros(n)
-        cond_prev = np.zeros((n, nr), dtype=bool)
-
-    def uf_segment(rows, ta, fa, tb, fb):
+    def uf_segment(self, rows, ta, fa, tb, fb):
         """Under-frequency pickups and resets on the segment (ta, fa) → (tb, fb) of ``rows``.
 
         The crossing instant is interpolated linearly on the segment.  Updates ``uf_start``
         and ``below_prev``; returns ``rows``.
         """
+        pickup = self.rel.pickup
         bl = fb[:, None] < pickup
-        c = bl != below_prev[rows]
-        tp = tripped[rows]
+        c = bl != self.below_prev[rows]
+        tp = self.tripped[rows]
         ta = np.asarray(ta, dtype=float)[..., None] if np.ndim(ta) else ta
         tb = np.asarray(tb, dtype=float)[..., None] if np.ndim(tb) else tb
         tc = ta + (tb - ta) * _cross_frac(fa[:, None], fb[:, None], pickup)
-        start = uf_start[rows]
+        start = self.uf_start[rows]
         start = np.where(c & bl & ~tp & np.isnan(start), tc, start)
-        if relay_reset:
-            start = np.where(c & ~bl & ~tp & (tc < start + delay), np.nan, start)
-        uf_start[rows] = start
-        below_prev[rows] = bl
+        if self.relay_reset:
+            start = np.where(c & ~bl & ~tp & (tc < start + self.rel.delay), np.nan, start)
+        self.uf_start[rows] = start
+        self.below_prev[rows] = bl
         return rows
 
-    err_sum = np.zeros(n)
-    dirty = np.zeros(n, dtype=bool)
-    w_pair = y_pair = None
-    prop = _rk4_propagator(dt, a_ww, a_wy, b_w, i_tr)
-    prop2 = _rk4_propagator(2.0 * dt, a_ww, a_wy, b_w, i_tr) if error_check else None
-
-    def refresh(rows):
+    def refresh(self, rows):
         """Coefficients and step maps of rows whose shed share changed."""
-        a_ww[rows], b_w[rows] = coeffs(s[rows], p_pu[rows])
-        for target, h in ((prop, dt), (prop2, 2.0 * dt)):
+        self.a_ww[rows], self.b_w[rows] = self.coeffs(self.s[rows], self.p_pu[rows])
+        for target, h in ((self.prop, self.dt), (self.prop2, 2.0 * self.dt)):
             if target is not None:
-                for arr, new in zip(target, _rk4_propagator(h, a_ww[rows], a_wy, b_w[rows],
-                                                            i_tr)):
+                for arr, new in zip(target, _rk4_propagator(h, self.a_ww[rows], self.a_wy,
+                                                            self.b_w[rows], self.i_tr)):
                     arr[rows] = new
 
-    for k in range(n_steps):
-        t0, t1 = time_s[k], time_s[k + 1]
-        if error_check and k % 2 == 0:
-            w_pair, y_pair = w, y
-            dirty[:] = False
-
-        w1, y1 = _apply(prop, w, y)
-
-        # ---- rows with a breaker opening inside this step: split the step at each one ------
+    # ---- one grid step ------------------------------------------------------------------
+    def step(self, k: int) -> None:
+        t0, t1 = self.time_s[k], self.time_s[k + 1]
+        if self.error_check and k % 2 == 0:
+            self.w_pair, self.y_pair = self.w, self.y
+            self.dirty[:] = False
+        w1, y1 = _apply(self.prop, self.w, self.y)
         changed: list[np.ndarray] = []
-        seg_t0: float | np.ndarray = t0  # start of the last segment of this step, per row
-        f_seg = f_prev  # frequency there
-        ev = pending <= t1
-        if ev.any():
-            idx = np.flatnonzero(ev)
-            wr_, yr_ = w[idx], y[idx]
-            sr, pr = s[idx], p_pu[idx]
-            tr_ = schedule(idx)
-            tcur = np.full(idx.size, t0)
-            fcur = f_prev[idx]
-            while True:
-                tn = tr_.min(axis=1)
-                due = tn <= t1
-                if not due.any():
-                    break
-                tn = np.where(due, tn, tcur)
-                aw, bw = coeffs(sr, pr)
-                wr_, yr_ = _rk4(wr_, yr_, tn - tcur, aw, a_wy, bw, i_tr)
-                f_at = f0 * (1.0 + wr_)
-                rows_due = idx[due]
-                if nb:  # pickups between the previous point and this trip instant
-                    changed.append(uf_segment(rows_due, tcur[due], fcur[due], tn[due],
-                                              f_at[due]))
-                tcur, fcur = tn, f_at
-                hit = (tr_ <= tcur[:, None]) & due[:, None]
-                sr = sr + np.where(hit, share[idx], 0.0).sum(axis=1)
-                ri, bi = np.nonzero(hit)
-                tripped[idx[ri], bi] = True
-                trip_time[idx[ri], bi] = tr_[ri, bi]
-                tr_[hit] = np.inf
-                track(rows_due, f_at[due], tcur[due])
-            aw, bw = coeffs(sr, pr)
-            wr_, yr_ = _rk4(wr_, yr_, t1 - tcur, aw, a_wy, bw, i_tr)
-            w1[idx], y1[idx] = wr_, yr_
-            s[idx] = sr
-            refresh(idx)
-            pending[idx] = next_event(idx)
-            dirty[idx] = True
-            seg_t0 = np.full(n, t0)
-            seg_t0[idx] = tcur
-            f_seg = f_prev.copy()
-            f_seg[idx] = fcur
+        seg_t0, f_seg = self._breaker_openings(t0, t1, w1, y1, changed)
+        self.w, self.y = w1, y1
+        f_new = self.f0 * (1.0 + self.w)
+        self._extremes(k, t1, f_new)
+        if self.nb:
+            self._uf_elements(t1, seg_t0, f_seg, f_new, changed)
+        if self.nr:
+            self._rocof_elements(k, t0, t1, f_new, changed)
+        if changed:
+            self._late_trips(t1, changed)
+        self.f_prev = f_new
+        if self.error_check and k % 2 == 1:  # step doubling over each pair of steps
+            wc, _ = _apply(self.prop2, self.w_pair, self.y_pair)
+            self.err_sum += np.where(self.dirty, 0.0, np.abs(self.w - wc) / 15.0)
 
-        w, y = w1, y1
-        f_new = f0 * (1.0 + w)
+    def _breaker_openings(self, t0, t1, w1, y1, changed):
+        """Rows with a breaker opening inside (t0, t1]: split the step at each one (RK4 to
+        the instant, shed the block, RK4 on), writing the end state into ``w1``, ``y1``.
 
-        # ---- extremes -------------------------------------------------------------------
+        Returns (start time, frequency) of the last segment of the step per row, for the
+        under-frequency elements; scalars ``t0`` and ``f_prev`` when no row has an opening.
+        """
+        ev = self.pending <= t1
+        if not ev.any():
+            return t0, self.f_prev
+        idx = np.flatnonzero(ev)
+        a_wy, i_tr = self.a_wy, self.i_tr
+        wr_, yr_ = self.w[idx], self.y[idx]
+        sr, pr = self.s[idx], self.p_pu[idx]
+        tr_ = self.schedule(idx)
+        tcur = np.full(idx.size, t0)
+        fcur = self.f_prev[idx]
+        while True:
+            tn = tr_.min(axis=1)
+            due = tn <= t1
+            if not due.any():
+                break
+            tn = np.where(due, tn, tcur)
+            aw, bw = self.coeffs(sr, pr)
+            wr_, yr_ = _rk4(wr_, yr_, tn - tcur, aw, a_wy, bw, i_tr)
+            f_at = self.f0 * (1.0 + wr_)
+            rows_due = idx[due]
+            if self.nb:  # pickups between the previous point and this trip instant
+                changed.append(self.uf_segment(rows_due, tcur[due], fcur[due], tn[due],
+                                               f_at[due]))
+            tcur, fcur = tn, f_at
+            hit = (tr_ <= tcur[:, None]) & due[:, None]
+            sr = sr + np.where(hit, self.share[idx], 0.0).sum(axis=1)
+            ri, bi = np.nonzero(hit)
+            self.tripped[idx[ri], bi] = True
+            self.trip_time[idx[ri], bi] = tr_[ri, bi]
+            tr_[hit] = np.inf
+            self.track(rows_due, f_at[due], tcur[due])
+        aw, bw = self.coeffs(sr, pr)
+        wr_, yr_ = _rk4(wr_, yr_, t1 - tcur, aw, a_wy, bw, i_tr)
+        w1[idx], y1[idx] = wr_, yr_
+        self.s[idx] = sr
+        self.refresh(idx)
+        self.pending[idx] = self.next_event(idx)
+        self.dirty[idx] = True
+        seg_t0 = np.full(self.n, t0)
+        seg_t0[idx] = tcur
+        f_seg = self.f_prev.copy()
+        f_seg[idx] = fcur
+        return seg_t0, f_seg
+
+    def _extremes(self, k, t1, f_new) -> None:
+        """Nadir, zenith after it, highest frequency and the trace at the grid point."""
+        nadir, zen = self.nadir, self.zen
         lower = f_new < nadir
         if lower.any():
             np.copyto(nadir, f_new, where=lower)
-            t_nadir[lower] = t1
+            self.t_nadir[lower] = t1
             np.copyto(zen, f_new, where=lower)
-            t_zen[lower] = t1
+            self.t_zen[lower] = t1
         higher = f_new > zen
         if higher.any():
             np.copyto(zen, f_new, where=higher)
-            t_zen[higher] = t1
-        np.maximum(fmax, f_new, out=fmax)
-        if keep_traces:
-            traces[k + 1] = f_new
+            self.t_zen[higher] = t1
+        np.maximum(self.fmax, f_new, out=self.fmax)
+        if self.keep_traces:
+            self.traces[k + 1] = f_new
 
-        # ---- under-frequency elements ---------------------------------------------------
-        if nb:
-            below = f_new[:, None] < pickup
-            chg = below != below_prev
-            if chg.any():
-                rows = np.flatnonzero(chg.any(axis=1))
-                ta = seg_t0 if np.isscalar(seg_t0) else seg_t0[rows]
-                changed.append(uf_segment(rows, ta, f_seg[rows], t1, f_new[rows]))
+    def _uf_elements(self, t1, seg_t0, f_seg, f_new, changed) -> None:
+        """Under-frequency pickups and resets on the last segment of the step."""
+        below = f_new[:, None] < self.rel.pickup
+        chg = below != self.below_prev
+        if chg.any():
+            rows = np.flatnonzero(chg.any(axis=1))
+            ta = seg_t0 if np.isscalar(seg_t0) else seg_t0[rows]
+            changed.append(self.uf_segment(rows, ta, f_seg[rows], t1, f_new[rows]))
 
-        # ---- rate-of-change elements ----------------------------------------------------
-        if nr:
-            ring[(k + 1) % ring_len] = f_new
-            pos = (k + 1) - lag
-            m0 = math.floor(pos)
-            fr = pos - m0
-            f_lag = ring[m0 % ring_len] * (1.0 - fr) + ring[(m0 + 1) % ring_len] * fr
-            rate = (f_lag - f_new) / params.rocof_window_s
-            cond = (f_new[:, None] < rc_arm) & (rate[:, None] > rc_set)
-            chg = cond != cond_prev
-            if chg.any():
-                rows = np.flatnonzero(chg.any(axis=1))
-                c, cn, tp = chg[rows], cond[rows], tripped[rows][:, rc_blocks]
-                fa, fb = f_prev[rows, None], f_new[rows, None]
-                ra, rb = rate_prev[rows, None], rate[rows, None]
-                fa_ok, fb_ok = fa < rc_arm, fb < rc_arm
-                ra_ok, rb_ok = ra > rc_set, rb > rc_set
-                t_f = t0 + dt * _cross_frac(fa, fb, rc_arm)
-                t_r = t0 + dt * _cross_frac(ra, rb, rc_set)
-                t_on = np.maximum(np.where(fa_ok, t0, t_f), np.where(ra_ok, t0, t_r))
-                t_off = np.minimum(np.where(fb_ok, t1, t_f), np.where(rb_ok, t1, t_r))
-                start = rc_start[rows]
-                on = c & cn & ~tp & np.isnan(start)
-                start = np.where(on, t_on, start)
-                if relay_reset:
-                    cancel = c & ~cn & ~tp & (t_off < start + rc_delay)
-                    start = np.where(cancel, np.nan, start)
-                rc_start[rows] = start
-                changed.append(rows)
-            cond_prev = cond
-            rate_prev = rate
+    def _rocof_elements(self, k, t0, t1, f_new, changed) -> None:
+        """Rate-of-change elements: the rate over the window from a ring of past values;
+        the element is on while f < rc_arm and the rate > rc_set (instants interpolated)."""
+        rel, dt = self.rel, self.dt
+        self.ring[(k + 1) % self.ring_len] = f_new
+        pos = (k + 1) - self.lag
+        m0 = math.floor(pos)
+        fr = pos - m0
+        f_lag = (self.ring[m0 % self.ring_len] * (1.0 - fr)
+                 + self.ring[(m0 + 1) % self.ring_len] * fr)
+        rate = (f_lag - f_new) / self.params.rocof_window_s
+        cond = (f_new[:, None] < rel.rc_arm) & (rate[:, None] > rel.rc_set)
+        chg = cond != self.cond_prev
+        if chg.any():
+            rows = np.flatnonzero(chg.any(axis=1))
+            c, cn, tp = chg[rows], cond[rows], self.tripped[rows][:, rel.rc_blocks]
+            fa, fb = self.f_prev[rows, None], f_new[rows, None]
+            ra, rb = self.rate_prev[rows, None], rate[rows, None]
+            fa_ok, fb_ok = fa < rel.rc_arm, fb < rel.rc_arm
+            ra_ok, rb_ok = ra > rel.rc_set, rb > rel.rc_set
+            t_f = t0 + dt * _cross_frac(fa, fb, rel.rc_arm)
+            t_r = t0 + dt * _cross_frac(ra, rb, rel.rc_set)
+            t_on = np.maximum(np.where(fa_ok, t0, t_f), np.where(ra_ok, t0, t_r))
+            t_off = np.minimum(np.where(fb_ok, t1, t_f), np.where(rb_ok, t1, t_r))
+            start = self.rc_start[rows]
+            on = c & cn & ~tp & np.isnan(start)
+            start = np.where(on, t_on, start)
+            if self.relay_reset:
+                cancel = c & ~cn & ~tp & (t_off < start + rel.rc_delay)
+                start = np.where(cancel, np.nan, start)
+            self.rc_start[rows] = start
+            changed.append(rows)
+        self.cond_prev = cond
+        self.rate_prev = rate
 
-        if changed:
-            changed_rows = np.unique(np.concatenate(changed))
-            pending[changed_rows] = next_event(changed_rows)
-            late = pending[changed_rows] <= t1
-            if late.any():  # delay + breaker shorter than the rest of this step
-                lr = changed_rows[late]
-                tl = schedule(lr)
-                hit = tl <= t1
-                late_max = max(late_max, float(np.max(t1 - tl[hit])))
-                ri, bi = np.nonzero(hit)
-                tripped[lr[ri], bi] = True
-                trip_time[lr[ri], bi] = t1
-                s[lr] += np.where(hit, share[lr], 0.0).sum(axis=1)
-                refresh(lr)
-                pending[lr] = next_event(lr)
-                dirty[lr] = True
-        f_prev = f_new
+    def _late_trips(self, t1, changed) -> None:
+        """New pickups whose trip falls before t1 (delay + breaker shorter than the rest of
+        the step): applied at t1, lateness recorded."""
+        changed_rows = np.unique(np.concatenate(changed))
+        self.pending[changed_rows] = self.next_event(changed_rows)
+        late = self.pending[changed_rows] <= t1
+        if not late.any():
+            return
+        lr = changed_rows[late]
+        tl = self.schedule(lr)
+        hit = tl <= t1
+        self.late_max = max(self.late_max, float(np.max(t1 - tl[hit])))
+        ri, bi = np.nonzero(hit)
+        self.tripped[lr[ri], bi] = True
+        self.trip_time[lr[ri], bi] = t1
+        self.s[lr] += np.where(hit, self.share[lr], 0.0).sum(axis=1)
+        self.refresh(lr)
+        self.pending[lr] = self.next_event(lr)
+        self.dirty[lr] = True
 
-        # ---- step doubling over each pair of steps ----------------------------------------
-        if error_check and k % 2 == 1:
-            wc, _ = _apply(prop2, w_pair, y_pair)
-            err_sum += np.where(dirty, 0.0, np.abs(w - wc) / 15.0)
-
-    shape = (n_case, n_dist)
-    floor, ceiling = float(params.floor_hz), float(params.ceiling_hz)
-    within = (nadir >= floor) & (fmax <= ceiling)
-    within2 = within.reshape(shape)
-    order = np.argsort(dist, kind="stable")
-    ok_sorted = np.logical_and.accumulate(within2[:, order], axis=1)
-    covered = np.full(n_case, np.nan)
-    any_ok = ok_sorted[:, 0]
-    last = ok_sorted.sum(axis=1) - 1
-    covered[any_ok] = dist[order][last[any_ok]]
-
-    return FrequencyResult(
-        time_s=time_s,
-        disturbances_pct=dist.copy(),
-        block_names=tuple(b.name for b in blocks),
-        frequency_hz=None if traces is None else traces.T.reshape(n_case, n_dist, -1).copy(),
-        nadir_hz=nadir.reshape(shape),
-        t_nadir_s=t_nadir.reshape(shape),
-        zenith_hz=zen.reshape(shape),
-        t_zenith_s=t_zen.reshape(shape),
-        max_hz=fmax.reshape(shape),
-        trip_time_s=trip_time.reshape(n_case, n_dist, nb),
-        tripped=tripped.reshape(n_case, n_dist, nb),
-        shed_pct=(s * 100.0).reshape(shape),
-        final_hz=(f0 * (1.0 + w)).reshape(shape),
-        within_limits=within2,
-        largest_covered_pct=covered,
-        error_estimate_hz=(f0 * err_sum).reshape(shape),
-        max_late_trip_s=late_max,
-        floor_hz=floor,
-        ceiling_hz=ceiling,
-        nominal_hz=f0,
-    )
+    def result(self) -> FrequencyResult:
+        shape = (self.n_case, self.n_dist)
+        floor, ceiling = float(self.params.floor_hz), float(self.params.ceiling_hz)
+        within = ((self.nadir >= floor) & (self.fmax <= ceiling)).reshape(shape)
+        nb = self.nb
+        return FrequencyResult(
+            time_s=self.time_s,
+            disturbances_pct=self.dist.copy(),
+            block_names=self.block_names,
+            frequency_hz=None if self.traces is None else
+            self.traces.T.reshape(self.n_case, self.n_dist, -1).copy(),
+            nadir_hz=self.nadir.reshape(shape),
+            t_nadir_s=self.t_nadir.reshape(shape),
+            zenith_hz=self.zen.reshape(shape),
+            t_zenith_s=self.t_zen.reshape(shape),
+            max_hz=self.fmax.reshape(shape),
+            trip_time_s=self.trip_time.reshape(self.n_case, self.n_dist, nb),
+            tripped=self.tripped.reshape(self.n_case, self.n_dist, nb),
+            shed_pct=(self.s * 100.0).reshape(shape),
+            final_hz=(self.f0 * (1.0 + self.w)).reshape(shape),
+            within_limits=within,
+            largest_covered_pct=largest_covered_pct(self.dist, within),
+            error_estimate_hz=(self.f0 * self.err_sum).reshape(shape),
+            max_late_trip_s=self.late_max,
+            floor_hz=floor,
+            ceiling_hz=ceiling,
+            nominal_hz=self.f0,
+        )
 
 
 # --------------------------------------------------------------------------------------------
@@ -796,10 +886,13 @@ def plot_traces(result: FrequencyResult, case: int = 0, disturbances=None,
     return fig
 
 
-def plot_nadir_vs_size(result: FrequencyResult, case: int = 0, title: str | None = None):
+def plot_nadir_vs_size(result: FrequencyResult, case: int = 0, title: str | None = None,
+                       covered_pct: float | None = None):
     """Nadir and zenith against disturbance size for one case; returns a matplotlib Figure.
 
-    The largest covered disturbance is marked with a vertical dotted line.
+    The largest loss kept within limits is marked with a vertical dotted line:
+    ``covered_pct`` when given (a caller that examined more sizes than ``result`` holds passes
+    its own :func:`largest_covered_pct`), else ``result.largest_covered_pct[case]``.
     """
     from matplotlib.figure import Figure
 
@@ -815,10 +908,11 @@ def plot_nadir_vs_size(result: FrequencyResult, case: int = 0, title: str | None
     if bad.any():
         ax.plot(d[bad], result.nadir_hz[case, order][bad], ls="none", marker="o", ms=10,
                 mfc="none", color=_PALETTE[3], label="outside limits")
-    cov = result.largest_covered_pct[case]
+    cov = result.largest_covered_pct[case] if covered_pct is None else covered_pct
     if np.isfinite(cov):
-        ax.axvline(cov, color=_PALETTE[2], ls=":", lw=1.4, label=f"covered up to {cov:g} %")
-    ax.set_xlim(0.0, d[-1] * 1.05)
+        ax.axvline(cov, color=_PALETTE[2], ls=":", lw=1.4,
+                   label=f"largest loss kept within limits: {cov:g} %")
+    ax.set_xlim(0.0, max(d[-1], cov if np.isfinite(cov) else 0.0) * 1.05)
     _limit_lines(ax, result)
     ax.set_xlabel("generation loss (% of demand)")
     ax.set_ylabel("frequency (Hz)")

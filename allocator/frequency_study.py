@@ -10,9 +10,14 @@ Which intervals are examined (each labelled in the outputs):
 
 At each, every block sheds its share of demand *as the check found it there* (exporting
 armed feeders make a share smaller, even negative) and the single-bus frequency model of
-:mod:`allocator.frequency` is run for a sweep of disturbance sizes.  The "largest covered"
-disturbance is found on a fine sweep (1 % of demand steps) so that differences between
-intervals show; traces and tables use the sizes from the ``system`` sheet.
+:mod:`allocator.frequency` is run for a sweep of disturbance sizes.  The "largest loss kept
+within limits" (:func:`allocator.frequency.largest_covered_pct`: that loss and every smaller
+one examined keep frequency between the floor and the ceiling) is taken over a fine sweep
+(1 % of demand steps) together with the ``system`` sheet's sizes, so that differences between
+intervals show and no size drawn in a figure contradicts it; traces use the sheet's sizes.
+The figures, the CSV/JSON files and the console show this one value.
+
+Local times are ISO 8601 with the UTC offset (:func:`allocator.timefmt.iso_local`).
 
 This is an indication to discuss with the system operator, not a dynamic study.
 """
@@ -26,9 +31,17 @@ import pandas as pd
 
 from .check import Check
 from .errors import InputError, Problem
-from .frequency import FrequencyResult, SystemParams, simulate, system_params_from_mapping
+from .frequency import (FrequencyResult, SystemParams, largest_covered_pct, simulate,
+                        system_params_from_mapping)
+from .safeio import safe_filename
+from .timefmt import iso_local
 
 FINE_SWEEP_PCT = np.arange(1.0, 61.0, 1.0)
+COVERED_MEANING = (
+    "largest_covered_pct: the largest generation loss (% of demand at the interval) such that "
+    "it and every smaller loss examined (1 % steps from 1 to 60 % and the system sheet's "
+    "sizes) keep frequency between floor_hz and ceiling_hz; null if even the smallest does "
+    "not")
 CAUTIONS = (
     "Indicative single-bus model (aggregate inertia, one equivalent reheat governor, no "
     "network, no voltage dependence of load, no other protection); the system operator's "
@@ -46,7 +59,7 @@ class FrequencyStudy:
     params: SystemParams
     labels: tuple[str, ...]
     interval_index: np.ndarray  # [case] index into the year
-    local_times: tuple[str, ...]
+    local_times: tuple[str, ...]  # ISO 8601 local time with offset
     demand_mw: np.ndarray  # [case]
     armed_pct: np.ndarray  # [case, block]
     sweep: FrequencyResult  # the system sheet's disturbance sizes, traces kept
@@ -54,7 +67,11 @@ class FrequencyStudy:
 
     @property
     def largest_covered_pct(self) -> np.ndarray:
-        return self.fine.largest_covered_pct
+        """[case] largest loss kept within limits, % of demand, over the fine sweep and the
+        system sheet's sizes together (NaN if even the smallest leaves the limits)."""
+        dist = np.concatenate([self.fine.disturbances_pct, self.sweep.disturbances_pct])
+        within = np.concatenate([self.fine.within_limits, self.sweep.within_limits], axis=1)
+        return largest_covered_pct(dist, within)
 
 
 def system_params(check: Check) -> SystemParams:
@@ -127,7 +144,7 @@ def run_frequency_study(check: Check, user_local: list[str] | None = None,
                      keep_traces=True, error_check=True)
     fine = simulate(params, blocks, armed, FINE_SWEEP_PCT, keep_traces=False,
                     error_check=False)
-    lt = tuple(check.year.local_times[idx].strftime("%Y-%m-%d %H:%M %Z"))
+    lt = tuple(iso_local(check.year.local_times[idx]))
     return FrequencyStudy(params, tuple(labels), idx, lt, check.year.demand_mw[idx], armed,
                           sweep, fine)
 
@@ -159,6 +176,7 @@ def frequency_summary(fs: FrequencyStudy) -> dict:
         "floor_hz": fs.sweep.floor_hz, "ceiling_hz": fs.sweep.ceiling_hz,
         "fine_sweep_pct": [float(FINE_SWEEP_PCT[0]), float(FINE_SWEEP_PCT[-1]),
                            float(FINE_SWEEP_PCT[1] - FINE_SWEEP_PCT[0])],
+        "largest_covered_meaning": COVERED_MEANING,
         "integration_error_estimate_hz": float(np.nanmax(fs.sweep.error_estimate_hz)),
         "intervals": [],
         "cautions": list(CAUTIONS),
@@ -177,6 +195,19 @@ def frequency_summary(fs: FrequencyStudy) -> dict:
     return out
 
 
+def figure_names(labels: tuple[str, ...]) -> list[str]:
+    """File-name-safe nadir figure name per examined interval, naming every label of an
+    instant that several labels share (``lowest_B1+lowest_B3`` →
+    ``frequency_nadir_lowest_B1_and_lowest_B3``); unique even when cut to length."""
+    names: list[str] = []
+    for c, label in enumerate(labels):
+        name = safe_filename("frequency_nadir_" + "_and_".join(label.split("+")))
+        if name in names:
+            name = safe_filename(f"{name[:70]}_{c + 1}")
+        names.append(name)
+    return names
+
+
 def critical_traces_figure(fs: FrequencyStudy):
     """Frequency traces at the examined interval with the smallest largest-covered loss."""
     from .frequency import plot_traces
@@ -193,8 +224,9 @@ def frequency_figures(fs: FrequencyStudy) -> dict[str, object]:
     from .frequency import plot_nadir_vs_size
 
     figs = {"frequency_traces_critical": critical_traces_figure(fs)}
-    for c, label in enumerate(fs.labels):
-        figs[f"frequency_nadir_{label.split('+')[0]}"] = plot_nadir_vs_size(
+    covered = fs.largest_covered_pct
+    for c, (label, name) in enumerate(zip(fs.labels, figure_names(fs.labels))):
+        figs[name] = plot_nadir_vs_size(
             fs.sweep, case=c, title=f"Nadir and zenith vs loss size — {label} "
-            f"({fs.local_times[c]})")
+            f"({fs.local_times[c]})", covered_pct=covered[c])
     return figs

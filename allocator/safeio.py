@@ -2,7 +2,11 @@
 
 Every command writes into a temporary folder beside its target and renames it into place
 only when everything is written, so an interrupted run leaves the previous outputs intact
-and no partial files.  Outputs never overwrite an input file.
+and no partial files.  Outputs never overwrite an input file.  The temporary folder is
+private (0700) while it is written; before the rename it gets the permissions a plain
+``mkdir`` gives there (the user's umask, or the folder's default ACL), so colleagues who may
+read the parent folder may read the outputs.  Files and subfolders inside are created the
+ordinary way and follow the umask already.
 """
 
 from __future__ import annotations
@@ -92,6 +96,17 @@ def check_out_dir(out: Path, inputs: list[Path]) -> None:
         raise OutputClashError(f"--out {out} exists and is not a folder")
 
 
+def _plain_mkdir_mode(folder: Path) -> int:
+    """Permission bits of a folder made by a plain ``mkdir`` inside ``folder`` (umask and
+    default ACL applied by the system), found by making and removing one."""
+    probe = folder / ".mode-probe"
+    probe.mkdir()
+    try:
+        return probe.stat().st_mode & 0o7777
+    finally:
+        probe.rmdir()
+
+
 @contextlib.contextmanager
 def atomic_dir(target: Path) -> Iterator[Path]:
     """Yield a fresh temporary folder beside ``target``; on success replace ``target``
@@ -102,6 +117,10 @@ def atomic_dir(target: Path) -> Iterator[Path]:
     tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.tmp-", dir=target.parent))
     try:
         yield tmp
+        try:
+            os.chmod(tmp, _plain_mkdir_mode(tmp))
+        except OSError:  # a file system without modes (some network shares): keep its own
+            pass
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise

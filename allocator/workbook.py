@@ -12,7 +12,7 @@ import math
 import os
 import re
 import zipfile
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import datetime, time
 from pathlib import Path
 from zoneinfo import ZoneInfo, available_timezones
@@ -94,31 +94,46 @@ def _text(v: object) -> str:
     return str(v).strip()
 
 
+#: the message for a required cell that reads as empty; :func:`_explain_formula_blanks`
+#: rewrites it where the cell holds a formula without a saved result
+BLANK = "required value is blank"
+NO_SAVED_VALUE = ("formula with no saved value (open and save the workbook in a spreadsheet "
+                  "program, or write values)")
+
+
 class _Cells:
-    """Typed access to one sheet's cells that records problems instead of raising."""
+    """Typed access to one sheet's cells that records problems instead of raising.
+
+    ``label`` (the settings key) starts each message, so a message about the ``value``
+    column says which setting it is about.
+    """
 
     def __init__(self, col: Collector, sheet: str):
         self.col = col
         self.sheet = sheet
 
-    def text(self, row: Row, name: str, required: bool = True) -> str | None:
+    def _add(self, msg: str, row: Row, name: str, label: str | None) -> None:
+        self.col.add(f"{label}: {msg}" if label else msg, self.sheet, row.number, name)
+
+    def text(self, row: Row, name: str, required: bool = True,
+             label: str | None = None) -> str | None:
         v = row.values.get(name)
         if _blank(v):
             if required:
-                self.col.add("required value is blank", self.sheet, row.number, name)
+                self._add(BLANK, row, name, label)
             return None
         return _text(v)
 
     def number(self, row: Row, name: str, required: bool = True, minimum: float | None = None,
-               maximum: float | None = None, what: str = "a number") -> float | None:
+               maximum: float | None = None, what: str = "a number",
+               label: str | None = None) -> float | None:
         v = row.values.get(name)
         if _blank(v):
             if required:
-                self.col.add(f"required value is blank; expected {what}", self.sheet,
-                             row.number, name)
+                self._add(f"{BLANK}; expected {what}", row, name, label)
             return None
         if isinstance(v, bool):
-            self.col.add(f"expected {what}, found {v!r}", self.sheet, row.number, name)
+            self._add(f"expected {what}, found {v!r}", row, name, label)
             return None
         if isinstance(v, (int, float)):
             x = float(v)
@@ -126,21 +141,19 @@ class _Cells:
             try:
                 x = float(str(v).strip().replace(",", "."))
             except ValueError:
-                self.col.add(f"expected {what}, found text {str(v)[:40]!r}", self.sheet,
-                             row.number, name)
+                self._add(f"expected {what}, found text {str(v)[:40]!r}", row, name, label)
                 return None
         if not math.isfinite(x):
-            self.col.add(f"expected {what}, found {x}", self.sheet, row.number, name)
+            self._add(f"expected {what}, found {x}", row, name, label)
             return None
         if minimum is not None and x < minimum:
             # `what` may already state the bound ("MW ≥ 0"): do not say it twice
             exp = what if f"≥ {minimum:g}" in what else f"{what} ≥ {minimum:g}"
-            self.col.add(f"expected {exp}, found {x:g}", self.sheet, row.number, name)
+            self._add(f"expected {exp}, found {x:g}", row, name, label)
             return None
         if maximum is not None and x > maximum:
             base = what.split(" ≥ ")[0]
-            self.col.add(f"expected {base} ≤ {maximum:g}, found {x:g}", self.sheet, row.number,
-                         name)
+            self._add(f"expected {base} ≤ {maximum:g}, found {x:g}", row, name, label)
             return None
         return x
 
@@ -232,6 +245,48 @@ def _read_sheets(path: Path, col: Collector) -> dict[str, tuple[list[str], list[
     return out
 
 
+def _explain_formula_blanks(path: Path, col: Collector,
+                            headers: dict[str, list[str]]) -> None:
+    """Reword "required value is blank" where the cell holds a formula with no saved result.
+
+    The first pass reads saved values (``data_only``), and a workbook written by a script
+    has none for its formulas: openpyxl gives None, as for an empty cell.  Only when such
+    problems exist, the sheets they are on are read once more as written (formulas as
+    text) and those cells looked at; nothing else is read twice.
+    """
+    wanted: dict[str, dict[int, dict[int, int]]] = {}  # sheet → row → column → problem
+    for k, pr in enumerate(col.problems):
+        h = headers.get(pr.sheet or "")
+        if BLANK in pr.message and pr.row and h and pr.column in h:
+            wanted.setdefault(pr.sheet, {}).setdefault(pr.row, {})[h.index(pr.column)] = k
+    if not wanted:
+        return
+    import openpyxl
+    from openpyxl.worksheet.formula import ArrayFormula, DataTableFormula
+
+    try:
+        wb = openpyxl.load_workbook(path, read_only=True, data_only=False)
+    except Exception:  # the first pass read it; keep its messages if this one cannot
+        return
+    try:
+        for ws in wb.worksheets:
+            rows = wanted.get(ws.title.strip().lower())
+            if not rows:
+                continue
+            for i, cells in enumerate(ws.iter_rows(max_row=max(rows), values_only=True), 1):
+                for j, k in rows.get(i, {}).items():
+                    v = cells[j] if cells and j < len(cells) else None
+                    if (isinstance(v, str) and v.startswith("=")) or isinstance(
+                            v, (ArrayFormula, DataTableFormula)):
+                        pr = col.problems[k]
+                        col.problems[k] = replace(pr, message=pr.message.replace(
+                            BLANK, NO_SAVED_VALUE))
+    except Exception:
+        return
+    finally:
+        wb.close()
+
+
 def _require_columns(col: Collector, sheet: str, header: list[str], required: tuple[str, ...]
                      ) -> bool:
     missing = [c for c in required if c not in header]
@@ -269,19 +324,20 @@ def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, l
     warnings: list[str] = []
     n_before = len(col.problems)
 
+    # every message about a value starts with its key ("interval_minutes: expected ...")
     def txt(k: str) -> str | None:
         if k not in kv:
             return None
-        return cells.text(kv[k], "value", required=k in SETTING_KEYS_REQUIRED)
+        return cells.text(kv[k], "value", required=k in SETTING_KEYS_REQUIRED, label=k)
 
     def num(k: str, **kw) -> float | None:
         if k not in kv:
             return None
         kw.setdefault("required", k in SETTING_KEYS_REQUIRED)
-        return cells.number(kv[k], "value", **kw)
+        return cells.number(kv[k], "value", label=k, **kw)
 
     def bad(k: str, msg: str) -> None:
-        col.add(msg, sheet, kv[k].number if k in kv else None, "value")
+        col.add(f"{k}: {msg}", sheet, kv[k].number if k in kv else None, "value")
 
     utility = txt("utility")
     year = num("year", minimum=1900, maximum=2200, what="a year such as 2025")
@@ -426,6 +482,10 @@ def _parse_blocks(col: Collector, rows: list[Row]) -> list[Block]:
                 col.add(f"order {int(order)} appears twice (also row {orders[int(order)]})",
                         sheet, r.number, "order")
             orders.setdefault(int(order), r.number)
+        if rocof is not None and _blank(r.values.get("rocof_arm_hz")):
+            col.add(f"rocof_hz_per_s is {rocof:g} Hz/s but rocof_arm_hz is blank: give the "
+                    "frequency below which the rate element may trip (without one it would "
+                    "trip on any fast fall from nominal)", sheet, r.number, "rocof_arm_hz")
         if None not in (tgt, lo, hi) and not (lo <= tgt <= hi):
             col.add(f"expected min_pct ≤ target_pct ≤ max_pct, found {lo:g} ≤ {tgt:g} ≤ "
                     f"{hi:g}", sheet, r.number, "target_pct")
@@ -512,7 +572,7 @@ def _parse_profiles(col: Collector, rows: list[Row], seasons: list[str]
         tv = r.values.get("time")
         minute = None
         if _blank(tv):
-            col.add("required value is blank; expected a time HH:MM", sheet, r.number, "time")
+            col.add(f"{BLANK}; expected a time HH:MM", sheet, r.number, "time")
         else:
             minute = _parse_time(tv)
             if minute is None:
@@ -669,10 +729,11 @@ def _cross_checks(col: Collector, settings: Settings | None, blocks: list[Block]
             col.add(f"trip group '{g}' mixes armable feeders and relay 'none' feeders (rows "
                     f"{rows}); one relay trips them all, so all must be armable or none",
                     sheet, members[0].row, "trip_group")
-        cur = {m.current_block for m in members}
-        if len(cur) > 1:
-            warnings.append(f"trip group {g}: current_block differs between members "
-                            f"({', '.join(sorted(str(c) for c in cur))})")
+        if len({m.current_block for m in members}) > 1:
+            where = ", ".join(f"row {m.row}: {m.current_block or 'unarmed'}" for m in members)
+            col.add(f"trip group '{g}' is split across blocks in current_block ({where}); one "
+                    "relay trips them all, so they sit in one block or are all unarmed",
+                    sheet, members[0].row, "current_block")
         if len({m.substation for m in members}) > 1:
             warnings.append(f"trip group {g} spans several substations")
     return warnings
@@ -824,6 +885,7 @@ def read_study(path: str | os.PathLike) -> Study:
             scenarios = _parse_scenarios(col, rows, settings.year if settings else None,
                                          p.resolve().parent)
             _weather_problems(col, scenarios)
+    _explain_formula_blanks(p, col, {name: h for name, (h, _) in sheets.items()})
     col.raise_if_any()
     assert settings is not None and profiles is not None
     profiles = Profiles(profiles.names, profiles.seasons, profiles.values_pu, month_season,

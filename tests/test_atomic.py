@@ -235,3 +235,49 @@ def test_out_onto_an_existing_file_is_refused(study):
     r = run(["check", W, "--out", "notes.txt", "--format", "none"], study)
     assert r.rc == 2 and "exists and is not a folder" in r.text
     assert (study / "notes.txt").read_text() == "keep me"
+
+
+# --------------------------------------------------------------------------------------------
+# permissions follow the umask (POSIX mkdir/open: mode 0777 / 0666 with the umask bits
+# cleared)
+# --------------------------------------------------------------------------------------------
+@pytest.fixture()
+def umask():
+    """Set a umask for one test and restore the previous one after."""
+    old = os.umask(0o022)
+    os.umask(old)
+    yield lambda m: os.umask(m)
+    os.umask(old)
+
+
+@pytest.mark.skipif(os.name != "posix", reason="POSIX permission bits")
+@pytest.mark.parametrize("mask", [0o022, 0o002, 0o027], ids=["022", "002", "027"])
+def test_output_folder_gets_the_umask_mode(tmp_path, umask, mask):
+    umask(mask)
+    target = tmp_path / "shared" / "out"
+    with allocator.safeio.atomic_dir(target) as tmp:
+        assert tmp.stat().st_mode & 0o777 == 0o700  # private while it is written
+        (tmp / "summary.json").write_text("{}\n")
+        (tmp / "figures").mkdir()
+        (tmp / "figures" / "a.png").write_bytes(b"png")
+    dir_mode, file_mode = 0o777 & ~mask, 0o666 & ~mask
+    assert target.stat().st_mode & 0o777 == dir_mode
+    assert (target / "figures").stat().st_mode & 0o777 == dir_mode
+    assert (target / "summary.json").stat().st_mode & 0o777 == file_mode
+    assert (target / "figures" / "a.png").stat().st_mode & 0o777 == file_mode
+    assert sorted(p.name for p in target.iterdir()) == ["figures", "summary.json"]
+
+
+@pytest.mark.skipif(os.name != "posix", reason="POSIX permission bits")
+def test_command_outputs_readable_by_the_group(study, umask):
+    """A real run with umask 002 (a shared project folder): every folder 0775 and every file
+    0664, the replaced previous output folder included."""
+    umask(0o002)
+    r = run(["check", W, "--out", "results/out", "--quiet"], study)
+    assert r.rc == 0, r.text
+    out = study / "results" / "out"
+    paths = [out] + sorted(out.rglob("*"))
+    assert len(paths) > 5
+    for p in paths:
+        want = 0o775 if p.is_dir() else 0o664
+        assert p.stat().st_mode & 0o777 == want, (p, oct(p.stat().st_mode))

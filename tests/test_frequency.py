@@ -205,14 +205,15 @@ def test_trip_is_crossing_plus_delay_plus_breaker_with_kink_in_trace():
 
 
 @pytest.mark.parametrize("delay_s, breaker_s", [(0.3, 0.1), (0.2, 0.1), (0.0, 0.1),
-                                                (0.35, 0.05), (0.1, 0.3)])
-def test_trip_lands_within_400_ms_of_crossing(delay_s, breaker_s):
-    # common practice, no source: a stage set to delay + breaker ≤ 400 ms clears within 400 ms
+                                                (0.35, 0.05), (0.1, 0.3), (0.5, 0.1)])
+def test_trip_lands_delay_plus_breaker_after_crossing(delay_s, breaker_s):
+    # crossing instant from a solve_ivp event (RK45); the breaker opens delay + breaker time
+    # after it.  (Whether a setting keeps within the 400 ms rule of thumb, common practice,
+    # no source, is a property of the settings, not of the simulation: not asserted here.)
     p = SystemParams(breaker_time_s=breaker_s)
     r = simulate(p, [block(pickup_hz=49.6, delay_s=delay_s)], [[5.0]], [20.0], duration_s=5.0)
     t_cross, _, _ = reference_one_trip(p, 0.20, 49.6, delay_s + breaker_s, 0.05, 5.0)
     elapsed = r.trip_time_s[0, 0, 0] - t_cross
-    assert elapsed <= 0.4 + 1e-4
     assert elapsed == pytest.approx(delay_s + breaker_s, abs=1e-4)
     assert r.max_late_trip_s == 0.0
 
@@ -282,17 +283,37 @@ def test_more_shedding_property_would_catch_a_lower_nadir():
     assert r.nadir_hz[1, 0] < r.nadir_hz[0, 0] - 1e-3
 
 
+@pytest.mark.parametrize("p", PARAM_SETS)
+def test_final_frequency_with_nothing_shed_is_the_sfr_steady_state(p):
+    # Anderson & Mirheydar 1990: steady-state deviation of the SFR model after a loss ΔP,
+    # Δω_ss = −R·ΔP / (D·R + Km) (the form of their result as recalled from memory; the same
+    # value is the final value of their transfer function at p = 0)
+    loss = 0.10
+    r = simulate(p, NO_BLOCKS, NO_ARMED, [100 * loss], duration_s=90.0)
+    r_, d, km = p.droop_r_pu, p.damping_d_pu, p.mech_gain_km
+    assert r.final_hz[0, 0] == pytest.approx(p.nominal_hz * (1.0 - r_ * loss / (d * r_ + km)),
+                                             abs=1e-5)
+
+
 @pytest.mark.parametrize("share_pct", [30.0, -3.0])
 def test_final_frequency_and_zenith_after_heavy_or_negative_shedding(share_pct):
-    # final value of the SFR model (Anderson & Mirheydar 1990, steady state −R·ΔP/(D·R + Km))
-    # with net deficit (P − s) and damping scaled by the remaining load (1 − s)
+    # This project's own modelling choice, not the paper's (it sheds nothing): the load
+    # damping scales with the load still connected, D·(1 − s).  Hand derivation of the final
+    # value from the model ODE in allocator/frequency.py, at rest (d/dt = 0):
+    #   TR·dy/dt = Δω − y = 0                       →  y = Δω
+    #   ΔPm = −(Km/R)·(FH·Δω + (1 − FH)·y)          =  −(Km/R)·Δω
+    #   0 = ΔPm − P + s − D·(1 − s)·Δω              →  Δω = R·(s − P) / (Km + D·R·(1 − s))
     p = SystemParams()
     loss, s = 0.10, share_pct / 100.0
     r = simulate(p, [block(pickup_hz=49.8, delay_s=0.1)], [[share_pct]], [100 * loss],
                  duration_s=90.0)
     r_, d, km = p.droop_r_pu, p.damping_d_pu, p.mech_gain_km
-    expected = p.nominal_hz * (1.0 + r_ * (s - loss) / (d * r_ * (1.0 - s) + km))
+    expected = p.nominal_hz * (1.0 + r_ * (s - loss) / (km + d * r_ * (1.0 - s)))
     assert r.final_hz[0, 0] == pytest.approx(expected, abs=1e-5)
+    # the check tells the scaling apart: with unscaled damping D the final value would
+    # differ by more than 0.4 mHz in both cases
+    unscaled = p.nominal_hz * (1.0 + r_ * (s - loss) / (km + d * r_))
+    assert abs(r.final_hz[0, 0] - unscaled) > 4e-4
     assert r.shed_pct[0, 0] == pytest.approx(share_pct)
     if share_pct > 100 * loss:  # shedding far more than the loss: overshoot above nominal
         assert r.zenith_hz[0, 0] > p.nominal_hz + 0.1
@@ -441,3 +462,17 @@ def test_five_blocks_match_piecewise_solve_ivp():
         np.testing.assert_array_equal(np.isnan(r.trip_time_s[0, j]), np.isnan(trip_ref))
         m = ~np.isnan(trip_ref)
         assert np.max(np.abs(r.trip_time_s[0, j][m] - trip_ref[m])) < 1e-4
+
+
+def test_largest_covered_stops_at_the_first_loss_outside_limits():
+    # definition of this tool (no outside source): sizes in any order, a size listed twice
+    # counts only if every run of it stays within limits
+    from allocator.frequency import largest_covered_pct
+
+    sizes = [20.0, 5.0, 10.0, 15.0, 10.0, 30.0]
+    within = [[True, True, True, False, True, True],   # 15 fails → 10
+              [True, True, True, True, False, True],   # one run of 10 fails → 5
+              [False, False, True, True, True, True],  # 5 fails → none
+              [True] * 6]                              # all → 30
+    got = largest_covered_pct(sizes, within)
+    np.testing.assert_array_equal(got, [10.0, 5.0, np.nan, 30.0])

@@ -477,7 +477,8 @@ def test_figures_deterministic(case):
 def test_figures_without_windows(tmp_path):
     """A compliant study still gets every figure (the timeline says there is no window)."""
     blocks = [{"block": f"S{k}", "order": k, "pickup_hz": 49.0 - 0.3 * k, "delay_s": 0.1,
-               "rocof_hz_per_s": 0.5, "target_pct": 10, "min_pct": 0, "max_pct": 100}
+               "rocof_hz_per_s": 0.5, "rocof_arm_hz": 49.5, "target_pct": 10, "min_pct": 0,
+               "max_pct": 100}
               for k in (1, 2)]
     study = _study(tmp_path, blocks=blocks)
     idx = np.full(len(study.feeders), -1)

@@ -93,6 +93,11 @@ def _mixed_trip_group(t):
     t["feeders"][6].update(trip_group="TG1")
 
 
+def _split_trip_group(t):
+    t["feeders"][4].update(trip_group="TG1", current_block="S1")
+    t["feeders"][5].update(trip_group="TG1", current_block="S2")
+
+
 CASES = {
     "missing sheet": (_drop_sheet, ("blocks", None, None, "missing sheet 'blocks'")),
     "missing feeder column": (_drop_column("feeders", "peak_mw"),
@@ -152,6 +157,25 @@ CASES = {
         ("seasons", 3, "months", "month 10 is in two seasons")),
     "trip group mixes armable and none": (
         _mixed_trip_group, ("feeders", FEEDER_ROW + 4, "trip_group", "trip group 'TG1' mixes")),
+    # one relay cannot sit in two blocks (was a warning)
+    "trip group split across blocks in current_block": (
+        _split_trip_group, ("feeders", FEEDER_ROW + 4, "current_block",
+                            f"trip group 'TG1' is split across blocks in current_block (row "
+                            f"{FEEDER_ROW + 4}: S1, row {FEEDER_ROW + 5}: S2)")),
+    # a RoCoF setting armed at nominal would trip the block on any fast fall
+    "rocof without arming frequency": (
+        _block(0, rocof_hz_per_s=0.5), ("blocks", 2, "rocof_arm_hz",
+                                        "rocof_hz_per_s is 0.5 Hz/s but rocof_arm_hz is blank")),
+    "formula without saved value in a number": (
+        _feeder(2, peak_mw="=2*3"), ("feeders", FEEDER_ROW + 2, "peak_mw",
+                                     "formula with no saved value (open and save the workbook "
+                                     "in a spreadsheet program, or write values); expected MW")),
+    "formula without saved value in text": (
+        _feeder(6, substation='="SUB"&"1"'), ("feeders", FEEDER_ROW + 6, "substation",
+                                              "formula with no saved value")),
+    "formula without saved value in a setting": (
+        _setting(utility="=A1"), ("settings", SETTING_ROW["utility"], "value",
+                                  "utility: formula with no saved value")),
 }
 
 
@@ -288,3 +312,59 @@ def test_no_share_warning_when_armable_enough(tmp_path):
     t["feeders"][0]["relay"] = "none"  # 1 of 55 MW unarmable: 98 % armable, targets 10 %
     study = read_study(write_workbook(tmp_path / "ok.xlsx", **t))
     assert not [w for w in study.warnings if "target" in w]
+
+
+def test_rocof_with_arming_frequency_reads(tmp_path):
+    t = _tables()
+    t["blocks"][0].update(rocof_hz_per_s=0.5, rocof_arm_hz=49.6)
+    study = read_study(write_workbook(tmp_path / "rocof.xlsx", **t))
+    assert (study.blocks[0].rocof_hz_per_s, study.blocks[0].rocof_arm_hz) == (0.5, 49.6)
+
+
+def test_every_settings_value_message_starts_with_its_key(tmp_path):
+    """A problem in the settings sheet's value column names the key it is about (the row
+    alone made the reader count rows)."""
+    bad = {"utility": None, "year": 25, "timezone": "Mars/Olympus", "nominal_hz": 55,
+           "interval_minutes": 7, "latitude": 95, "longitude": "east", "demand_basis": "scada",
+           "pv_derate": -1, "priority_policy": "skip", "compliance_rule": "always",
+           "holiday_country": "XX", "solver_time_limit_s": 0, "mip_gap": 2}
+    t = _tables()
+    t["settings"].update(bad)
+    problems = _problems(write_workbook(tmp_path / "settings.xlsx", **t))
+    key_of_row = {row: k for k, row in SETTING_ROW.items()}
+    values = [p for p in problems if p.sheet == "settings" and p.column == "value"]
+    assert {key_of_row[p.row] for p in values} == set(bad)
+    for p in values:
+        assert p.message.startswith(f"{key_of_row[p.row]}: "), str(p)
+    interval = next(p for p in values if key_of_row[p.row] == "interval_minutes")
+    assert interval.message == "interval_minutes: expected 15, 30 or 60, found 7"
+
+
+def test_formula_check_reads_the_workbook_again_only_when_a_required_cell_is_blank(
+        tmp_path, monkeypatch):
+    """Telling a formula from an empty cell costs a second read only on that error path; a
+    blank cell that is not a formula keeps its message; every problem is still listed."""
+    import openpyxl
+
+    calls = []
+    real = openpyxl.load_workbook
+
+    def counting(*a, **kw):
+        calls.append(kw.get("data_only"))
+        return real(*a, **kw)
+
+    monkeypatch.setattr(openpyxl, "load_workbook", counting)
+    read_study(write_workbook(tmp_path / "good.xlsx", **_tables()))
+    assert calls == [True]
+    calls.clear()
+    t = _tables()
+    t["feeders"][1]["peak_mw"] = "=1+1"
+    t["feeders"][2]["peak_mw"] = None
+    t["feeders"][3]["relay"] = "ufls"
+    problems = _problems(write_workbook(tmp_path / "bad.xlsx", **t))
+    assert calls == [True, False]
+    by_row = {p.row: p.message for p in problems}
+    assert len(problems) == 3
+    assert by_row[FEEDER_ROW + 1].startswith("formula with no saved value")
+    assert by_row[FEEDER_ROW + 2].startswith("required value is blank")
+    assert "unknown relay 'ufls'" in by_row[FEEDER_ROW + 3]

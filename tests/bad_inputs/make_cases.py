@@ -405,7 +405,8 @@ _feeder_case("workbook_blank_peak_mw", "peak_mw left empty", 8, "peak_mw", None,
 _feeder_case("workbook_formula_without_cached_value_in_peak_mw",
              "peak_mw is a formula never calculated (file written by a script, not saved by a "
              "spreadsheet program): the cell holds no value", 9, "peak_mw", "=2*3",
-             "required value is blank; expected MW ≥ 0")
+             "formula with no saved value (open and save the workbook in a spreadsheet "
+             "program, or write values); expected MW ≥ 0")
 _feeder_case("workbook_negative_pv_mw", "pv_mw -0.5", 1, "pv_mw", -0.5,
              "expected MW ≥ 0, found -0.5")
 _feeder_case("workbook_unknown_profile_in_feeders", "profile 'resi' is not on the profiles "
@@ -452,6 +453,17 @@ def _(d):
     return std_argv()
 
 
+@case("workbook_trip_group_split_in_current_block", "workbook",
+      "trip group TG1: F02 recorded in S2, F03 in S1 (one relay cannot sit in two blocks)",
+      Expect(W, "feeders", fr(2), "current_block", "trip group 'TG1' is split across blocks "
+             "in current_block (row 4: S2, row 5: S1); one relay trips them all"))
+def _(d):
+    fs = feeders()
+    fs[3]["current_block"] = "S1"
+    write_wb(d, feeders_=fs)
+    return std_argv()
+
+
 # ============================================================================================
 # workbook: blocks, seasons, profiles, system
 # ============================================================================================
@@ -492,6 +504,11 @@ _block_case("workbook_blocks_max_pct_over_100", "max_pct 120", {0: {"max_pct": 1
             Expect(W, "blocks", 2, "max_pct", "expected a percentage 0..100 ≤ 100, found 120"))
 _block_case("workbook_blocks_pickup_in_khz", "pickup_hz 0.049", {0: {"pickup_hz": 0.049}},
             Expect(W, "blocks", 2, "pickup_hz", "expected a frequency in Hz ≥ 40, found 0.049"))
+_block_case("workbook_blocks_rocof_without_arming_frequency",
+            "S2 has a RoCoF setting of 0.5 Hz/s and no rocof_arm_hz",
+            {1: {"rocof_hz_per_s": 0.5, "rocof_arm_hz": None}},
+            Expect(W, "blocks", 3, "rocof_arm_hz", "rocof_hz_per_s is 0.5 Hz/s but rocof_arm_hz "
+                   "is blank"))
 
 
 @case("workbook_seasons_month_in_two_seasons", "workbook",
@@ -634,9 +651,11 @@ def _(d):
 # settings sheet
 # ============================================================================================
 def _settings_case(name, what, key, value, text, command="check", extra=()):
+    """One bad settings value; the message must start with its key."""
     row = SETTING_ROW.get(key, len(SETTING_ROW) + 2)
 
-    @case(name, "settings", what, Expect(W, "settings", row, "value", text), *extra)
+    @case(name, "settings", what, Expect(W, "settings", row, "value", f"{key}: {text}"),
+          *extra)
     def _(d):
         write_wb(d, settings={key: value})
         return [command, W]
@@ -687,6 +706,10 @@ _settings_case("settings_solver_time_limit_zero", "solver_time_limit_s 0",
                "solver_time_limit_s", 0, "expected seconds ≥ 1, found 0")
 _settings_case("settings_gap_fill_unknown", "gap_fill 'zero'", "gap_fill", "zero",
                "expected 'profile', 'interpolate' or 'error', found 'zero'")
+_settings_case("settings_formula_without_cached_value_in_year",
+               "year is a formula never calculated (file written by a script)", "year",
+               "=2020+5", "formula with no saved value (open and save the workbook in a "
+               "spreadsheet program, or write values); expected a year such as 2025")
 
 
 @case("settings_missing_required_key_latitude", "settings", "no latitude row",
@@ -713,12 +736,14 @@ def _(d):
 
 
 @case("settings_several_problems", "settings", "four bad settings: all are listed",
-      Expect(W, "settings", SETTING_ROW["timezone"], "value", "unknown time zone 'CEST'"),
-      Expect(W, "settings", SETTING_ROW["nominal_hz"], "value", "expected 50 or 60, found 0"),
+      Expect(W, "settings", SETTING_ROW["timezone"], "value",
+             "timezone: unknown time zone 'CEST'"),
+      Expect(W, "settings", SETTING_ROW["nominal_hz"], "value",
+             "nominal_hz: expected 50 or 60, found 0"),
       Expect(W, "settings", SETTING_ROW["interval_minutes"], "value",
-             "expected 15, 30 or 60, found 5"),
+             "interval_minutes: expected 15, 30 or 60, found 5"),
       Expect(W, "settings", SETTING_ROW["longitude"], "value",
-             "expected longitude in degrees ≥ -180, found -200"))
+             "longitude: expected longitude in degrees ≥ -180, found -200"))
 def _(d):
     write_wb(d, settings={"timezone": "CEST", "nominal_hz": 0, "interval_minutes": 5,
                           "longitude": -200})
