@@ -5,7 +5,9 @@ Outside references used here, each named again beside its check:
 * BDEW standard load profiles (the older H0/G0-G6/L0-L2 tables and the 2025 G25/H25/L25/P25/
   S25 tables) as shipped, with their own series builder, in the ``demandlib`` package (PyPI,
   version 0.2.2).
-* Public-holiday calendars of the ``holidays`` package (PyPI).
+* Public holidays: Western Easter from ``dateutil.easter`` (python-dateutil, PyPI) for the
+  movable feasts; fixed dates and which state keeps which feast from memory.  (The BDEW
+  tests give demandlib the ``holidays`` package's calendar, the same one the tool uses.)
 * Solar position: NOAA Global Monitoring Division, "General Solar Position Calculations"
   (declination and equation-of-time Fourier approximations; coefficients from memory).
 * DST transition dates: the IANA time-zone database through Python's ``zoneinfo``; the rules
@@ -30,10 +32,10 @@ import pandas as pd
 import pytest
 from demandlib.bdew._profiles25 import _bdew_datapath  # demandlib's BDEW table folder
 
-from allocator.domain import DAY_TYPES
+from allocator.domain import DAY_TYPES, Settings
 from allocator.solar import clearsky_ghi_w_per_m2, clearsky_pv_pu
 from allocator.workbook import read_study
-from allocator.year import build_year, study_intervals
+from allocator.year import build_year, day_type_index, holiday_dates, study_intervals
 from wbfactory import BASE_SETTINGS, base_feeders, flat_profiles, write_workbook
 
 SUNDAY = DAY_TYPES.index("sunday")
@@ -233,8 +235,95 @@ def test_bdew_old_profiles_match_demandlib(tmp_path):
 
 
 # ============================================================================================
-# 2. Holidays (`holidays` package) are Sunday-type days
+# 2. Holidays against an independent calendar: Easter from dateutil, fixed dates from memory
 # ============================================================================================
+# Movable feasts are days relative to Western Easter Sunday, computed by python-dateutil's
+# ``dateutil.easter.easter`` (a general-purpose library, not the `holidays` package the tool
+# uses).  Fixed-date holidays and which feasts each state keeps are from memory.
+GOOD_FRIDAY, EASTER_MONDAY, ASCENSION, WHIT_MONDAY, CORPUS_CHRISTI = -2, 1, 39, 50, 60
+DE_FIXED = [(1, 1), (5, 1), (10, 3), (12, 25), (12, 26)]  # incl. German Unity Day 3 Oct
+DE_MOVABLE = [GOOD_FRIDAY, EASTER_MONDAY, ASCENSION, WHIT_MONDAY]
+HOLIDAY_CALENDARS = {
+    # (country, subdivision): (time zone, fixed (month, day), Easter offsets, one-off dates)
+    ("DE", None): ("Europe/Berlin", DE_FIXED, DE_MOVABLE, {}),
+    # Bavaria adds Epiphany, Corpus Christi and All Saints; Assumption (15 Aug) holds there
+    # only in the majority-Catholic municipalities, so not state-wide (from memory)
+    ("DE", "BY"): ("Europe/Berlin", DE_FIXED + [(1, 6), (11, 1)],
+                   DE_MOVABLE + [CORPUS_CHRISTI], {}),
+    # Berlin adds International Women's Day (8 Mar, since 2019) and kept 8 May 2025, the
+    # 80th anniversary of the end of the Second World War in Europe, once (from memory)
+    ("DE", "BE"): ("Europe/Berlin", DE_FIXED + [(3, 8)], DE_MOVABLE, {2025: [(5, 8)]}),
+    # Austria (Vienna = subdivision 9): no Good Friday; National Day 26 Oct (from memory)
+    ("AT", "9"): ("Europe/Vienna",
+                  [(1, 1), (1, 6), (5, 1), (8, 15), (10, 26), (11, 1), (12, 8), (12, 25),
+                   (12, 26)], [EASTER_MONDAY, ASCENSION, WHIT_MONDAY, CORPUS_CHRISTI], {}),
+    # canton of Zurich: Swiss National Day 1 Aug, Labour Day, St Stephen's Day; 2 January
+    # (Berchtoldstag) is widely taken off but, as far as I remember, not a cantonal public
+    # holiday there (from memory)
+    ("CH", "ZH"): ("Europe/Zurich", [(1, 1), (5, 1), (8, 1), (12, 25), (12, 26)],
+                   [GOOD_FRIDAY, EASTER_MONDAY, ASCENSION, WHIT_MONDAY], {}),
+}
+HOLIDAY_YEARS = (2025, 2026)
+
+
+def _expected_holidays(country, subdiv, yr) -> set[date]:
+    from dateutil.easter import easter  # reference: python-dateutil (Western Easter)
+
+    _, fixed, movable, once = HOLIDAY_CALENDARS[(country, subdiv)]
+    e = easter(yr)
+    return ({date(yr, m, d) for m, d in fixed + once.get(yr, [])}
+            | {e + timedelta(days=k) for k in movable})
+
+
+def _holiday_settings(country, subdiv, yr) -> Settings:
+    return Settings(utility="Test", year=yr, timezone=HOLIDAY_CALENDARS[(country, subdiv)][0],
+                    nominal_hz=50.0, interval_minutes=60, latitude_deg=50.0,
+                    longitude_deg=10.0, holiday_country=country, holiday_subdivision=subdiv,
+                    demand_basis="feeders", pv_derate=0.8, priority_policy="exclude",
+                    compliance_rule="every_interval", compliance_percentile=None,
+                    max_changes=None, solver_time_limit_s=30.0, mip_gap=0.0)
+
+
+def _expected_day_types(local_dates: np.ndarray, hol: set[date]) -> np.ndarray:
+    """Documented rule (allocator.year.day_type_index): Mon-Fri workday, Saturday, Sunday;
+    a public holiday counts as Sunday whatever weekday it falls on - also on a Saturday."""
+    d = pd.DatetimeIndex(local_dates)
+    wd = d.day_of_week.to_numpy()
+    out = np.where(wd == 6, SUNDAY, np.where(wd == 5, SATURDAY, WORKDAY))
+    out[d.normalize().isin(pd.DatetimeIndex(sorted(hol)))] = SUNDAY
+    return out
+
+
+@pytest.mark.parametrize("yr", HOLIDAY_YEARS)
+@pytest.mark.parametrize("country,subdiv", list(HOLIDAY_CALENDARS))
+def test_holidays_and_day_types_match_independent_calendar(country, subdiv, yr):
+    want = _expected_holidays(country, subdiv, yr)
+    s = _holiday_settings(country, subdiv, yr)
+    got = holiday_dates(s)
+    assert {pd.Timestamp(d).date() for d in got} == want
+    local = study_intervals(yr, s.timezone, 60).tz_convert(s.timezone)
+    days = np.asarray(local.tz_localize(None).normalize())
+    types = day_type_index(local, got)
+    np.testing.assert_array_equal(types, _expected_day_types(days, want))
+
+
+def test_holiday_calendar_cases_cover_weekends_and_subdivisions():
+    """Guard: the cases above include holidays on a Saturday, on a Sunday and on weekdays,
+    and subdivisions that really differ from their country, so the checks can fail."""
+    wk = {"sat": 0, "sun": 0, "weekday": 0}
+    for (c, sd) in HOLIDAY_CALENDARS:
+        for yr in HOLIDAY_YEARS:
+            for d in _expected_holidays(c, sd, yr):
+                wk["sat" if d.weekday() == 5 else "sun" if d.weekday() == 6 else "weekday"] += 1
+    assert wk["sat"] >= 3 and wk["sun"] >= 3 and wk["weekday"] >= 50, wk
+    de = _expected_holidays("DE", None, 2025)
+    assert de < _expected_holidays("DE", "BY", 2025) and de < _expected_holidays("DE", "BE",
+                                                                                 2025)
+    # a Saturday holiday turns a 'saturday' into a 'sunday' day type (Berlin, 8 Mar 2025)
+    assert date(2025, 3, 8).weekday() == 5
+    assert date(2025, 3, 8) in _expected_holidays("DE", "BE", 2025) - de
+
+
 def _holiday_study(tmp_path, subdiv=None, name="hol.xlsx"):
     s = {"holiday_country": "DE", "year": 2025, "interval_minutes": 60}
     if subdiv:
@@ -242,38 +331,15 @@ def _holiday_study(tmp_path, subdiv=None, name="hol.xlsx"):
     return _study(tmp_path, name, settings=s)
 
 
-def test_fixed_national_holidays_are_sunday(tmp_path):
-    year = build_year(_holiday_study(tmp_path))
-    days = _local_dates(year)
-    cal = holidays.country_holidays("DE", years=2025)  # Source: `holidays` package
-    # fixed-date German national holidays (from memory; confirmed against `holidays` here)
-    fixed = [date(2025, 1, 1), date(2025, 5, 1), date(2025, 10, 3), date(2025, 12, 25),
-             date(2025, 12, 26)]
-    for d in fixed:
-        assert d in cal
-        m = days == np.datetime64(d)
-        assert m.sum() == 24
-        assert (year.day_type_index[m] == SUNDAY).all(), d
-    # whole year: Sunday if holiday or Sunday, else Saturday / workday by weekday
-    for d in pd.date_range("2025-01-01", "2025-12-31"):
-        want = (SUNDAY if d.date() in cal or d.day_of_week == 6 else
-                SATURDAY if d.day_of_week == 5 else WORKDAY)
-        got = set(year.day_type_index[days == np.datetime64(d.date())].tolist())
-        assert got == {want}, d.date()
-    # Good Friday / Easter Monday 2025 (18 / 21 April) are movable national holidays
-    assert set(year.day_type_index[days == np.datetime64("2025-04-21")]) == {SUNDAY}
-
-
-def test_subdivision_holiday_only_with_subdivision(tmp_path):
-    # Source: `holidays` package - Epiphany (6 Jan) is a holiday in Bavaria (DE-BY) only.
-    assert date(2025, 1, 6) in holidays.country_holidays("DE", subdiv="BY", years=2025)
-    assert date(2025, 1, 6) not in holidays.country_holidays("DE", years=2025)
-    assert date(2025, 1, 6).weekday() == 0  # a Monday
-    nat = build_year(_holiday_study(tmp_path, name="de.xlsx"))
-    by = build_year(_holiday_study(tmp_path, subdiv="BY", name="by.xlsx"))
-    for y, want in ((nat, WORKDAY), (by, SUNDAY)):
-        m = _local_dates(y) == np.datetime64("2025-01-06")
-        assert set(y.day_type_index[m].tolist()) == {want}
+@pytest.mark.parametrize("subdiv", [None, "BY", "BE"])
+def test_build_year_uses_the_subdivision_calendar(tmp_path, subdiv):
+    # the year builder's day types follow the independent calendar above (dateutil Easter,
+    # fixed dates from memory): e.g. Epiphany, Mon 6 Jan 2025, is a holiday in Bavaria only
+    y = build_year(_holiday_study(tmp_path, subdiv=subdiv, name=f"{subdiv}.xlsx"))
+    want = _expected_day_types(_local_dates(y), _expected_holidays("DE", subdiv, 2025))
+    np.testing.assert_array_equal(y.day_type_index, want)
+    m = _local_dates(y) == np.datetime64("2025-01-06")
+    assert set(y.day_type_index[m].tolist()) == {SUNDAY if subdiv == "BY" else WORKDAY}
 
 
 # ============================================================================================
