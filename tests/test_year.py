@@ -512,7 +512,7 @@ def test_clearsky_ghi_matches_noaa_geometry_and_haurwitz(lat, lon):
 
 
 def test_clearsky_ghi_at_chosen_instants():
-    # reference values written out: NOAA calculator + Haurwitz at three instants (Berlin
+    # reference: the NOAA calculator + Haurwitz functions above at three instants (Berlin
     # midsummer noon, a winter morning at 50 N 10 E, an equinox afternoon in Cape Town)
     cases = [("2025-06-21 11:08", 52.52, 13.40), ("2025-12-15 09:00", 50.0, 10.0),
              ("2025-03-20 13:30", -33.92, 18.42)]
@@ -522,6 +522,15 @@ def test_clearsky_ghi_at_chosen_instants():
         got = float(clearsky_ghi_w_per_m2(t, lat, lon)[0])
         assert ref > 150, (when, ref)
         assert got == pytest.approx(ref, abs=GHI_TOL_W_PER_M2), (when, got, ref)
+    # and by hand for the first: 11:08 UTC is Berlin's solar noon that day (12:00 - 4 min x
+    # 13.40 - EoT of about -1.6 min), declination 23.44° (solstice, from memory), so the sun
+    # stands 90 - 52.52 + 23.44 = 60.92° high; cos z = sin 60.92° = 0.8739 and Haurwitz gives
+    # 1098 x 0.8739 x exp(-0.057 / 0.8739) = 959.6 x 0.9369 = 899.0 W/m² (0.5 W/m² for the
+    # rounding of this arithmetic)
+    t = pd.DatetimeIndex(["2025-06-21 11:08"], tz="UTC")
+    assert float(_reference_ghi_w_per_m2(t, 52.52, 13.40)[0]) == pytest.approx(899.0, abs=0.5)
+    assert float(clearsky_ghi_w_per_m2(t, 52.52, 13.40)[0]) == pytest.approx(
+        899.0, abs=GHI_TOL_W_PER_M2 + 0.5)
 
 
 @pytest.mark.parametrize("interval", [15, 60])
