@@ -70,7 +70,7 @@ def verdict_table(console: Console, check: Check, title: str = "Armed load per b
 
 def statement_table(console: Console, check: Check) -> None:
     t = Table(title="Annual statement: frequency setting and % of netted demand disconnected "
-              "(Regulation (EU) 2017/2196 Art. 35(1))", title_justify="left")
+              "(Regulation (EU) 2017/2196 Art. 50(1))", title_justify="left")
     for c in ("block", "pickup Hz", "delay s", "mean %", "min %", "cum. mean %", "cum. min %"):
         t.add_column(c, justify="right" if c != "block" else "left", no_wrap=True)
     for r in annual_statement(check):
