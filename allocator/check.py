@@ -398,7 +398,7 @@ def annual_statement(check: Check) -> list[dict]:
 
     This is the content a distribution system operator reports each year to the
     transmission system operator under Regulation (EU) 2017/2196 (network code on
-    emergency and restoration), Art. 35(1): the frequency settings at which netted demand
+    emergency and restoration), Art. 50(1): the frequency settings at which netted demand
     disconnection is initiated and the percentage of netted demand disconnected at each.
     """
     out = []

@@ -99,7 +99,7 @@ def statement_table(console: Console, checks) -> None:
 
     check = statement_check(as_set(checks))
     t = Table(title="Annual statement: frequency setting and % of netted demand disconnected "
-              "(Regulation (EU) 2017/2196 Art. 35(1))", title_justify="left",
+              "(Regulation (EU) 2017/2196 Art. 50(1))", title_justify="left",
               caption=f"scenario {escape(check.scenario)}", caption_justify="left")
     for c in ("block", "pickup Hz", "delay s", "mean %", "min %", "cum. mean %", "cum. min %"):
         t.add_column(c, justify="right" if c != "block" else "left", no_wrap=True)

@@ -16,6 +16,27 @@ STC_IRRADIANCE_W_PER_M2 = 1000.0
 SUBSAMPLE_MINUTES = 5
 
 
+def solar_position_deg(times_utc: pd.DatetimeIndex, latitude_deg: float, longitude_deg: float,
+                       altitude_m: float | None = None, pressure_pa: float | None = None,
+                       temperature_c: float = 12.0, delta_t_s: float | None = None
+                       ) -> pd.DataFrame:
+    """Topocentric solar position at the given instants, degrees: NREL SPA (Reda & Andreas,
+    Solar Energy 76, 2004) as pvlib's ``nrel_numpy``.
+
+    Columns ``apparent_zenith`` and ``apparent_elevation`` (refraction from ``pressure_pa``
+    and ``temperature_c``), ``zenith``, ``elevation``, ``azimuth`` (east of north) and
+    ``equation_of_time`` (minutes).  ``None`` keeps pvlib's defaults: sea level at 101325 Pa,
+    and its default ΔT (TT − UT).  The PV model uses these defaults.
+    """
+    import pvlib
+
+    kw = {} if delta_t_s is None else {"delta_t": delta_t_s}
+    return pvlib.solarposition.get_solarposition(times_utc, latitude_deg, longitude_deg,
+                                                 altitude=altitude_m, pressure=pressure_pa,
+                                                 method="nrel_numpy",
+                                                 temperature=temperature_c, **kw)
+
+
 def clearsky_ghi_w_per_m2(times_utc: pd.DatetimeIndex, latitude_deg: float,
                           longitude_deg: float) -> np.ndarray:
     """Clear-sky global horizontal irradiance, W/m², at the given instants.
@@ -28,8 +49,7 @@ def clearsky_ghi_w_per_m2(times_utc: pd.DatetimeIndex, latitude_deg: float,
     """
     import pvlib
 
-    pos = pvlib.solarposition.get_solarposition(times_utc, latitude_deg, longitude_deg,
-                                                method="nrel_numpy")
+    pos = solar_position_deg(times_utc, latitude_deg, longitude_deg)
     ghi = pvlib.clearsky.haurwitz(pos["apparent_zenith"])["ghi"].to_numpy(dtype=float)
     return np.where(pos["apparent_elevation"].to_numpy() > 0.0, np.nan_to_num(ghi), 0.0)
 

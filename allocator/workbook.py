@@ -45,6 +45,9 @@ FEEDER_COLUMNS = ("feeder_id", "substation", "profile", "peak_mw", "pv_mw", "rel
 FEEDER_OPTIONAL = ("zone", "priority", "allowed_blocks", "trip_group", "current_block", "customers")
 PROFILE_COLUMNS = ("profile", "season", "day_type", "time", "value")
 SEASON_COLUMNS = ("season", "months")
+#: longest relay delay + breaker time, s, from the frequency crossing to load disconnected,
+#: before ``validate`` warns (a rule of thumb: common practice, no source)
+MAX_OPERATING_TIME_S = 0.4
 SETTING_KEYS_REQUIRED = ("utility", "year", "timezone", "nominal_hz", "interval_minutes",
                          "latitude", "longitude", "demand_basis", "priority_policy",
                          "compliance_rule")
@@ -918,4 +921,35 @@ def _scheme_warnings(study: Study) -> list[str]:
         if b.target_pct > share:
             out.append(f"block {b.name}: target {b.target_pct:g} % is above the "
                        f"{share:.1f} % of peak that may be armed in it")
+    return out + _operating_time_warnings(study)
+
+
+def _breaker_time_s(study: Study) -> float | None:
+    """``breaker_time_s`` of the optional ``system`` sheet, else the frequency model's
+    default; None when the sheet's value is bad (the frequency command reports it)."""
+    from .frequency import SystemParams, system_params_from_mapping
+
+    raw = (study.system or {}).get("values", {}).get("breaker_time_s")
+    if raw is None or (isinstance(raw, str) and not raw.strip()):
+        return SystemParams.breaker_time_s
+    try:
+        return system_params_from_mapping({"breaker_time_s": raw}, study.settings.nominal_hz,
+                                          study.path).breaker_time_s
+    except InputError:
+        return None
+
+
+def _operating_time_warnings(study: Study) -> list[str]:
+    """Blocks whose delay_s + breaker_time_s exceeds :data:`MAX_OPERATING_TIME_S`."""
+    breaker_s = _breaker_time_s(study)
+    if breaker_s is None:
+        return []
+    out = []
+    for b in study.blocks:
+        total_s = b.delay_s + breaker_s
+        if total_s > MAX_OPERATING_TIME_S + 1e-9:
+            out.append(f"block {b.name}: delay {b.delay_s:g} s + breaker {breaker_s:g} s = "
+                       f"{total_s:g} s from the frequency crossing to load disconnected, "
+                       f"longer than the {MAX_OPERATING_TIME_S:g} s usually aimed at "
+                       "(a rule of thumb; the system operator's settings govern)")
     return out

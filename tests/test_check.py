@@ -11,9 +11,10 @@ Outside references used here, each named again beside its check:
   order statistics, h = (n - 1) p); numpy's default ``method="linear"`` is documented as that
   definition (from memory).  Implemented by hand below.
 * Regulation (EU) 2017/2196 (network code on electricity emergency and restoration), Art.
-  35(1) as the project cites it: the yearly report of the frequency settings at which netted
-  demand disconnection is initiated and the percentage of netted demand disconnected at each.
-  The article number is the project's; it was not checked against the published text here.
+  50(1): the yearly update, by the distribution system operator, of what it communicated
+  under Art. 12(6)(b) - the frequency settings at which netted demand disconnection starts
+  and the percentage of netted demand disconnected at each (article numbers from memory; not
+  checked against the published text here).
 * Europe/Berlin: CET = UTC+1, CEST = UTC+2; 2025 DST from 30 March 01:00 UTC to 26 October
   01:00 UTC (EU rule "last Sunday of March / October at 01:00 UTC", Directive 2000/84/EC;
   from memory).
@@ -260,7 +261,7 @@ def test_hand_example_exporting_and_substations(hand):
 
 
 def test_hand_example_annual_statement(hand):
-    """Regulation (EU) 2017/2196 Art. 35(1) (as the project cites it, see the docstring): every
+    """Regulation (EU) 2017/2196 Art. 50(1) (see the module docstring): every
     block's frequency setting and % of netted demand disconnected, here mean and minimum."""
     _, _, chk = hand
     st = annual_statement(chk)

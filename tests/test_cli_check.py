@@ -186,6 +186,8 @@ def test_demo_console_within_100_columns(demo_console):
     assert rc == 0
     assert max(len(x) for x in text.splitlines()) <= 100
     assert "NOT COMPLIANT" in text and "Annual statement" in text
+    # the statement's citation: Regulation (EU) 2017/2196 Art. 50(1) (from memory)
+    assert "2017/2196 Art. 50(1)" in " ".join(text.split())
 
 
 def test_demo_verdict_words_not_truncated(demo_console):

@@ -195,8 +195,8 @@ def _changes(study: Study, block_idx: np.ndarray) -> int:
 # 1. lexicographic optimum on tiny instances vs brute force
 # ============================================================================================
 # seeds chosen to cover: feasible (2, 20, 22, 25, 33), infeasible (the rest), exclude and
-# last_block policies, intervals with demand <= 0 (0, 9), and a case where the 1 % MAD
-# tolerance of level 3 buys a change (33)
+# last_block policies, intervals with demand <= 0 (0, 9), and a case where level 3's MAD
+# tolerance (MAD_REL_TOL = 10 %) buys a change (33)
 TINY_SEEDS = [0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 20, 22, 25, 33]
 
 

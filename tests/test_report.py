@@ -565,7 +565,7 @@ def test_html_content(case):
     _check_offline(text)
     n_png = len(list((case["out"] / "figures").glob("*.png")))
     assert text.count('src="data:image/png;base64,') == n_png
-    assert "2017/2196" in text and "Art. 35(1)" in text
+    assert "2017/2196" in text and "Art. 50(1)" in text
     for word in ("clear-sky", "pv_derate", "every_interval", "60 minutes", "profiles"):
         assert word in text
     for c in CAUTIONS:

@@ -368,3 +368,44 @@ def test_formula_check_reads_the_workbook_again_only_when_a_required_cell_is_bla
     assert by_row[FEEDER_ROW + 1].startswith("formula with no saved value")
     assert by_row[FEEDER_ROW + 2].startswith("required value is blank")
     assert "unknown relay 'ufls'" in by_row[FEEDER_ROW + 3]
+
+
+# ---- total operating time: relay delay + breaker time -------------------------------------
+# 400 ms from the frequency crossing to load disconnected (relay delay + breaker time) is a
+# rule of thumb for UFLS stages: common practice, no source.
+OPERATING_TIME_LIMIT_S = 0.4
+
+
+def _operating_time_warnings(tmp_path, name, delays_s, system=None):
+    t = _tables()
+    for blk, d in zip(t["blocks"], delays_s):
+        blk["delay_s"] = d
+    extra = ({"system": [{"key": k, "value": v} for k, v in system.items()]}
+             if system is not None else None)
+    study = read_study(write_workbook(tmp_path / name, extra_sheets=extra, **t))
+    return [w for w in study.warnings if "breaker" in w]
+
+
+@pytest.mark.parametrize("delays_s,system,warned", [
+    # no system sheet: the frequency model's default breaker time
+    ((0.1, 0.35), None, {"S2"}),
+    # the system sheet's breaker time counts: 0.25 + 0.2 > 0.4 s, 0.1 + 0.2 is not
+    ((0.1, 0.25), {"breaker_time_s": 0.2}, {"S2"}),
+    ((0.25, 0.25), {"breaker_time_s": 0.2}, {"S1", "S2"}),
+    # exactly 0.4 s is not above the limit; 0.35 + 0.05 = 0.4
+    ((0.35, 0.1), {"breaker_time_s": 0.05}, set()),
+    # a short breaker time leaves a long delay within the limit: 0.38 + 0.01 s
+    ((0.38, 0.38), {"breaker_time_s": 0.01}, set()),
+])
+def test_warning_delay_plus_breaker_above_400_ms(tmp_path, delays_s, system, warned):
+    from allocator.frequency import SystemParams
+
+    breaker_s = (system or {}).get("breaker_time_s", SystemParams().breaker_time_s)
+    # the cases are built around the limit: the expected set is what the sums say
+    over = {name for name, d in zip(("S1", "S2"), delays_s)
+            if d + breaker_s > OPERATING_TIME_LIMIT_S + 1e-9}
+    assert over == warned
+    msgs = _operating_time_warnings(tmp_path, "op.xlsx", delays_s, system)
+    assert {m.split(":")[0].removeprefix("block ") for m in msgs} == warned, msgs
+    for m in msgs:
+        assert "0.4 s" in m and f"breaker {breaker_s:g} s" in m

@@ -269,7 +269,7 @@ def _statement(cs: ScenarioChecks) -> str:
                     f"{_td(r['cumulative_mean_pct'], '.2f')}{_td(r['cumulative_min_pct'], '.2f')}"
                     "</tr>")
     return ("<p>For the annual notification under Regulation (EU) 2017/2196 (network code on "
-            "emergency and restoration), Art. 35(1): each frequency setting at which netted "
+            "emergency and restoration), Art. 50(1): each frequency setting at which netted "
             "demand disconnection starts and the percentage of netted demand disconnected at "
             "it, as the mean and the minimum over the study year. Cumulative = this block and "
             f"all blocks that trip before it. Scenario: {esc(check.scenario)}.</p>"
