@@ -493,18 +493,18 @@ class _Stage:
 
 
 def _demo_verdicts(console, before, after, fb, fa) -> None:
-    from rich.table import Table
+    from rich.markup import escape
 
-    t = Table(title="Before and after (worst over every scenario)", title_justify="left")
-    for c in ("block", "band %", "current lowest %", "planned lowest %", "current",
-              "planned"):
-        t.add_column(c, no_wrap=c != "block")
-    for sb, sa in zip(before.verdicts, after.verdicts):
-        t.add_row(sb.block, f"{sb.min_pct:g}–{sb.max_pct:g}", f"{sb.min_share_pct:.1f}",
-                  f"{sa.min_share_pct:.1f}",
-                  "[green]in band[/green]" if sb.compliant else "[red]out of band[/red]",
-                  "[green]in band[/green]" if sa.compliant else "[red]out of band[/red]")
-    console.print(t)
+    from .console import _side_words, print_table
+
+    rows = [(escape(sb.block), f"{sb.min_pct:g}–{sb.max_pct:g}", f"{sb.min_share_pct:.1f}",
+             f"{sa.min_share_pct:.1f}", f"{sb.max_share_pct:.1f}", f"{sa.max_share_pct:.1f}",
+             _side_words(sb), _side_words(sa))
+            for sb, sa in zip(before.verdicts, after.verdicts)]
+    print_table(console, "Before and after (worst over every scenario)",
+                ["block", "band %", "current lowest %", "planned lowest %",
+                 "current highest %", "planned highest %", "current", "planned"], rows,
+                right={1, 2, 3, 4, 5})
     v = lambda c: "[green]COMPLIANT[/green]" if c.compliant else "[red]NOT COMPLIANT[/red]"
     console.print(f"Verdict before: {v(before)}   after: {v(after)}   (scenarios "
                   f"{', '.join(after.names)})")

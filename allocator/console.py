@@ -1,10 +1,15 @@
-"""Console rendering (rich).  Tables are sized to stay readable at 100 columns."""
+"""Console rendering (rich).  No number is ever cut: every table goes through
+:func:`print_table`, which fixes each column at least as wide as its longest value, lets
+headers wrap into the width left, and switches to one block of "header: value" lines per row
+when even that does not fit (80 columns and piped output included)."""
 
 from __future__ import annotations
 
+from rich import box
 from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
+from rich.text import Text
 
 from .check import Check, annual_statement
 from .domain import Study
@@ -12,6 +17,61 @@ from .domain import Study
 
 def make_console(quiet: bool = False) -> Console:
     return Console(quiet=quiet, highlight=False, soft_wrap=False)
+
+
+def _cell_len(markup: str) -> int:
+    return max((Text.from_markup(line).cell_len for line in markup.split("\n")), default=0)
+
+
+def _word_len(markup: str) -> int:
+    return max((len(w) for w in Text.from_markup(markup).plain.split()), default=0)
+
+
+def _widths(width: int, heads, rows, right) -> list[int] | None:
+    """Column widths for ``width`` console columns, or None when even the narrowest
+    layout does not fit.  Numbers (``right``) keep their full width; text may wrap at
+    spaces; what is left goes first to whole headers, then to whole text cells."""
+    n = len(heads)
+    full = [max([_cell_len(r[j]) for r in rows] + [0]) for j in range(n)]
+    least = [max([_word_len(h)] + ([full[j]] if j in right else
+                                   [_word_len(r[j]) for r in rows]))
+             for j, h in enumerate(heads)]
+    spare = width - (sum(least) + 3 * n - 3)  # separators and inner padding, no edges
+    if spare < 0:
+        return None
+    w = list(least)
+    for want in ([max(len(h), full[j]) for j, h in enumerate(heads)],
+                 [max(w[j], full[j]) for j in range(n)]):
+        for j in sorted(range(n), key=lambda j: want[j] - w[j]):
+            grow = min(spare, max(0, want[j] - w[j]))
+            w[j] += grow
+            spare -= grow
+    return w
+
+
+def print_table(console: Console, title: str, heads: list[str], rows: list[tuple[str, ...]],
+                right: set[int] = frozenset(), caption: str | None = None) -> None:
+    """A table that never cuts a value (cells are rich markup).  Columns in ``right`` are
+    right-aligned numbers and never wrap; text wraps at spaces.  Below the width the table
+    needs, each row becomes a block of lines: the first cell, then "header: value"."""
+    w = _widths(console.width, heads, rows, right)
+    if w is None:
+        console.print(title)
+        for r in rows:
+            console.print(r[0].replace("\n", " "))
+            for h, v in zip(heads[1:], r[1:]):
+                console.print(f"  {escape(h)}: {v.replace(chr(10), ' ')}")
+        if caption:
+            console.print(caption)
+        return
+    t = Table(title=title, title_justify="left", box=box.SIMPLE_HEAD, padding=(0, 1),
+              caption=caption, caption_justify="left", show_edge=False, pad_edge=False)
+    for j, h in enumerate(heads):
+        # numbers never wrap: their column is as wide as the widest (see _widths)
+        t.add_column(escape(h), justify="right" if j in right else "left", width=w[j])
+    for r in rows:
+        t.add_row(*r)
+    console.print(t)
 
 
 def study_overview(console: Console, study: Study) -> None:
@@ -45,25 +105,31 @@ def warnings(console: Console, items: list[str] | tuple[str, ...], limit: int = 
         console.print(f"  … and {len(items) - limit} more")
 
 
+def _side_words(v) -> str:
+    """in band / below band / above band / below and above band (one vocabulary)."""
+    if v.compliant:
+        return "[green]in band[/green]"
+    low, high = v.min_share_pct < v.min_pct, v.max_share_pct > v.max_pct
+    word = ("below and above band" if low and high else "below band" if low
+            else "above band" if high else "out of band")
+    return f"[red]{word}[/red]"
+
+
 def verdict_table(console: Console, checks, title: str = "Armed load per block") -> None:
-    """Per block the worst case over every scenario (lowest and highest share, where, the
-    headroom to the band's edges), then one line per scenario, then the overall verdict."""
+    """Per block the worst case over every scenario (lowest and highest share, the scenario
+    it happens in, the room left to the band's edges), then one line per scenario, then the
+    overall verdict."""
     from .export import as_set
 
     cs = as_set(checks)
-    t = Table(title=f"{title} — rule {cs.rule}", title_justify="left", padding=(0, 1))
-    for c, j in (("block", "left"), ("Hz", "right"), ("band %", "right"),
-                 ("lowest %", "right"), ("in", "left"), ("highest %", "right"),
-                 ("in", "left"), ("room to min/max pp", "right"), ("verdict", "left")):
-        t.add_column(c, justify=j, no_wrap=j == "right")
-    for v in cs.verdicts:
-        t.add_row(escape(v.block), f"{v.pickup_hz:.2f}", f"{v.min_pct:g}–{v.max_pct:g}",
-                  f"{v.min_share_pct:.1f}", escape(v.min_share_scenario),
-                  f"{v.max_share_pct:.1f}", escape(v.max_share_scenario),
-                  f"{v.headroom_to_min_pp:+.2f}/{v.headroom_to_max_pp:+.2f}",
-                  "[green]in band[/green]" if v.compliant else
-                  f"[red]out of band[/red] ({escape(', '.join(v.failing_scenarios))})")
-    console.print(t)
+    rows = [(escape(v.block), f"{v.pickup_hz:.2f}", f"{v.min_pct:g}–{v.max_pct:g}",
+             f"{v.min_share_pct:.1f}\n{escape(v.min_share_scenario)}",
+             f"{v.max_share_pct:.1f}\n{escape(v.max_share_scenario)}",
+             f"{v.headroom_to_min_pp:+.2f}", f"{v.headroom_to_max_pp:+.2f}", _side_words(v))
+            for v in cs.verdicts]
+    print_table(console, f"{title} — rule {cs.rule}, worst over every scenario",
+                ["block", "Hz", "band %", "lowest % in", "highest % in", "room to min pp",
+                 "room to max pp", "verdict"], rows, right={1, 2, 5, 6})
     scenario_table(console, cs)
     v = "[green]COMPLIANT[/green]" if cs.compliant else "[red]NOT COMPLIANT[/red]"
     bad = cs.failing_scenarios
@@ -73,11 +139,8 @@ def verdict_table(console: Console, checks, title: str = "Armed load per block")
 
 
 def scenario_table(console: Console, cs) -> None:
-    """One row per scenario: how it was made, its verdict and where it fails."""
-    t = Table(title="Scenarios judged", title_justify="left", padding=(0, 1))
-    for c, j in (("scenario", "left"), ("PV", "left"), ("year", "right"),
-                 ("in band %", "right"), ("worst pp", "right"), ("verdict", "left")):
-        t.add_column(c, justify=j, no_wrap=j == "right")
+    """One row per scenario: how it was made, its verdict and which blocks fail."""
+    rows = []
     for c in cs.checks:
         i = c.year.scenario_info
         pv = str(i.get("pv", c.year.source))
@@ -86,11 +149,13 @@ def scenario_table(console: Console, cs) -> None:
         if i.get("load_scale", 1.0) != 1.0:
             pv += f", load ×{i['load_scale']:g}"
         bad = [s.block for s in c.stats if not s.compliant]
-        t.add_row(escape(c.scenario), escape(pv), str(c.year.calendar_year),
-                  f"{100 * c.all_in_band_fraction:.1f}", f"{c.worst_violation_pp:.2f}",
-                  "[green]compliant[/green]" if c.compliant else
-                  f"[red]not compliant[/red] ({escape(', '.join(bad))})")
-    console.print(t)
+        rows.append((escape(c.scenario), escape(pv), str(c.year.calendar_year),
+                     f"{100 * c.all_in_band_fraction:.1f}", f"{c.worst_violation_pp:.2f}",
+                     "[green]compliant[/green]" if c.compliant else
+                     f"[red]not compliant[/red]: {escape(', '.join(bad))}"))
+    print_table(console, "Scenarios judged", ["scenario", "PV", "year",
+                                              "all blocks in band % of intervals",
+                                              "worst pp", "verdict"], rows, right={2, 3, 4})
 
 
 def statement_table(console: Console, checks) -> None:
@@ -98,17 +163,16 @@ def statement_table(console: Console, checks) -> None:
     from .export import as_set
 
     check = statement_check(as_set(checks))
-    t = Table(title="Annual statement: frequency setting and % of netted demand disconnected "
-              "(Regulation (EU) 2017/2196 Art. 50(1))", title_justify="left",
-              caption=f"scenario {escape(check.scenario)}", caption_justify="left")
-    for c in ("block", "pickup Hz", "delay s", "mean %", "min %", "cum. mean %", "cum. min %"):
-        t.add_column(c, justify="right" if c != "block" else "left", no_wrap=True)
-    for r in annual_statement(check):
-        t.add_row(escape(r["block"]), f"{r['pickup_hz']:.2f}", f"{r['delay_s']:.2f}",
-                  f"{r['netted_demand_disconnected_mean_pct']:.1f}",
-                  f"{r['netted_demand_disconnected_min_pct']:.1f}",
-                  f"{r['cumulative_mean_pct']:.1f}", f"{r['cumulative_min_pct']:.1f}")
-    console.print(t)
+    rows = [(escape(r["block"]), f"{r['pickup_hz']:.2f}", f"{r['delay_s']:.2f}",
+             f"{r['netted_demand_disconnected_mean_pct']:.1f}",
+             f"{r['netted_demand_disconnected_min_pct']:.1f}",
+             f"{r['cumulative_mean_pct']:.1f}", f"{r['cumulative_min_pct']:.1f}")
+            for r in annual_statement(check)]
+    print_table(console, "Annual statement: frequency setting and % of netted demand "
+                "disconnected (Regulation (EU) 2017/2196 Art. 50(1))",
+                ["block", "pickup Hz", "delay s", "mean %", "lowest %", "cumulative mean %",
+                 "lowest cumulative share over the year %"], rows, right=set(range(1, 7)),
+                caption=f"scenario {escape(check.scenario)}")
 
 
 def worst_windows(console: Console, check, n: int = 5) -> None:
@@ -118,12 +182,10 @@ def worst_windows(console: Console, check, n: int = 5) -> None:
     if w.empty:
         console.print("No interval outside any block's band in any scenario.")
         return
-    t = Table(title=f"Worst windows outside the band (of {len(w)})", title_justify="left")
-    for c in ("#", "scenario", "block", "kind", "start", "end", "hours", "worst %", "MWh"):
-        t.add_column(c, no_wrap=c in ("#", "start", "end", "hours", "worst %", "MWh"))
-    for r in w.head(n).itertuples():
-        t.add_row(str(r.rank), escape(r.scenario), escape(r.block),
-                  "below band" if r.kind == "below_min" else "above band",
-                  r.start_local, r.end_local, f"{r.duration_h:g}", f"{r.worst_share_pct:.1f}",
-                  f"{r.energy_mwh:.1f}")
-    console.print(t)
+    rows = [(str(r.rank), escape(r.scenario), escape(r.block),
+             "below band" if r.kind == "below_min" else "above band", r.start_local,
+             f"{r.duration_h:g}", f"{r.worst_share_pct:.1f}", f"{r.energy_mwh:.1f}")
+            for r in w.head(n).itertuples()]
+    print_table(console, f"Worst windows outside the band ({min(n, len(w))} of {len(w)})",
+                ["#", "scenario", "block", "kind", "start (local)", "hours", "worst %",
+                 "MWh outside"], rows, right={0, 5, 6, 7})

@@ -54,14 +54,16 @@ def test_plan_writes_files_and_check(wb, tmp_path, monkeypatch):
     assert list(plan.columns) == ["feeder_id", "block", "previous_block", "changed"]
     assert len(plan) == 10
     info = json.loads((out / "plan.json").read_text())
-    for k in ("status", "objective_terms", "levels", "solve_seconds", "rounds",
+    for k in ("status", "scenarios", "objective", "relays_changed", "feeders_changed",
+              "relays_changed_lower_bound", "levels", "solve_seconds", "rounds",
               "intervals_in_model", "solver", "solver_version", "combination"):
         assert k in info
+    assert info["scenarios"] == ["clear_sky", "no_pv"]
     summary = json.loads((out / "check" / "summary.json").read_text())
     # the plan's reported worst violation is the check's number
     assert info["worst_violation_pp"] == pytest.approx(summary["worst_violation_pp"], abs=1e-9)
     changed = (plan["block"] != plan["previous_block"]).sum()
-    assert info["changed_feeders"] == changed
+    assert info["feeders_changed"] == changed
     # the planned assignment is accepted by `check --assignment`
     assert main(["check", str(wb), "--assignment", str(out / "plan.csv"), "--out",
                  str(tmp_path / "recheck"), "--format", "none", "--quiet"]) == 0

@@ -62,6 +62,11 @@ def _tree(d: Path) -> dict[str, str]:
             for p in sorted(d.rglob("*")) if p.is_file()}
 
 
+VERDICT_KEYS = {"block", "compliant", "failing_scenarios", "min_share_pct", "min_share_scenario",
+                "min_share_local_time", "max_share_pct", "max_share_scenario",
+                "headroom_to_min_pp", "headroom_to_max_pp", "worst_violation_pp"}
+
+
 def test_check_writes_files(wb, tmp_path):
     rc = main(["check", str(wb), "--out", "out", "--format", "none", "--quiet"])
     assert rc == 0
@@ -71,21 +76,34 @@ def test_check_writes_files(wb, tmp_path):
         assert (out / name).is_file(), name
     assert not (out / "report.xlsx").exists() and not (out / "report.html").exists()
     summ = json.loads((out / "summary.json").read_text(encoding="utf-8"))
-    assert {"rule", "compliant", "blocks", "intervals", "demand_nonpositive_intervals"} <= \
-        set(summ)
+    assert {"rule", "compliant", "blocks", "scenarios", "scenarios_judged",
+            "verdict_covers"} <= set(summ)
     assert summ["rule"] == "every_interval"
-    assert summ["intervals"] == 8760 and summ["demand_nonpositive_intervals"] == 0
-    assert [b["block"] for b in summ["blocks"]] == ["S1", "S2"]
-    for b in summ["blocks"]:
+    # without a scenarios sheet: clear-sky PV and no PV, both in the study year
+    assert summ["scenarios_judged"] == ["clear_sky", "no_pv"]
+    sc = {s["scenario"]: s for s in summ["scenarios"]}
+    clear = sc["clear_sky"]
+    assert clear["intervals"] == 8760 and clear["demand_nonpositive_intervals"] == 0
+    assert [b["block"] for b in clear["blocks"]] == ["S1", "S2"]
+    for b in clear["blocks"]:
         assert BLOCK_KEYS <= set(b), BLOCK_KEYS - set(b)
-    assert summ["compliant"] == all(b["compliant"] for b in summ["blocks"])
+    for b in summ["blocks"]:
+        assert VERDICT_KEYS <= set(b), VERDICT_KEYS - set(b)
+    # the overall verdict is the worst over the scenarios
+    assert summ["compliant"] == all(s["compliant"] for s in summ["scenarios"])
+    for j, b in enumerate(summ["blocks"]):
+        assert b["min_share_pct"] == min(s["blocks"][j]["min_share_pct"] for s in sc.values())
+        assert b["compliant"] == all(s["blocks"][j]["compliant"] for s in sc.values())
 
     header, rows = _csv(out / "armed_load.csv")
-    assert header == ["timestamp_utc", "local_time", "demand_mw", "S1_mw", "S1_pct",
-                      "S1_cum_pct", "S2_mw", "S2_pct", "S2_cum_pct"]
+    assert header == ["scenario", "timestamp_utc", "local_time", "demand_mw", "S1_mw",
+                      "S1_pct", "S1_cum_pct", "S2_mw", "S2_pct", "S2_cum_pct"]
+    assert len(rows) == 2 * 8760
+    rows = [r for r in rows if r[0] == "clear_sky"]
     assert len(rows) == 8760
-    assert rows[0][0] == "2024-12-31T23:00:00Z" and rows[0][1] == "2025-01-01T00:00:00+0100"
-    v = np.array([[float(x) for x in r[2:]] for r in rows])
+    # ISO 8601: UTC with Z, local time with its offset
+    assert rows[0][1] == "2024-12-31T23:00:00Z" and rows[0][2] == "2025-01-01T00:00+01:00"
+    v = np.array([[float(x) for x in r[3:]] for r in rows])
     dem, s1mw, s1, c1, s2mw, s2, c2 = v.T
     # the CSV agrees with itself: share = 100 * MW / demand, cumulative in block order
     np.testing.assert_allclose(s1, 100 * s1mw / dem, rtol=1e-6, atol=2e-6)
@@ -93,7 +111,7 @@ def test_check_writes_files(wb, tmp_path):
     np.testing.assert_allclose(c1, s1, atol=2e-6)
     np.testing.assert_allclose(c2, s1 + s2, atol=3e-6)
     # and with summary.json (CSV floats have 6 decimals)
-    for b, s, mw in zip(summ["blocks"], (s1, s2), (s1mw, s2mw)):
+    for b, s, mw in zip(clear["blocks"], (s1, s2), (s1mw, s2mw)):
         assert b["min_share_pct"] == pytest.approx(s.min(), abs=1e-5)
         assert b["max_share_pct"] == pytest.approx(s.max(), abs=1e-5)
         assert b["mean_share_pct"] == pytest.approx(s.mean(), abs=1e-5)
@@ -103,14 +121,17 @@ def test_check_writes_files(wb, tmp_path):
         assert b["shortfall_mwh"] == pytest.approx(short, abs=1e-3)
 
     header, rows = _csv(out / "shortfalls.csv")
-    assert header == WINDOW_COLUMNS
+    assert header == ["rank", "scenario"] + WINDOW_COLUMNS[1:]
     assert len(rows) > 0  # F0's PV pulls S1 below 8 % on sunny middays
+    assert {r[1] for r in rows} <= {"clear_sky", "no_pv"}
     header, rows = _csv(out / "exporting_feeders.csv")
-    assert header[0] == "feeder_id" and {r[0] for r in rows} == {"F00", "F03"}
+    assert header[:2] == ["scenario", "feeder_id"]
+    assert {r[1] for r in rows if r[0] == "clear_sky"} == {"F00", "F03"}
+    assert not [r for r in rows if r[0] == "no_pv"]  # no PV output: nothing exports
     header, rows = _csv(out / "by_substation.csv")
-    assert header == ["substation", "zone", "block", "feeders", "customers", "mean_armed_mw",
-                      "armed_mw_at_block_min"]
-    assert sum(int(r[3]) for r in rows) == 4  # four armed feeders
+    assert header == ["scenario", "substation", "zone", "block", "feeders", "customers",
+                      "mean_armed_mw", "armed_mw_at_block_min"]
+    assert sum(int(r[4]) for r in rows if r[0] == "clear_sky") == 4  # four armed feeders
 
 
 def test_default_out_folder(wb, tmp_path):
@@ -145,10 +166,12 @@ def test_good_assignment_is_checked(wb, tmp_path):
     assert main(["check", str(wb), "--assignment", str(good), "--out", "o2", "--format",
                  "none", "--quiet"]) == 0
     header, rows = _csv(tmp_path / "o2" / "by_substation.csv")
-    assert sorted((r[0], r[2]) for r in rows) == [("SUB1", "S1"), ("SUB1", "S2")]
+    assert sorted((r[0], r[1], r[3]) for r in rows) == [
+        ("clear_sky", "SUB1", "S1"), ("clear_sky", "SUB1", "S2"), ("no_pv", "SUB1", "S1"),
+        ("no_pv", "SUB1", "S2")]
     summ = json.loads((tmp_path / "o2" / "summary.json").read_text(encoding="utf-8"))
     # no PV on F09 / F07 and one flat shape: S1 / S2 = 10/8 in every interval
-    s1, s2 = summ["blocks"]
+    s1, s2 = summ["scenarios"][0]["blocks"]
     assert s1["min_share_pct"] / s2["min_share_pct"] == pytest.approx(10 / 8, rel=1e-6)
     assert any("not listed" in w for w in summ["warnings"])
 
@@ -161,9 +184,9 @@ def test_console_verdict_table_fits_100_columns(wb, monkeypatch, capsys):
     assert max(len(x) for x in lines) <= 100
     assert "Armed load per block" in text and "rule every_interval" in text
     head = next(x for x in lines if "block" in x and "verdict" in x)
-    for col in ("Hz", "band %", "min %", "P5 %", "mean %", "max %", "<min", ">max", "MWh short"):
+    for col in ("Hz", "band %", "lowest %", "highest %", "room to min pp", "room to max pp"):
         assert col in head, col
-    assert any("│ S1" in x for x in lines) and any("│ S2" in x for x in lines)
+    assert any(x.startswith("S1 ") for x in lines) and any(x.startswith("S2 ") for x in lines)
     assert "Overall:" in text
 
 
@@ -192,4 +215,21 @@ def test_demo_console_within_100_columns(demo_console):
 
 def test_demo_verdict_words_not_truncated(demo_console):
     _, text = demo_console
-    assert "OUT" in text and ">max" in text and "…" not in text
+    assert "below band" in text and "not compliant: B2" in text and "…" not in text
+
+
+@pytest.mark.parametrize("width", [80, 60, 40])
+def test_demo_console_cuts_no_number(width, tmp_path, monkeypatch, capsys):
+    """At 80 columns (and narrower, piped) no line is longer than the console and no value
+    is cut: every number the summary holds for B2 appears whole."""
+    monkeypatch.setenv("COLUMNS", str(width))
+    assert main(["check", str(DEMO), "--out", str(tmp_path / "o"), "--format", "none"]) == 0
+    text = capsys.readouterr().out
+    assert max(len(x) for x in text.splitlines()) <= width
+    assert "…" not in text
+    summ = json.loads((tmp_path / "o" / "summary.json").read_text())
+    b2 = next(b for b in summ["blocks"] if b["block"] == "B2")
+    flat = " ".join(text.split())
+    for v in (f"{b2['min_share_pct']:.1f}", f"{b2['headroom_to_min_pp']:+.2f}",
+              f"{b2['pickup_hz']:.2f}"):
+        assert v in flat, v

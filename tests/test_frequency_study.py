@@ -86,7 +86,10 @@ def test_tables_and_cli(demo, tmp_path, monkeypatch):
     data = json.loads((tmp_path / "fq" / "frequency.json").read_text())
     assert {"intervals", "parameters", "cautions", "floor_hz"} <= set(data)
     assert (tmp_path / "fq" / "frequency.csv").is_file()
-    assert any((tmp_path / "fq" / "figures").glob("frequency_traces_critical.png"))
+    # one set of figures per scenario (clear_sky and no_pv by default), named for it
+    for sc in ("clear_sky", "no_pv"):
+        assert (tmp_path / "fq" / "figures" / f"{sc}_frequency_traces_critical.png").is_file()
+    assert {r["scenario"] for r in data["intervals"]} == {"clear_sky", "no_pv"}
 
 
 # ---- frequency results that agree -----------------------------------------------------------

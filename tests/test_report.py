@@ -32,11 +32,13 @@ from pathlib import Path
 
 import numpy as np
 import openpyxl
+import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings, strategies as st
 from matplotlib import image as mpimg
 
 from allocator.check import run_check, summary_dict
+from allocator.report.content import STATUS_WORDS
 from allocator.errors import InputError
 from allocator.export import write_check_files
 from allocator.report import FORMATS, parse_formats, write_reports
@@ -130,8 +132,8 @@ def plan_case(case, tmp_path_factory):
     new[ids.index(AT_ID)] = -1  # S2 -> unarmed
     chk = run_check(study, year, new)
     out = tmp_path_factory.mktemp("plan")
-    info = {"status": "optimal", "solve_seconds": 1.5,
-            "objective": {"worst_relative_violation": 0.1, "changes": 4},
+    info = {"status": "in_band", "solve_seconds": 1.5, "objective": "fewest_changes",
+            "relays_changed": 4, "feeders_changed": 4,
             "explanation": ["moved <two> feeders", "=1+1 is not a formula"]}
     paths = write_reports(chk, out, previous_idx=study.current_assignment, plan_info=info,
                           before=before)
@@ -162,16 +164,16 @@ def test_parse_formats_rejects(text):
 # ============================================================================================
 # workbook
 # ============================================================================================
-SHEETS = ["summary", "blocks", "feeders", "relay_changes", "intervals", "windows", "exports",
-          "substations"]
+SHEETS = ["summary", "scenarios", "blocks", "feeders", "relay_changes", "intervals", "windows",
+          "exports", "substations"]
 
 
 def test_workbook_sheets_and_headers(case):
     chk = case["check"]
     wb = openpyxl.load_workbook(case["out"] / "report.xlsx")
     assert wb.sheetnames == SHEETS
-    assert [c.value for c in wb["blocks"][1]][:len(BLOCK_COLUMNS)] == \
-        [h for _, h, _, _ in BLOCK_COLUMNS]
+    assert [c.value for c in wb["blocks"][1]][:len(BLOCK_COLUMNS) + 1] == \
+        ["scenario"] + [h for _, h, _, _ in BLOCK_COLUMNS]
     head = [c.value for c in wb["feeders"][1]]
     for h in ("feeder", "substation", "zone", "profile (feeder class)", "relay",
               "priority site", "block", "pickup Hz", "time delay s", "RoCoF setting Hz/s",
@@ -179,18 +181,19 @@ def test_workbook_sheets_and_headers(case):
               "share of its block %"):
         assert h in head
     iv = [c.value for c in wb["intervals"][1]]
-    assert iv[:3] == ["local time (Europe/Berlin)", "UTC time", "netted demand MW"]
-    assert iv[3:] == ["S1 armed MW", "S1 share %", "S2 armed MW", "S2 share %"]
+    assert iv[:5] == ["scenario", "local time (Europe/Berlin)", "UTC offset h", "UTC time",
+                      "netted demand MW"]
+    assert iv[5:] == ["S1 armed MW", "S1 share %", "S2 armed MW", "S2 share %"]
     ws = wb["intervals"]
     assert ws.max_row == chk.year.n_intervals + 1
-    assert ws.freeze_panes == "B2"
-    assert ws.auto_filter.ref == f"A1:G{chk.year.n_intervals + 1}"
+    assert ws.freeze_panes == "C2"
+    assert ws.auto_filter.ref == f"A1:I{chk.year.n_intervals + 1}"
     for name in ("blocks", "feeders", "intervals"):
-        assert wb[name].freeze_panes in ("A2", "B2")
+        assert wb[name].freeze_panes in ("A2", "B2", "C2")
     # number formats (MW 0.00, % 0.0) on the data cells
-    assert ws["C2"].number_format == "0.00" and ws["E2"].number_format == "0.0"
-    assert ws["A2"].number_format == "yyyy-mm-dd hh:mm"
-    assert ws.column_dimensions["A"].width >= 15
+    assert ws["E2"].number_format == "0.00" and ws["G2"].number_format == "0.0"
+    assert ws["B2"].number_format == "yyyy-mm-dd hh:mm"
+    assert ws.column_dimensions["B"].width >= 15
     # relay changes: current allocation -> one line saying so
     rc = wb["relay_changes"]
     assert rc.max_row == 2 and "No relay changes" in rc["A2"].value
@@ -212,12 +215,17 @@ def test_intervals_values_round_trip(case):
     wb = openpyxl.load_workbook(case["out"] / "report.xlsx", read_only=True)
     rows = list(wb["intervals"].iter_rows(min_row=2, max_row=200, values_only=True))
     for k, r in enumerate(rows):
-        assert r[0] == y.local_times[k].tz_localize(None).to_pydatetime()
-        assert r[1] == y.timestamps_utc[k].tz_localize(None).to_pydatetime()
-        assert r[2] == y.demand_mw[k]
+        assert r[0] == chk.scenario
+        assert r[1] == y.local_times[k].tz_localize(None).to_pydatetime()
+        # local = UTC + offset (Excel cells carry no zone: ECMA-376 date cells are serial
+        # day numbers, so the offset is its own column)
+        assert r[2] == (y.local_times[k].utcoffset().total_seconds() / 3600)
+        assert r[3] == y.timestamps_utc[k].tz_localize(None).to_pydatetime()
+        assert r[1] - r[3] == pd.Timedelta(hours=r[2]).to_pytimedelta()
+        assert r[4] == y.demand_mw[k]
         for j in range(len(chk.blocks)):
-            assert r[3 + 2 * j] == chk.armed_mw[j, k]
-            assert r[4 + 2 * j] == chk.share_pct[j, k]
+            assert r[5 + 2 * j] == chk.armed_mw[j, k]
+            assert r[6 + 2 * j] == chk.share_pct[j, k]
     wb.close()
 
 
@@ -253,15 +261,15 @@ def test_conditional_formats_and_legend(case):
             found[(str(rng.sqref), rule.operator)] = (rule.formula,
                                                       rule.dxf.fill.fgColor.rgb[-6:])
     b = chk.blocks[0]
-    lo = found[(f"E2:E{n}", "lessThan")]
-    hi = found[(f"E2:E{n}", "greaterThan")]
+    lo = found[(f"G2:G{n}", "lessThan")]
+    hi = found[(f"G2:G{n}", "greaterThan")]
     assert float(lo[0][0]) == b.min_pct and float(hi[0][0]) == b.max_pct
     assert lo[1] != hi[1]  # two distinct fills
     ws = wb["blocks"]
     rules = [(str(r.sqref), x.operator, x.formula) for r in ws.conditional_formatting
              for x in r.rules]
-    assert any(op == "lessThan" and f == ["$H2"] for _, op, f in rules)  # band min column
-    assert any(op == "greaterThan" and f == ["$I2"] for _, op, f in rules)
+    assert any(op == "lessThan" and f == ["$I2"] for _, op, f in rules)  # band min column
+    assert any(op == "greaterThan" and f == ["$J2"] for _, op, f in rules)
     # the legend on the summary sheet carries the same two fills
     fills = {c.fill.fgColor.rgb[-6:]: c.value for row in wb["summary"].iter_rows()
              for c in row if c.fill is not None and c.fill.fill_type == "solid"}
@@ -327,7 +335,7 @@ def test_plan_workbook(plan_case):
     # summary: plan status and explanation, as text (never formulas)
     cells = [c for row in wb["summary"].iter_rows() for c in row if c.value is not None]
     values = [c.value for c in cells]
-    assert "optimal" in values and "=1+1 is not a formula" in values
+    assert STATUS_WORDS["in_band"] in values and "=1+1 is not a formula" in values
     assert all(c.data_type != "f" for c in cells)
     # blocks sheet: the before columns
     head = [c.value for c in wb["blocks"][1]]
@@ -338,8 +346,9 @@ def test_plan_workbook(plan_case):
 
 
 @pytest.mark.slow
-def test_workbook_speed_35040_rows(tmp_path):
-    """A year of 15-minute intervals with five blocks (13 interval columns) in <= 10 s."""
+def test_workbook_35040_rows(tmp_path):
+    """A year of 15-minute intervals with five blocks (15 interval columns) is written whole
+    (its speed is measured in bench/bench_check.py, not here)."""
     from allocator.report.excel import write_workbook as write_report_xlsx
 
     blocks = [{"block": f"S{k}", "order": k, "pickup_hz": 49.0 - 0.2 * k, "delay_s": 0.1,
@@ -356,16 +365,12 @@ def test_workbook_speed_35040_rows(tmp_path):
     year = build_year(study)
     chk = run_check(study, year, study.current_assignment)
     assert year.n_intervals == 35040
-    t0 = time.perf_counter()
     out = write_report_xlsx(chk, tmp_path / "report.xlsx")
-    dt = time.perf_counter() - t0
-    print(f"report.xlsx, 35,040 rows: {dt:.2f} s")
-    assert dt <= 10.0, f"report.xlsx took {dt:.1f} s"
     wb = openpyxl.load_workbook(out, read_only=True)
     ws = wb["intervals"]
-    assert ws.max_row == 35041 and ws.max_column == 13
+    assert ws.max_row == 35041 and ws.max_column == 15
     last = next(ws.iter_rows(min_row=35041, max_row=35041, values_only=True))
-    assert last[2] == year.demand_mw[-1] and last[-1] == chk.share_pct[-1, -1]
+    assert last[4] == year.demand_mw[-1] and last[-1] == chk.share_pct[-1, -1]
     wb.close()
 
 
@@ -575,7 +580,7 @@ def test_html_content(case):
 def test_html_plan(plan_case):
     text = (plan_case["out"] / "report.html").read_text(encoding="utf-8")
     assert "Current allocation (before)" in text and "Planned allocation (after)" in text
-    assert "optimal" in text and "moved &lt;two&gt; feeders" in text
+    assert STATUS_WORDS["in_band"] in text and "moved &lt;two&gt; feeders" in text
     assert html.escape(MARKUP_ID) in text and MARKUP_ID not in text
     assert html.escape(FORMULA_ID) in text
     assert "field work list" in text

@@ -331,7 +331,8 @@ def plan_facts(p: dict) -> list[tuple[str, str]]:
     """The plan's key facts as (label, value with unit) pairs for people."""
     out = [("result", STATUS_WORDS.get(p.get("status", ""), str(p.get("status", "")))),
            ("scenarios held", ", ".join(p.get("scenarios", []))),
-           ("objective order", OBJECTIVE_WORDS.get(p.get("objective"), str(p.get("objective")))),
+           ("objective order", OBJECTIVE_WORDS.get(str(p.get("objective")),
+                                                   _fmt(p.get("objective")))),
            ("margin kept inside each band", f"{p.get('band_margin_pp', 0):g} pp")]
     rc, fc, lb = p.get("relays_changed"), p.get("feeders_changed"), p.get(
         "relays_changed_lower_bound")

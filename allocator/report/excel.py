@@ -354,15 +354,19 @@ def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
         r += 1
         put_text(ws, r, 1, "Plan").font = H2_FONT
         r += 1
-        pair("solver status", pt.status or "(not given)", bold=True)
-        for title, lines in (("explanation", pt.explanation), ("solver notes", pt.notes)):
+        for k, v in pt.key:
+            pair(k, v, bold=k == "result")
+        for title, lines in (("why", pt.explanation), ("planner notes", pt.notes)):
             if lines:
                 put_text(ws, r, 1, title).font = BOLD
                 r += 1
                 for line in lines:
                     put_text(ws, r, 1, line)
                     r += 1
-        for k, v in pt.key + pt.details:
+        if pt.details:
+            put_text(ws, r, 1, "planner details (plan.json)").font = BOLD
+            r += 1
+        for k, v in pt.details:
             pair(k, v)
     if previous_idx is not None:
         n_changed = int(np.sum(np.asarray(previous_idx) != check.block_idx))

@@ -285,8 +285,7 @@ def _plan(plan_info: dict | None) -> str:
     if not plan_info:
         return ""
     pt = content.plan_text(plan_info)
-    out = [f"<h3>Plan</h3><p>Solver status: <strong>{esc(pt.status or '(not given)')}"
-           "</strong></p>"]
+    out = ["<h3>Plan</h3>"]
     if pt.explanation:
         out.append("<p>Why the plan looks as it does:</p><ul>"
                    + "".join(f"<li>{esc(x)}</li>" for x in pt.explanation) + "</ul>")
