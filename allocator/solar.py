@@ -1,8 +1,10 @@
-"""Per-unit clear-sky PV output for the study site (pvlib).
+"""Per-unit clear-sky PV output for the study site (pvlib): the ``clear_sky`` scenario.
 
-The tool assumes a clear sky on every day of the year.  For under-frequency load shedding that
-is the conservative case: the more rooftop PV generates, the less net load an armed feeder
-carries, so clear sky gives the lowest armed load at every daylight interval.
+A clear sky on every day gives the most PV and so the lowest netted load on PV-rich feeders
+at every daylight interval: the hard case for a block's *minimum*.  It is not the hard case
+for a block's *maximum* — clouds raise netted demand, and blocks with little PV then gain
+share — which is why plans are also judged on a year without PV output and on weather years
+(:mod:`allocator.scenarios`).
 """
 
 from __future__ import annotations

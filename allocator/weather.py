@@ -1,7 +1,8 @@
 """Per-unit PV from a weather year (TMY3 or EPW irradiance file) on the study calendar.
 
-Clear-sky PV (:mod:`allocator.solar`) is the conservative case for armed load; a weather
-year shows what clouds do to netted demand.  This module reads an hourly irradiance file,
+Clear-sky PV (:mod:`allocator.solar`) tests a block's minimum only; a weather year shows
+what clouds do to netted demand (they raise it, and with it the share of blocks that carry
+little PV).  This module reads an hourly irradiance file,
 transposes it onto a fixed plane at the *file's* site and time, and lays the hourly values
 onto the study's intervals.  Everything here is a pure function; pvlib is imported inside
 the functions so the command line starts quickly.

@@ -108,9 +108,17 @@ def settings(priority_policy: str = "last_block") -> Settings:
                     max_changes=None, solver_time_limit_s=60.0, mip_gap=1e-4)
 
 
-def make_network(n_feeders: int, n_blocks: int, seed: int = 0
-                 ) -> tuple[Study, Year]:
-    """A synthetic (Study, Year) with every feeder unarmed in ``current_block``."""
+#: the synthetic scenarios: (load scale, PV scale, clearness) — clearness "clear" = 1 every
+#: day, "none" = no PV output, "random" = the seeded per-day clearness of the base network
+SCENARIOS = {"clear_sky": (1.0, 1.0, "clear"), "no_pv": (1.0, 0.0, "none"),
+             "weather": (1.0, 1.0, "random"), "growth": (1.05, 1.5, "clear")}
+
+
+def make_network(n_feeders: int, n_blocks: int, seed: int = 0,
+                 scenarios: tuple[str, ...] | None = None):
+    """A synthetic (Study, Year) with every feeder unarmed in ``current_block``; with
+    ``scenarios`` (names of :data:`SCENARIOS`) a (Study, tuple of Years), one per scenario,
+    of the same feeders."""
     rng = np.random.default_rng(seed * 1_000_003 + n_feeders * 7 + n_blocks)
     ts = study_intervals(YEAR, TZ, 60)
     local = ts.tz_convert(TZ)
@@ -128,6 +136,8 @@ def make_network(n_feeders: int, n_blocks: int, seed: int = 0
     blocks = scheme(n_blocks)
     names = [b.name for b in blocks]
     net = np.empty((n_feeders, n_t))
+    gross_all = np.empty((n_feeders, n_t)) if scenarios else None
+    pv_all = np.zeros(n_feeders)
     feeders = []
     # trip groups: about 4 % of feeders in groups of 2-3 consecutive feeders
     group_of = [None] * n_feeders
@@ -155,6 +165,9 @@ def make_network(n_feeders: int, n_blocks: int, seed: int = 0
         shift = int(rng.integers(-1, 2))  # feeders differ by up to an hour in timing
         gross = peak * np.roll(shapes[c], shift) * daily * hourly
         net[f] = gross - pv * pv_pu
+        if gross_all is not None:
+            gross_all[f] = gross
+            pv_all[f] = pv
         u = rng.random()
         relay = "none" if u < 0.03 else ("direction_blocked" if u < 0.18 else "standard")
         priority = "hospital" if rng.random() < 0.03 else None
@@ -177,6 +190,22 @@ def make_network(n_feeders: int, n_blocks: int, seed: int = 0
                     month_season=MONTH_SEASON.copy())
     study = Study(path=f"synthetic-{n_feeders}x{n_blocks}-seed{seed}", settings=settings(),
                   blocks=blocks, feeders=tuple(feeders), profiles=prof)
+    if scenarios:
+        del net
+        years = []
+        for name in scenarios:
+            load_s, pv_s, kind = SCENARIOS[name]
+            shape = {"clear": pv_shape(hour, doy, np.ones(n_t)), "none": np.zeros(n_t),
+                     "random": pv_pu}[kind]
+            y_net = gross_all * load_s
+            y_net -= (pv_all * pv_s)[:, None] * shape[None, :]
+            dem = y_net.sum(axis=0)
+            y_net.setflags(write=False)
+            years.append(Year(ts, TZ, 60, study.feeder_ids, y_net, dem, shape, season_idx,
+                              dtype.astype(np.int8), source="profiles", scenario=name,
+                              scenario_info={"pv": kind, "pv_scale": pv_s,
+                                             "load_scale": load_s, "year": YEAR}))
+        return study, tuple(years)
     demand = net.sum(axis=0)
     net.setflags(write=False)
     demand.setflags(write=False)

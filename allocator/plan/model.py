@@ -3,22 +3,29 @@
 Variables (in this order):
 
 * ``x[u, b]`` binary, one per *allowed* (unit, block) pair — unit u trips in block b;
-* ``z`` ≥ 0 — worst band violation relative to target over the modelled intervals;
-* ``y[b, t]`` free — block b's share of demand (pp) at modelled interval t;
-* ``e[b, r]`` ≥ 0 — absolute deviation from target at the MAD sample intervals r.
+* ``z`` ≥ 0 — worst band violation relative to target over the modelled columns;
+* ``y[b, t]`` free — block b's share of demand (pp) at modelled column t (not in the direct
+  form, see below);
+* ``e[b, r]`` ≥ 0 — absolute deviation from target at the MAD sample columns r.
 
 Rows:
 
 * each unit in at most one block: ``Σ_b x[u, b] ≤ 1``;
-* share definition: ``y[b, t] − Σ_u pp[u, t] x[u, b] = 0``;
+* share definition: ``y[b, t] − Σ_u pp[u, t] x[u, b] = off[b, t]``;
 * band (t in the band set S): ``y + target_b·z ≥ min_b`` and ``y − target_b·z ≤ max_b``
   (so ``z ≥ max(min_b − y, y − max_b, 0) / target_b``);
 * MAD (r in the sample R): ``e ≥ y − target_b`` and ``e ≥ target_b − y``;
-* optional: ``changes ≤ N``; a cap on z (later levels); a cap on the MAD (level 3); the
-  substation-share rows.
+* optional: ``changes ≤ N``; a cap on z (later levels); a cap on the MAD; caps on how many
+  units of a set are armed; the substation-share rows.
 
-Three objectives on the same rows (see :mod:`allocator.plan.solve`): ``z``; the mean of e;
-the number of changed feeders.
+The *direct form* is used when z is capped and nothing needs y (objectives ``changes`` and
+``armed`` without a deviation cap): one ranged row per (block, column),
+``min_b − target_b·z_cap − off ≤ Σ_u pp[u, t] x[u, b] ≤ max_b + target_b·z_cap − off``, with
+no y variables and no share-definition rows — the same feasible set in x with a third of the
+rows, which HiGHS solves much faster.
+
+Objectives on the same rows (see :mod:`allocator.plan.solve`): ``z``; the mean of e; the
+number of relays changed; the number of armed units of a set.
 """
 
 from __future__ import annotations
@@ -54,12 +61,14 @@ class AllocationModel:
     pair_u: np.ndarray
     pair_b: np.ndarray
     i_z: int
-    band_set: np.ndarray  # positions into Units' valid intervals
+    band_set: np.ndarray  # positions into Units' columns
     mad_set: np.ndarray
     i_e0: int
     n_e: int
     change_coef: np.ndarray  # per pair
     change_const: float
+    model_t: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+    direct: bool = False  # no y variables (see the module docstring)
 
     def x_from_option(self, option: np.ndarray, n_blocks: int) -> np.ndarray:
         return (option[self.pair_u] == self.pair_b).astype(float)
@@ -70,6 +79,117 @@ class AllocationModel:
         on = xs > 0.5
         opt[self.pair_u[on]] = self.pair_b[on]
         return opt
+
+
+class _Rows:
+    """Row triplets and bounds collected from numpy slices."""
+
+    def __init__(self):
+        self.r, self.c, self.v, self.lb, self.ub = [], [], [], [], []
+        self.n = 0
+
+    def add(self, r, c, v) -> None:
+        self.r.append(np.asarray(r, dtype=np.int64))
+        self.c.append(np.asarray(c, dtype=np.int64))
+        self.v.append(np.asarray(v, dtype=float))
+
+    def bounds(self, lb, ub) -> None:
+        lb, ub = np.atleast_1d(np.asarray(lb, float)), np.atleast_1d(np.asarray(ub, float))
+        self.lb.append(lb)
+        self.ub.append(ub)
+        self.n += lb.size
+
+    def matrix(self, n_var: int) -> sparse.csr_matrix:
+        return sparse.csr_matrix((np.concatenate(self.v), (np.concatenate(self.r),
+                                                           np.concatenate(self.c))),
+                                 shape=(self.n, n_var))
+
+
+def _block_pp(units: Units, pair_u, pair_b, b: int, model_t):
+    """Non-zeros of Σ_u pp[u, t] x[u, b] over the model columns: (pair cols, t pos, value)."""
+    cols = np.flatnonzero(pair_b == b)
+    vals = units.pp[pair_u[cols]][:, model_t]  # [pair, t]
+    pi, ti = np.nonzero(vals)
+    return cols[pi], ti, vals[pi, ti]
+
+
+def _one_block_rows(rows: _Rows, units: Units, pair_u) -> None:
+    has = np.unique(pair_u)
+    row_of_u = np.full(units.n, -1, dtype=np.int64)
+    row_of_u[has] = np.arange(has.size)
+    rows.add(rows.n + row_of_u[pair_u], np.arange(pair_u.size), np.ones(pair_u.size))
+    rows.bounds(np.full(has.size, -np.inf), np.ones(has.size))
+
+
+def _direct_band_rows(rows: _Rows, units, pair_u, pair_b, targets, lo, hi, z_cap, model_t,
+                      off) -> None:
+    """One ranged row per (block, column): the band widened by target·z_cap."""
+    nb, n_t = units.n_blocks, model_t.size
+    for b in range(nb):
+        pc, ti, v = _block_pp(units, pair_u, pair_b, b, model_t)
+        rows.add(rows.n + b * n_t + ti, pc, v)
+    lo_r = np.repeat(lo - targets * z_cap, n_t) - off
+    hi_r = np.repeat(hi + targets * z_cap, n_t) - off
+    rows.bounds(lo_r, hi_r)
+
+
+def _share_and_band_rows(rows: _Rows, units, pair_u, pair_b, targets, lo, hi, model_t,
+                         band_pos, i_z, ycol, off) -> None:
+    """y[b, t] = Σ pp x + off, then the two band rows per (block, band column) with z."""
+    nb, n_t = units.n_blocks, model_t.size
+    for b in range(nb):
+        pc, ti, v = _block_pp(units, pair_u, pair_b, b, model_t)
+        rows.add(rows.n + b * n_t + ti, pc, -v)
+        rows.add(rows.n + b * n_t + np.arange(n_t), ycol(b, np.arange(n_t)), np.ones(n_t))
+    rows.bounds(off, off.copy())
+    nbs = band_pos.size
+    for b in range(nb):
+        yc = ycol(b, band_pos)
+        rr = rows.n + np.arange(nbs)
+        rows.add(rr, yc, np.ones(nbs))
+        rows.add(rr, np.full(nbs, i_z), np.full(nbs, targets[b]))
+        rows.bounds(np.full(nbs, lo[b]), np.full(nbs, np.inf))
+        rr = rows.n + np.arange(nbs)
+        rows.add(rr, yc, np.ones(nbs))
+        rows.add(rr, np.full(nbs, i_z), np.full(nbs, -targets[b]))
+        rows.bounds(np.full(nbs, -np.inf), np.full(nbs, hi[b]))
+
+
+def _mad_rows(rows: _Rows, nb, targets, mad_pos, i_e0, ycol) -> None:
+    n_m = mad_pos.size
+    for b in range(nb):
+        yc = ycol(b, mad_pos)
+        ec = i_e0 + b * n_m + np.arange(n_m)
+        rr = rows.n + np.arange(n_m)
+        rows.add(rr, ec, np.ones(n_m))
+        rows.add(rr, yc, -np.ones(n_m))
+        rows.bounds(np.full(n_m, -targets[b]), np.full(n_m, np.inf))
+        rr = rows.n + np.arange(n_m)
+        rows.add(rr, ec, np.ones(n_m))
+        rows.add(rr, yc, np.ones(n_m))
+        rows.bounds(np.full(n_m, targets[b]), np.full(n_m, np.inf))
+
+
+def _cap_rows(rows: _Rows, units, pair_u, pair_b, change_coef, change_const, max_changes,
+              mad_cap, i_e0, n_e, armed_caps, substation_rows) -> None:
+    """changes ≤ N; mean e ≤ mad_cap; armed counts; substation shares."""
+    n_x = pair_u.size
+    if max_changes is not None:
+        rows.add(np.full(n_x, rows.n), np.arange(n_x), change_coef)
+        rows.bounds(-np.inf, max_changes - change_const)
+    if mad_cap is not None and n_e:
+        rows.add(np.full(n_e, rows.n), i_e0 + np.arange(n_e), np.full(n_e, 1.0 / n_e))
+        rows.bounds(-np.inf, mad_cap)
+    for (mask, cap) in armed_caps:
+        cols = np.flatnonzero(mask[pair_u])
+        rows.add(np.full(cols.size, rows.n), cols, np.ones(cols.size))
+        rows.bounds(-np.inf, float(cap))
+    # substation share rows: sum_u (mask_u - cap) pp[u,t] x[u,b] <= 0
+    for (b, tpos, mask, cap) in substation_rows:
+        cols = np.flatnonzero(pair_b == b)
+        coef = (mask[pair_u[cols]].astype(float) - cap) * units.pp[pair_u[cols], tpos]
+        rows.add(np.full(cols.size, rows.n), cols, coef)
+        rows.bounds(-np.inf, 0.0)
 
 
 def build_model(units: Units, targets: np.ndarray, lo: np.ndarray, hi: np.ndarray,
@@ -86,113 +206,49 @@ def build_model(units: Units, targets: np.ndarray, lo: np.ndarray, hi: np.ndarra
     ``substation_rows``: (block, column, member mask [unit], cap fraction) — the block's
     armed pp from the masked units at that column is at most ``cap`` of its total there.
     ``armed_caps``: (unit mask, cap) — at most ``cap`` of the masked units are armed.
+    ``share_offset[b, column]``: pp armed in block b by units held fixed (neighbourhoods).
     The deviation rows are built for ``"mad"`` and whenever ``mad_cap`` is given."""
     nb = units.n_blocks
     pair_u, pair_b = np.nonzero(units.allowed)
     n_x = pair_u.size
     need_mad = objective == "mad" or mad_cap is not None
-    model_t = np.union1d(band_set, mad_set if need_mad else np.array([], dtype=np.intp))
+    direct = objective in ("changes", "armed") and z_cap is not None and not need_mad
+    model_t = np.union1d(band_set, mad_set) if need_mad else np.unique(band_set)
     n_t = model_t.size
-    i_z = n_x
-    i_y0 = n_x + 1
-    n_y = nb * n_t
+    i_z, i_y0 = n_x, n_x + 1
+    n_y = 0 if direct else nb * n_t
     mad_pos = np.searchsorted(model_t, mad_set) if need_mad else np.array([], dtype=np.intp)
-    band_pos = np.searchsorted(model_t, band_set)
     n_e = nb * mad_pos.size if need_mad else 0
     i_e0 = i_y0 + n_y
     n_var = i_e0 + n_e
+    off = (np.zeros(nb * n_t) if share_offset is None
+           else np.asarray(share_offset)[:, model_t].ravel())
 
     def ycol(b, pos):
         return i_y0 + b * n_t + pos
 
-    rows_r, rows_c, rows_v, rlb, rub = [], [], [], [], []
-    r0 = 0
-
-    def add(r, c, v):
-        rows_r.append(np.asarray(r, dtype=np.int64))
-        rows_c.append(np.asarray(c, dtype=np.int64))
-        rows_v.append(np.asarray(v, dtype=float))
-
-    # each unit in at most one block
-    has = np.unique(pair_u)
-    row_of_u = np.full(units.n, -1, dtype=np.int64)
-    row_of_u[has] = np.arange(has.size)
-    add(r0 + row_of_u[pair_u], np.arange(n_x), np.ones(n_x))
-    rlb.append(np.full(has.size, -np.inf))
-    rub.append(np.ones(has.size))
-    r0 += has.size
-    # share definition rows: y[b,t] - sum_u pp[u,t] x[u,b] = 0
-    for b in range(nb):
-        cols = np.flatnonzero(pair_b == b)
-        blockvals = units.pp[pair_u[cols]][:, model_t]  # [pair, t]
-        pi, ti = np.nonzero(blockvals)
-        add(r0 + b * n_t + ti, cols[pi], -blockvals[pi, ti])
-        add(r0 + b * n_t + np.arange(n_t), ycol(b, np.arange(n_t)), np.ones(n_t))
-    # share_offset[b, t]: pp already armed in block b by units held fixed (neighbourhoods)
-    off = (np.zeros(nb * n_t) if share_offset is None
-           else np.asarray(share_offset)[:, model_t].ravel())
-    rlb.append(off)
-    rub.append(off.copy())
-    r0 += nb * n_t
-    # band rows on the band set
-    nbs = band_pos.size
-    for b in range(nb):
-        yc = ycol(b, band_pos)
-        rr = r0 + b * 2 * nbs + np.arange(nbs)
-        add(rr, yc, np.ones(nbs))
-        add(rr, np.full(nbs, i_z), np.full(nbs, targets[b]))
-        rr2 = rr + nbs
-        add(rr2, yc, np.ones(nbs))
-        add(rr2, np.full(nbs, i_z), np.full(nbs, -targets[b]))
-        rlb += [np.full(nbs, lo[b]), np.full(nbs, -np.inf)]
-        rub += [np.full(nbs, np.inf), np.full(nbs, hi[b])]
-    r0 += 2 * nb * nbs
-    # MAD rows
-    n_m = mad_pos.size
+    rows = _Rows()
+    _one_block_rows(rows, units, pair_u)
+    if direct:
+        _direct_band_rows(rows, units, pair_u, pair_b, targets, lo, hi, z_cap, model_t, off)
+    else:
+        _share_and_band_rows(rows, units, pair_u, pair_b, targets, lo, hi, model_t,
+                             np.searchsorted(model_t, band_set), i_z, ycol, off)
     if need_mad:
-        for b in range(nb):
-            yc = ycol(b, mad_pos)
-            ec = i_e0 + b * n_m + np.arange(n_m)
-            rr = r0 + b * 2 * n_m + np.arange(n_m)
-            add(rr, ec, np.ones(n_m))
-            add(rr, yc, -np.ones(n_m))
-            add(rr + n_m, ec, np.ones(n_m))
-            add(rr + n_m, yc, np.ones(n_m))
-            rlb += [np.full(n_m, -targets[b]), np.full(n_m, targets[b])]
-            rub += [np.full(n_m, np.inf), np.full(n_m, np.inf)]
-        r0 += 2 * nb * n_m
-    # changes: sum_pairs x (cost[u,b] - cost[u,B]) + sum_u cost[u,B]
+        _mad_rows(rows, nb, targets, mad_pos, i_e0, ycol)
     change_coef = units.change_cost[pair_u, pair_b] - units.change_cost[pair_u, nb]
     change_const = float(units.change_cost[:, nb].sum()) + float(change_offset)
-    if max_changes is not None:
-        add(np.full(n_x, r0), np.arange(n_x), change_coef)
-        rlb.append(np.array([-np.inf]))
-        rub.append(np.array([max_changes - change_const]))
-        r0 += 1
-    if mad_cap is not None and need_mad and n_e:
-        add(np.full(n_e, r0), i_e0 + np.arange(n_e), np.full(n_e, 1.0 / n_e))
-        rlb.append(np.array([-np.inf]))
-        rub.append(np.array([mad_cap]))
-        r0 += 1
-    # armed-count caps: sum over masked units of sum_b x[u,b] <= cap
-    for (mask, cap) in armed_caps:
-        cols = np.flatnonzero(mask[pair_u])
-        add(np.full(cols.size, r0), cols, np.ones(cols.size))
-        rlb.append(np.array([-np.inf]))
-        rub.append(np.array([float(cap)]))
-        r0 += 1
-    # substation share rows: sum_u (mask_u - cap) pp[u,t] x[u,b] <= 0
-    for (b, tpos, mask, cap) in substation_rows:
-        cols = np.flatnonzero(pair_b == b)
-        coef = (mask[pair_u[cols]].astype(float) - cap) * units.pp[pair_u[cols], tpos]
-        add(np.full(cols.size, r0), cols, coef)
-        rlb.append(np.array([-np.inf]))
-        rub.append(np.array([0.0]))
-        r0 += 1
+    _cap_rows(rows, units, pair_u, pair_b, change_coef, change_const, max_changes, mad_cap,
+              i_e0, n_e, armed_caps, substation_rows)
+    arrays = _arrays(rows, n_var, n_x, i_z, i_e0, n_e, z_cap, objective, change_coef,
+                     change_const, armed_cost, pair_u)
+    return AllocationModel(arrays, pair_u, pair_b, i_z, band_set, mad_set, i_e0, n_e,
+                           change_coef, change_const, model_t, direct)
 
-    A = sparse.csr_matrix((np.concatenate(rows_v), (np.concatenate(rows_r),
-                                                     np.concatenate(rows_c))),
-                          shape=(r0, n_var))
+
+def _arrays(rows: _Rows, n_var, n_x, i_z, i_e0, n_e, z_cap, objective, change_coef,
+            change_const, armed_cost, pair_u) -> MilpArrays:
+    """Variable bounds, integrality and the objective vector."""
     lb = np.full(n_var, -np.inf)
     ub = np.full(n_var, np.inf)
     lb[:n_x], ub[:n_x] = 0.0, 1.0
@@ -215,10 +271,8 @@ def build_model(units: Units, targets: np.ndarray, lo: np.ndarray, hi: np.ndarra
         c[:n_x] = np.asarray(armed_cost, dtype=float)[pair_u]
     else:  # pragma: no cover
         raise ValueError(objective)
-    arrays = MilpArrays(c, A, np.concatenate(rlb), np.concatenate(rub), lb, ub, integral,
-                        offset)
-    return AllocationModel(arrays, pair_u, pair_b, i_z, band_set, mad_set, i_e0, n_e,
-                           change_coef, change_const)
+    return MilpArrays(c, rows.matrix(n_var), np.concatenate(rows.lb),
+                      np.concatenate(rows.ub), lb, ub, integral, offset)
 
 
 def start_vector(model: AllocationModel, units: Units, option: np.ndarray,
@@ -231,24 +285,23 @@ def start_vector(model: AllocationModel, units: Units, option: np.ndarray,
     nb = units.n_blocks
     n_x = model.pair_u.size
     v[:n_x] = model.x_from_option(option, nb)
-    # the share-definition rows hold y; recover y = sum pp x via the matrix
-    share = np.zeros((nb, units.pp.shape[1])) if share_offset is None else \
-        np.array(share_offset, dtype=float)
+    model_t = model.model_t
+    share = np.zeros((nb, model_t.size)) if share_offset is None else \
+        np.array(np.asarray(share_offset)[:, model_t], dtype=float)
     for b in range(nb):
         sel = option == b
         if sel.any():
-            share[b] += units.pp[sel].sum(axis=0)
-    need_mad = model.n_e > 0
-    model_t = np.union1d(model.band_set, model.mad_set if need_mad else
-                         np.array([], dtype=np.intp))
-    n_t = model_t.size
-    i_y0 = model.i_z + 1
-    for b in range(nb):
-        v[i_y0 + b * n_t: i_y0 + (b + 1) * n_t] = share[b, model_t]
-    sb = share[:, model.band_set]
+            share[b] += units.pp[sel][:, model_t].sum(axis=0)
+    band_pos = np.searchsorted(model_t, model.band_set)
+    sb = share[:, band_pos]
     viol = np.maximum(np.maximum(lo[:, None] - sb, sb - hi[:, None]), 0.0) / targets[:, None]
     v[model.i_z] = float(viol.max(initial=0.0))
-    if need_mad:
-        sm = share[:, model.mad_set]
+    if model.direct:
+        v[model.i_z] = 0.0
+        return v
+    i_y0 = model.i_z + 1
+    v[i_y0:i_y0 + nb * model_t.size] = share.ravel()
+    if model.n_e > 0:
+        sm = share[:, np.searchsorted(model_t, model.mad_set)]
         v[model.i_e0:model.i_e0 + model.n_e] = np.abs(sm - targets[:, None]).ravel()
     return v

@@ -47,7 +47,9 @@ from .solvers import solve, solver_version
 from .units import Units, build_units, substation_excess
 
 Z_TOL = 1e-7  # absolute tolerance on the relative violation z when capping later levels
-ADD_PER_BLOCK = 6  # columns added per block and round
+ADD_PER_BLOCK = 6  # columns added per block and round (level 1)
+ADD_PER_BLOCK_CAPPED = 24  # ... in the levels that hold z ≤ z*: a violated plan is useless
+EXTREMES_PER_BLOCK = 12  # lowest and highest columns of each block seeded into level 2
 MAX_ROUNDS = 40
 ROUND_SHARE = 0.15  # a level-1 round may use at most this share of the time limit
 ROUND_MIN_S = 5.0
@@ -160,7 +162,12 @@ class _Ctx:
 
 def _level(ctx: _Ctx, level: str, band_set, mad_set, incumbent, *, deadline, z_cap=None,
            mad_cap=None, armed_cost=None, round_share=ROUND_SHARE):
-    """Solve one level with interval rounds.  Returns (option, info, band_set)."""
+    """Solve one level with interval rounds.  Returns (option, info, band_set).
+
+    Level 1 warm-starts each round from the last round's plan (any plan is feasible there,
+    z is free).  The capped levels warm-start from the best plan that holds z ≤ z* on every
+    column (feasible for every round's model), and add more columns per round, since a plan
+    that breaks the cap anywhere cannot be used."""
     units, band = ctx.units, ctx.band
     name = LEVEL_NAMES[level]
     info = {"level": name, "method": "MILP with interval rounds", "rounds": 0,
@@ -181,7 +188,8 @@ def _level(ctx: _Ctx, level: str, band_set, mad_set, incumbent, *, deadline, z_c
                             z_cap=z_cap, mad_cap=mad_cap, max_changes=ctx.max_changes,
                             substation_rows=sub_rows, armed_caps=ctx.armed_caps,
                             armed_cost=armed_cost)
-        start = start_vector(model, units, option, band.target, band.lo, band.hi)
+        warm = option if level == "worst" else best_opt
+        start = start_vector(model, units, warm, band.target, band.lo, band.hi)
         cap = max(ROUND_MIN_S, round_share * ctx.time_limit_s)
         out = solve(model.arrays, ctx.solver, time_limit_s=min(remaining, cap),
                     mip_gap=ctx.gap, start=start, seed=ctx.seed)
@@ -198,7 +206,8 @@ def _level(ctx: _Ctx, level: str, band_set, mad_set, incumbent, *, deadline, z_c
         if ctx.key(option, level) < best_key:
             best_opt, best_key = option.copy(), ctx.key(option, level)
         z_ref = float(out.x[model.i_z]) if level == "worst" else z_cap
-        new = _add_worst(units, option, band, band_set, z_ref)
+        new = _add_worst(units, option, band, band_set, z_ref,
+                         ADD_PER_BLOCK if level == "worst" else ADD_PER_BLOCK_CAPPED)
         ctx.prog(level=name, round=rnd + 1, intervals=int(band_set.size),
                  worst=evaluate(units, option, band)[0], status=out.status)
         more = substation_excess(units, option, ctx.sub_cap)
@@ -307,10 +316,25 @@ def _lns(ctx: _Ctx, level, opt, band_set, mad_set, z_cap, deadline, max_changes,
         progress=ctx.prog, sub_cap_pct=ctx.sub_cap, armed_caps=ctx.armed_caps)
 
 
+def _extremes(units: Units, options, k: int = EXTREMES_PER_BLOCK) -> np.ndarray:
+    """Each block's k lowest- and k highest-share columns under each of ``options``: where
+    the band's edges are likely to bind for plans near them."""
+    out = []
+    for opt in options:
+        s = shares(units, np.asarray(opt))
+        kk = min(k, s.shape[1])
+        if kk == 0:
+            continue
+        out += [np.argpartition(s, kk - 1, axis=1)[:, :kk].ravel(),
+                np.argpartition(-s, kk - 1, axis=1)[:, :kk].ravel()]
+    return np.unique(np.concatenate(out)) if out else np.array([], dtype=np.intp)
+
+
 def _phase_fewest_changes(ctx: _Ctx, opt1, band_set, mad_set, z_cap):
     """Level 2: fewest relays changed (MILP rounds, bound valid for every scenario);
     level 3: closest to target with that many changes (neighbourhood search)."""
     start = _reverted(ctx, opt1, z_cap, np.inf, ctx.at("level2"))
+    band_set = np.union1d(band_set, _extremes(ctx.units, (ctx.units.current, start)))
     opt2, info2, band_set = _level(ctx, "changes", band_set, np.array([], np.intp), start,
                                    deadline=ctx.at("level2"), z_cap=z_cap, round_share=0.35)
     n2 = ctx.units.changes(opt2)
@@ -443,11 +467,22 @@ def _outcome(ctx, years, objective, margin, final, levels, info1, h_opt, band_se
                            f"in block(s) {', '.join(names)} at their lowest-share interval; "
                            "more time (--time-limit) or a looser cap may be needed.")
     elapsed = time.perf_counter() - ctx.t_start
+    capped = ctx.sub_cap is not None
     for info in levels:
+        if capped:
+            # the substation rule binds at each plan's own weakest interval; the planner
+            # holds it by rows at the weakest intervals it has met, which may exclude
+            # plans that keep the rule, so no bound or optimality is claimed with it
+            info["proven_optimal"], info["bound"] = False, None
         info["proven_optimal"] = bool(info.get("proven_optimal")) and not sub_left
         info["claim"] = _claim(info, elapsed, "relay changes")
-    lb = info1["bound"] if info1["bound"] is not None else (
+    lb = None if capped else info1["bound"] if info1["bound"] is not None else (
         info1["objective"] if info1["status"] == "optimal" else None)
+    if capped:
+        explanation.append(
+            f"max_substation_share_pct = {ctx.sub_cap:g} % is held by rows at the weakest "
+            "intervals the planner met; a plan that keeps the rule at its own weakest "
+            "interval can be missed, so no level is claimed optimal and no bound is given.")
     from .explain import explain_after, explain_changes, explain_exporting
 
     explanation += explain_after(study, years, units, band, final, kf, lb, ctx.max_changes,

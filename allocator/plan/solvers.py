@@ -219,6 +219,10 @@ def _solve_cbc(a: MilpArrays, tl, gap, start, seed, threads, node_limit=None
     prob.solve(cmd)
     st = pulp.LpStatus[prob.status]
     x = np.array([v.varValue if v.varValue is not None else np.nan for v in vs])
+    # a variable in no row and not in the objective is dropped by PuLP (no value): any value
+    # in its bounds is optimal, take the one nearest 0
+    unused = (np.diff(a.A.tocsc().indptr) == 0) & (a.c == 0) & np.isnan(x)
+    x[unused] = np.clip(0.0, a.lb[unused], a.ub[unused])
     if st == "Optimal":
         status = "optimal"
         if prob.sol_status == pulp.LpSolutionIntegerFeasible:
