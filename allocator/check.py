@@ -310,41 +310,55 @@ def low_load_view(check: Check, fraction: float = 0.01) -> pd.DataFrame:
     return pd.DataFrame(cols)
 
 
+EXPORT_COLUMNS = ["feeder_id", "substation", "block", "relay", "exporting_intervals",
+                  "exporting_hours", "most_export_mw", "most_export_local_time",
+                  "negative_contribution_mwh"]
+#: feeders per chunk in the per-feeder views (bounds the temporaries)
+_VIEW_CHUNK = 256
+
+
+def _export_stats(net: np.ndarray, std: np.ndarray, h: float):
+    """Per feeder row of ``net``: exporting intervals, the interval of most export, the
+    largest export MW and (standard relays) the energy exported, MWh."""
+    neg = np.minimum(net, 0.0)
+    n_exp = (net < 0).sum(axis=1)
+    i_min = np.argmin(net, axis=1)
+    most = -net[np.arange(net.shape[0]), i_min]
+    neg_mwh = np.where(std, -neg.sum(axis=1) * h, 0.0)
+    return n_exp, i_min, most, neg_mwh
+
+
 def exporting_feeders(check: Check) -> pd.DataFrame:
     """Armed feeders that export at some interval: how often, how much, when worst.
 
     For ``standard`` relays the export is a negative contribution to the block; for
     ``direction_blocked`` relays the feeder is simply not tripped while exporting (its
-    contribution is 0), reported with ``negative_contribution_mwh`` = 0."""
+    contribution is 0), reported with ``negative_contribution_mwh`` = 0.  Computed in
+    chunks of feeders (no copy of the whole armed net load)."""
     st = check.study
     y = check.year
     armed = np.flatnonzero(check.block_idx >= 0)
-    if armed.size == 0:
-        return pd.DataFrame(columns=["feeder_id"])
-    net = y.net_mw[armed]
-    exp = net < 0
-    has = exp.any(axis=1)
-    rows = armed[has]
+    parts = []
+    for a in range(0, armed.size, _VIEW_CHUNK):
+        rows = armed[a:a + _VIEW_CHUNK]
+        net = y.net_mw[rows]
+        stats = _export_stats(net, st.relay_code[rows] == RELAY_STANDARD, y.interval_h)
+        keep = stats[0] > 0
+        parts.append((rows[keep],) + tuple(v[keep] for v in stats))
+    rows = np.concatenate([p[0] for p in parts]) if parts else np.array([], dtype=np.intp)
     if rows.size == 0:
-        return pd.DataFrame(columns=["feeder_id", "substation", "block", "relay",
-                                     "exporting_intervals", "exporting_hours",
-                                     "most_export_mw", "most_export_local_time",
-                                     "negative_contribution_mwh"])
-    n_sub = net[has]
-    i_min = np.argmin(n_sub, axis=1)
-    std_mask = st.relay_code[rows] == RELAY_STANDARD
-    neg_mwh = np.where(std_mask, np.where(n_sub < 0, n_sub, 0.0).sum(axis=1) * y.interval_h,
-                       0.0)
+        return pd.DataFrame(columns=EXPORT_COLUMNS)
+    n_exp, i_min, most, neg_mwh = (np.concatenate([p[k] for p in parts]) for k in range(1, 5))
     df = pd.DataFrame({
         "feeder_id": [st.feeder_ids[i] for i in rows],
         "substation": [st.feeders[i].substation for i in rows],
         "block": [st.block_names[check.block_idx[i]] for i in rows],
         "relay": [st.feeders[i].relay for i in rows],
-        "exporting_intervals": exp[has].sum(axis=1),
-        "exporting_hours": exp[has].sum(axis=1) * y.interval_h,
-        "most_export_mw": -n_sub[np.arange(rows.size), i_min],
+        "exporting_intervals": n_exp,
+        "exporting_hours": n_exp * y.interval_h,
+        "most_export_mw": most,
         "most_export_local_time": iso_local(y.local_times[i_min]),
-        "negative_contribution_mwh": -neg_mwh,
+        "negative_contribution_mwh": neg_mwh,
     })
     return df.sort_values(["negative_contribution_mwh", "feeder_id"],
                           ascending=[False, True]).reset_index(drop=True)
@@ -360,14 +374,16 @@ def by_substation(check: Check) -> pd.DataFrame:
     if armed.size == 0:
         return pd.DataFrame(columns=["substation", "zone", "block", "feeders", "customers",
                                      "mean_armed_mw", "armed_mw_at_block_min"])
-    c = contribution_mw(y.net_mw[armed], st.relay_code[armed])
-    mean_c = c[:, check.valid].mean(axis=1) if check.valid.any() else np.zeros(armed.size)
+    t_min = np.array([int(np.argmin(np.where(check.valid, check.share_pct[j], np.inf)))
+                      for j in range(len(st.blocks))])
+    mean_c = np.zeros(armed.size)
     at_min = np.empty(armed.size)
-    for j in range(len(st.blocks)):
-        sj = np.where(check.valid, check.share_pct[j], np.inf)
-        t = int(np.argmin(sj))
-        sel = check.block_idx[armed] == j
-        at_min[sel] = c[sel, t]
+    for a in range(0, armed.size, _VIEW_CHUNK):  # chunks of feeders: bounded temporaries
+        rows = armed[a:a + _VIEW_CHUNK]
+        c = contribution_mw(y.net_mw[rows], st.relay_code[rows])
+        if check.valid.any():
+            mean_c[a:a + rows.size] = c[:, check.valid].mean(axis=1)
+        at_min[a:a + rows.size] = c[np.arange(rows.size), t_min[check.block_idx[rows]]]
     for k, i in enumerate(armed):
         f = st.feeders[i]
         contrib_rows.append((f.substation, f.zone or "", st.block_names[check.block_idx[i]],

@@ -99,9 +99,9 @@ def scheme(n_blocks: int) -> tuple[Block, ...]:
                        max_pct=target + 2.5) for i in range(n_blocks))
 
 
-def settings(priority_policy: str = "last_block") -> Settings:
+def settings(priority_policy: str = "last_block", interval_minutes: int = 60) -> Settings:
     return Settings(utility="Synthetic Netz", year=YEAR, timezone=TZ, nominal_hz=50.0,
-                    interval_minutes=60, latitude_deg=50.0, longitude_deg=10.0,
+                    interval_minutes=interval_minutes, latitude_deg=50.0, longitude_deg=10.0,
                     holiday_country=None, holiday_subdivision=None, demand_basis="feeders",
                     pv_derate=1.0, priority_policy=priority_policy,
                     compliance_rule="every_interval", compliance_percentile=None,
@@ -115,14 +115,17 @@ SCENARIOS = {"clear_sky": (1.0, 1.0, "clear"), "no_pv": (1.0, 0.0, "none"),
 
 
 def make_network(n_feeders: int, n_blocks: int, seed: int = 0,
-                 scenarios: tuple[str, ...] | None = None):
+                 scenarios: tuple[str, ...] | None = None, interval_minutes: int = 60):
     """A synthetic (Study, Year) with every feeder unarmed in ``current_block``; with
     ``scenarios`` (names of :data:`SCENARIOS`) a (Study, tuple of Years), one per scenario,
-    of the same feeders."""
+    of the same feeders.  ``interval_minutes`` 60 (default), 30, 15, 10 or 5."""
     rng = np.random.default_rng(seed * 1_000_003 + n_feeders * 7 + n_blocks)
-    ts = study_intervals(YEAR, TZ, 60)
+    iv = interval_minutes
+    ts = study_intervals(YEAR, TZ, iv)
     local = ts.tz_convert(TZ)
-    hour = local.hour.to_numpy().astype(float)
+    # shapes take the hour with +0.5 for the middle of an hourly interval; shift so that
+    # hour + 0.5 is the middle of each interval of any length
+    hour = (local.hour + local.minute / 60.0).to_numpy() + iv / 120.0 - 0.5
     doy = local.dayofyear.to_numpy().astype(float)
     dtype = day_type_index(local, set())
     season_idx = MONTH_SEASON[local.month.to_numpy() - 1]
@@ -162,7 +165,7 @@ def make_network(n_feeders: int, n_blocks: int, seed: int = 0,
         # per-feeder noise: slow (daily level) and fast (hourly) multiplicative parts
         daily = 1.0 + 0.06 * rng.standard_normal(366)[days]
         hourly = 1.0 + 0.04 * rng.standard_normal(n_t)
-        shift = int(rng.integers(-1, 2))  # feeders differ by up to an hour in timing
+        shift = int(rng.integers(-1, 2)) * (60 // iv)  # up to an hour apart in timing
         gross = peak * np.roll(shapes[c], shift) * daily * hourly
         net[f] = gross - pv * pv_pu
         if gross_all is not None:
@@ -188,7 +191,8 @@ def make_network(n_feeders: int, n_blocks: int, seed: int = 0,
     prof = Profiles(names=CLASSES, seasons=SEASONS,
                     values_pu=np.zeros((len(CLASSES), len(SEASONS), len(DAY_TYPES), 1440)),
                     month_season=MONTH_SEASON.copy())
-    study = Study(path=f"synthetic-{n_feeders}x{n_blocks}-seed{seed}", settings=settings(),
+    study = Study(path=f"synthetic-{n_feeders}x{n_blocks}-seed{seed}",
+                  settings=settings(interval_minutes=iv),
                   blocks=blocks, feeders=tuple(feeders), profiles=prof)
     if scenarios:
         del net
@@ -201,7 +205,7 @@ def make_network(n_feeders: int, n_blocks: int, seed: int = 0,
             y_net -= (pv_all * pv_s)[:, None] * shape[None, :]
             dem = y_net.sum(axis=0)
             y_net.setflags(write=False)
-            years.append(Year(ts, TZ, 60, study.feeder_ids, y_net, dem, shape, season_idx,
+            years.append(Year(ts, TZ, iv, study.feeder_ids, y_net, dem, shape, season_idx,
                               dtype.astype(np.int8), source="profiles", scenario=name,
                               scenario_info={"pv": kind, "pv_scale": pv_s,
                                              "load_scale": load_s, "year": YEAR}))
@@ -209,7 +213,7 @@ def make_network(n_feeders: int, n_blocks: int, seed: int = 0,
     demand = net.sum(axis=0)
     net.setflags(write=False)
     demand.setflags(write=False)
-    year = Year(ts, TZ, 60, study.feeder_ids, net, demand, pv_pu, season_idx,
+    year = Year(ts, TZ, iv, study.feeder_ids, net, demand, pv_pu, season_idx,
                 dtype.astype(np.int8), source="profiles",
                 notes=("synthetic benchmark network (invented data)",))
     return study, year

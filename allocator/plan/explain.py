@@ -9,7 +9,7 @@ import numpy as np
 from ..domain import Study
 from ..timefmt import iso_local
 from .heuristic import Band, shares, violation_rel
-from .units import Units
+from .units import Units, weighted_rows
 
 
 def _when(years, units: Units, pos: int) -> str:
@@ -17,6 +17,16 @@ def _when(years, units: Units, pos: int) -> str:
     k = 0 if units.col_scenario is None else int(units.col_scenario[pos])
     y = years[k]
     return f"{y.scenario} {iso_local(y.local_times[units.valid_index[pos]])}"
+
+
+def _positive_rows(pp: np.ndarray, weights: np.ndarray, slab: int = 4096) -> np.ndarray:
+    """``weights @ max(pp, 0)`` over slabs of columns (no full-size temporary), in pp's own
+    precision (these figures only word the explanation)."""
+    out = np.empty((weights.shape[0], pp.shape[1]))
+    w = weights.astype(pp.dtype)
+    for c0 in range(0, pp.shape[1], slab):
+        out[:, c0:c0 + slab] = w @ np.maximum(pp[:, c0:c0 + slab], 0)
+    return out
 
 
 def explain_before(study: Study, years, units: Units, band: Band) -> list[str]:
@@ -29,9 +39,10 @@ def explain_before(study: Study, years, units: Units, band: Band) -> list[str]:
     out: list[str] = []
     if units.pp.shape[1] == 0:
         return ["no interval with positive demand: nothing to plan against"]
-    pos = np.maximum(units.pp, 0.0)
     armable = units.allowed.any(axis=1)
-    total = pos[armable].sum(axis=0)
+    w = np.vstack([armable[None, :], units.allowed.T]).astype(float)
+    caps = _positive_rows(units.pp, w)  # [1 + block, column]
+    total = caps[0]
     need = float(band.lo.sum())
     t = int(np.argmin(total))
     if total[t] < need - 1e-9:
@@ -40,7 +51,7 @@ def explain_before(study: Study, years, units: Units, band: Band) -> list[str]:
                    f"blocks' minima add to {need:.1f} %: no allocation can keep every block "
                    "in band there.")
     for b, blk in enumerate(study.blocks):
-        cap = pos[units.allowed[:, b]].sum(axis=0)
+        cap = caps[1 + b]
         tb = int(np.argmin(cap))
         if cap[tb] < band.lo[b] - 1e-9:
             out.append(f"Block {blk.name}: the feeders that may be armed in it carry at most "
@@ -92,6 +103,9 @@ def explain_changes(levels: list[dict], changes: float) -> list[str]:
         if info.get("proven_optimal"):
             return [f"{n} relay changes is the fewest that holds this result in every "
                     "scenario (proven by the solver's bound)."]
+        if need <= 0:
+            return [f"This plan makes {n} relay changes; the solver found no useful bound on "
+                    "how few would do (a longer --time-limit may give one)."]
         return [f"At least {need} relay changes are needed to hold this result in every "
                 f"scenario; this plan makes {n}."]
     return []

@@ -17,9 +17,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .units import Units
+from .units import Units, weighted_rows
 
 W_WORST, W_VIOL, W_MAD, W_CHANGE = 1e4, 1e2, 1.0, 1e-4
+#: score weights (worst, mean violation, deviation, changes): closest to target first, or
+#: fewest changes first (one relay change weighs as much as a 1e-4 worst violation)
+WEIGHTS = {"mad": (W_WORST, W_VIOL, W_MAD, W_CHANGE), "changes": (1e4, 1e2, 1e-3, 1.0)}
 
 
 @dataclass(frozen=True)
@@ -33,14 +36,60 @@ class Band:
         return np.where(self.target > 0, self.target, 1.0)
 
 
-def shares(units: Units, option: np.ndarray, cols: np.ndarray | None = None) -> np.ndarray:
-    """``[block, interval]`` shares (pp) of a unit assignment on ``cols`` (default all)."""
+#: plans kept in a Units' share cache; a plan within a quarter of the units of a cached one
+#: is evaluated by updating that one's shares with the units that differ
+SHARE_CACHE_SIZE = 4
+SHARE_CACHE_MAX_STEPS = 64  # incremental updates before a fresh product (bounds drift)
+
+
+def _onehot(units: Units, option: np.ndarray) -> np.ndarray:
     nb = units.n_blocks
-    pp = units.pp if cols is None else units.pp[:, cols]
     onehot = np.zeros((nb, units.n))
     armed = option < nb
     onehot[option[armed], np.flatnonzero(armed)] = 1.0
-    return onehot @ pp
+    return onehot
+
+
+def _updated(units: Units, s: np.ndarray, old: np.ndarray, new: np.ndarray) -> np.ndarray:
+    """Shares of ``new`` from those of ``old``: each differing unit's row leaves its old
+    block and joins its new one (float64 sums of the few rows that move)."""
+    nb = units.n_blocks
+    out = s.copy()
+    diff = np.flatnonzero(old != new)
+    rows = units.pp[diff].astype(np.float64)
+    for b in range(nb):
+        leave, join = old[diff] == b, new[diff] == b
+        if leave.any():
+            out[b] -= rows[leave].sum(axis=0)
+        if join.any():
+            out[b] += rows[join].sum(axis=0)
+    return out
+
+
+def shares(units: Units, option: np.ndarray, cols: np.ndarray | None = None) -> np.ndarray:
+    """``[block, column]`` shares (pp) of a unit assignment on ``cols`` (default all).
+
+    Full-width results are cached per ``units``: a plan close to a recent one (most
+    evaluations in the searches are) costs only the rows of the units that differ."""
+    option = np.asarray(option)
+    if cols is not None:
+        return weighted_rows(units.pp, _onehot(units, option), cols)
+    cache = units.share_cache
+    best = None
+    for k, (opt, s, steps) in enumerate(cache):
+        d = int(np.count_nonzero(opt != option))
+        if d == 0:
+            return s.copy()
+        if d <= units.n // 4 and steps < SHARE_CACHE_MAX_STEPS and (best is None or d < best[0]):
+            best = (d, k)
+    if best is None:
+        s, steps = weighted_rows(units.pp, _onehot(units, option)), 0
+    else:
+        opt, s0, steps = cache[best[1]]
+        s, steps = _updated(units, s0, opt, option), steps + 1
+    cache.insert(0, (option.copy(), s, steps))
+    del cache[SHARE_CACHE_SIZE:]
+    return s.copy()
 
 
 def violation_rel(s: np.ndarray, band: Band) -> np.ndarray:
@@ -68,13 +117,15 @@ def _row_terms(s: np.ndarray, band_rows: Band, idx: np.ndarray):
                                            ).mean(axis=1)
 
 
-def _total(worst_rows, viol_rows, mad_rows, changes, nb):
-    return (W_WORST * worst_rows.max(axis=-1) + W_VIOL * viol_rows.sum(axis=-1) / nb
-            + W_MAD * mad_rows.sum(axis=-1) / nb + W_CHANGE * changes)
+def _total(worst_rows, viol_rows, mad_rows, changes, nb, w=WEIGHTS["mad"]):
+    return (w[0] * worst_rows.max(axis=-1) + w[1] * viol_rows.sum(axis=-1) / nb
+            + w[2] * mad_rows.sum(axis=-1) / nb + w[3] * changes)
 
 
-def greedy(units: Units, band: Band, cols: np.ndarray, order: np.ndarray) -> np.ndarray:
-    """Add units one at a time (in ``order``) to the option that lowers the score most."""
+def greedy(units: Units, band: Band, cols: np.ndarray, order: np.ndarray,
+           deadline: float = float("inf")) -> np.ndarray:
+    """Add units one at a time (in ``order``) to the option that lowers the score most
+    (units not reached by the deadline stay unarmed)."""
     nb = units.n_blocks
     option = np.full(units.n, nb, dtype=np.intp)
     s = np.zeros((nb, cols.size))
@@ -82,6 +133,8 @@ def greedy(units: Units, band: Band, cols: np.ndarray, order: np.ndarray) -> np.
     w, v, m = _row_terms(s, band, all_b)
     changes = float(units.change_cost[:, nb].sum())
     for u in order:
+        if time.perf_counter() > deadline:
+            break
         allowed = np.flatnonzero(units.allowed[u])
         if allowed.size == 0:
             continue
@@ -107,7 +160,7 @@ def greedy(units: Units, band: Band, cols: np.ndarray, order: np.ndarray) -> np.
 
 def improve(units: Units, band: Band, cols: np.ndarray, option: np.ndarray,
             rng: np.random.Generator, deadline: float, max_sweeps: int = 50,
-            max_changes: int | None = None) -> np.ndarray:
+            max_changes: int | None = None, weights=WEIGHTS["mad"]) -> np.ndarray:
     """Unit-by-unit best-option sweeps on ``cols`` until no unit can improve the score."""
     nb = units.n_blocks
     option = option.copy()
@@ -124,7 +177,7 @@ def improve(units: Units, band: Band, cols: np.ndarray, option: np.ndarray,
                 return option
             p_opt = int(option[u])
             pu = units.pp[u, cols]
-            cur = _total(w, v, m, changes, nb)
+            cur = _total(w, v, m, changes, nb, weights)
             # rows after removing u from its block
             if p_opt < nb:
                 s_p = s[p_opt] - pu
@@ -144,7 +197,7 @@ def improve(units: Units, band: Band, cols: np.ndarray, option: np.ndarray,
                 dc = units.change_cost[u, q] - units.change_cost[u, p_opt]
                 if max_changes is not None and changes + dc > max_changes + 1e-9:
                     continue
-                sc = _total(ww, vv, mm, changes + dc, nb)
+                sc = _total(ww, vv, mm, changes + dc, nb, weights)
                 if sc < best - 1e-12:
                     best, best_q, best_rows = sc, q, (ww, vv, mm, dc)
             if best_q is not None:
@@ -186,37 +239,48 @@ def systematic_sample(n_intervals: int, n_sample: int, step_hint: int = 13) -> n
 
 def heuristic_plan(units: Units, band: Band, seed: int, time_budget_s: float,
                    max_changes: int | None = None, n_work: int = 400,
-                   start: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Greedy + sweeps with a growing working set.  Returns (option, working set)."""
+                   start: np.ndarray | None = None, prefer: str = "mad"
+                   ) -> tuple[np.ndarray, np.ndarray]:
+    """Greedy + sweeps with a growing working set.  Returns (option, working set).
+
+    ``prefer`` "changes" (the fewest-changes order) starts from the current allocation,
+    scores a relay change above the deviation, and ranks the candidates by (worst, changes,
+    deviation); "mad" keeps the closest-to-target order."""
     t_end = time.perf_counter() + time_budget_s
     rng = np.random.default_rng(seed)
     n_t = units.pp.shape[1]
     cols = systematic_sample(n_t, n_work)
     # extremes: the intervals where the armable total is lowest and highest
     armable = units.allowed.any(axis=1)
-    tot = units.pp[armable].sum(axis=0)
+    tot = weighted_rows(units.pp, armable[None, :].astype(float))[0]
     cols = np.union1d(cols, np.argsort(tot)[:20])
     order = np.argsort(-units.pp[:, cols].mean(axis=1), kind="stable")
-    candidates = []
+    weights = WEIGHTS[prefer]
     cur = least_change_plan(units)
-    if start is not None:
-        candidates.append(start.copy())
+    candidates = [] if start is None else [lambda: start.copy()]
+    if prefer == "changes":
+        candidates.append(lambda: cur)
     if max_changes is None:
-        candidates.append(greedy(units, band, cols, order))
-    candidates.append(cur)
+        candidates.append(lambda: greedy(units, band, cols, order, t_end))
+    if prefer != "changes":
+        candidates.append(lambda: cur)
+    rank = (lambda k: (round(k[0], 9), k[2], k[1])) if prefer == "changes" else None
     best, best_key = None, None
-    for opt in candidates:
-        opt = _repair(units, opt, max_changes)
+    for i, make in enumerate(candidates):
+        # each candidate gets an equal part of what is left, so every one is tried
+        share_end = time.perf_counter() + (t_end - time.perf_counter()) / (len(candidates) - i)
+        opt = _repair(units, make(), max_changes)
         for _ in range(6):
-            opt = improve(units, band, cols, opt, rng, t_end, max_changes=max_changes)
-            cols = np.union1d(cols, worst_intervals(units, opt, band, 8))
-            if time.perf_counter() > t_end:
+            opt = improve(units, band, cols, opt, rng, share_end, max_changes=max_changes,
+                          weights=weights)
+            if time.perf_counter() > share_end:
                 break
+            cols = np.union1d(cols, worst_intervals(units, opt, band, 8))
         key = evaluate(units, opt, band)
-        if best_key is None or _better(key, best_key):
+        better = (best_key is None or (rank(key) < rank(best_key) if rank else
+                                       _better(key, best_key)))
+        if better:
             best, best_key = opt, key
-        if time.perf_counter() > t_end:
-            break
     return best, cols
 
 

@@ -104,11 +104,9 @@ def neighbourhood_search(units: Units, band: Band, option: np.ndarray, level: st
                 continue
             fixed = np.setdiff1d(np.arange(units.n), free)
             sub = _sub_units(units, free, blocks)
-            s_fixed = np.zeros((blocks.size, units.pp.shape[1]))
-            for k, b in enumerate(blocks):
-                sel = fixed[cur[fixed] == b]
-                if sel.size:
-                    s_fixed[k] = units.pp[sel].sum(axis=0)
+            held = cur.copy()
+            held[free] = nb  # the shares of the units that stay where they are
+            s_fixed = shares(units, held)[blocks]
             fixed_changes = float(units.change_cost[fixed, cur[fixed]].sum())
             sub_band = Band(band.target[blocks], band.lo[blocks], band.hi[blocks])
             mc = None if max_changes is None else max_changes - fixed_changes

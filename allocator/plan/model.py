@@ -105,12 +105,13 @@ class _Rows:
                                  shape=(self.n, n_var))
 
 
-def _block_pp(units: Units, pair_u, pair_b, b: int, model_t):
-    """Non-zeros of Σ_u pp[u, t] x[u, b] over the model columns: (pair cols, t pos, value)."""
+def _block_pp(pp_t: np.ndarray, pair_u, pair_b, b: int):
+    """Non-zeros of Σ_u pp[u, t] x[u, b] over the model columns: (pair cols, t pos, value).
+    ``pp_t`` is ``pp[:, model_t]`` (made once per model; never a copy of full rows)."""
     cols = np.flatnonzero(pair_b == b)
-    vals = units.pp[pair_u[cols]][:, model_t]  # [pair, t]
+    vals = pp_t[pair_u[cols]]  # [pair, t]
     pi, ti = np.nonzero(vals)
-    return cols[pi], ti, vals[pi, ti]
+    return cols[pi], ti, vals[pi, ti].astype(float)
 
 
 def _one_block_rows(rows: _Rows, units: Units, pair_u) -> None:
@@ -125,8 +126,9 @@ def _direct_band_rows(rows: _Rows, units, pair_u, pair_b, targets, lo, hi, z_cap
                       off) -> None:
     """One ranged row per (block, column): the band widened by target·z_cap."""
     nb, n_t = units.n_blocks, model_t.size
+    pp_t = units.pp[:, model_t]
     for b in range(nb):
-        pc, ti, v = _block_pp(units, pair_u, pair_b, b, model_t)
+        pc, ti, v = _block_pp(pp_t, pair_u, pair_b, b)
         rows.add(rows.n + b * n_t + ti, pc, v)
     lo_r = np.repeat(lo - targets * z_cap, n_t) - off
     hi_r = np.repeat(hi + targets * z_cap, n_t) - off
@@ -137,8 +139,9 @@ def _share_and_band_rows(rows: _Rows, units, pair_u, pair_b, targets, lo, hi, mo
                          band_pos, i_z, ycol, off) -> None:
     """y[b, t] = Σ pp x + off, then the two band rows per (block, band column) with z."""
     nb, n_t = units.n_blocks, model_t.size
+    pp_t = units.pp[:, model_t]
     for b in range(nb):
-        pc, ti, v = _block_pp(units, pair_u, pair_b, b, model_t)
+        pc, ti, v = _block_pp(pp_t, pair_u, pair_b, b)
         rows.add(rows.n + b * n_t + ti, pc, -v)
         rows.add(rows.n + b * n_t + np.arange(n_t), ycol(b, np.arange(n_t)), np.ones(n_t))
     rows.bounds(off, off.copy())
@@ -187,7 +190,8 @@ def _cap_rows(rows: _Rows, units, pair_u, pair_b, change_coef, change_const, max
     # substation share rows: sum_u (mask_u - cap) pp[u,t] x[u,b] <= 0
     for (b, tpos, mask, cap) in substation_rows:
         cols = np.flatnonzero(pair_b == b)
-        coef = (mask[pair_u[cols]].astype(float) - cap) * units.pp[pair_u[cols], tpos]
+        coef = (mask[pair_u[cols]].astype(float) - cap) * units.pp[pair_u[cols], tpos].astype(
+            float)
         rows.add(np.full(cols.size, rows.n), cols, coef)
         rows.bounds(-np.inf, 0.0)
 
@@ -288,10 +292,11 @@ def start_vector(model: AllocationModel, units: Units, option: np.ndarray,
     model_t = model.model_t
     share = np.zeros((nb, model_t.size)) if share_offset is None else \
         np.array(np.asarray(share_offset)[:, model_t], dtype=float)
+    pp_t = units.pp[:, model_t]
     for b in range(nb):
         sel = option == b
         if sel.any():
-            share[b] += units.pp[sel][:, model_t].sum(axis=0)
+            share[b] += pp_t[sel].sum(axis=0, dtype=float)
     band_pos = np.searchsorted(model_t, model.band_set)
     sb = share[:, band_pos]
     viol = np.maximum(np.maximum(lo[:, None] - sb, sb - hi[:, None]), 0.0) / targets[:, None]

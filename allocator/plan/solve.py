@@ -57,6 +57,8 @@ ROUND_MIN_S = 5.0
 #: for the final check); a phase that finishes early leaves its time to the next
 PHASE_END = {"heuristic": 0.20, "worst": 0.40, "exporting": 0.50, "level2": 0.78}
 FINAL_MARGIN_S = 2.0
+#: how many leading entries of :meth:`_Ctx.key` are the level's own objective
+PRIMARY = {"worst": 3, "changes": 4, "armed": 3}
 LEVEL_NAMES = {"worst": "worst violation", "changes": "relays changed",
                "mad": "deviation from target", "armed": "exporting feeders kept armed"}
 
@@ -132,6 +134,7 @@ class _Ctx:
     armed_caps: list = field(default_factory=list)
     exporting_mask: np.ndarray | None = None  # [unit] exporting standard relays
     years: tuple = ()
+    objective: str = "fewest_changes"
 
     def at(self, phase: str) -> float:
         if phase == "end":
@@ -144,7 +147,9 @@ class _Ctx:
             self.progress(**kw)
 
     def key(self, option: np.ndarray, level: str) -> tuple:
-        """Order plans: hard rules first, then the level's objective on every column."""
+        """Order plans: hard rules first, then the level's objective on every column, then
+        the later levels' objectives as tie-breaks (:data:`PRIMARY` says how many entries
+        are the level's own)."""
         k = evaluate(self.units, option, self.band)
         n_sub = len(substation_excess(self.units, option, self.sub_cap))
         over = sum(max(0.0, float(np.sum(m[option < self.units.n_blocks])) - cap)
@@ -153,6 +158,8 @@ class _Ctx:
             return (n_sub, over, round(k[0], 9), k[2], k[1])
         if level == "armed":
             return (n_sub, round(k[0], 9), self.armed_count(option), k[2], k[1])
+        if self.objective == "fewest_changes":
+            return (n_sub, over, round(k[0], 9), k[2], k[1])
         return (n_sub, over, round(k[0], 9), k[1], k[2])
 
     def armed_count(self, option: np.ndarray) -> int:
@@ -216,11 +223,14 @@ def _level(ctx: _Ctx, level: str, band_set, mad_set, incumbent, *, deadline, z_c
             info["converged"] = True
             break
         band_set = np.union1d(band_set, new)
-    if ctx.key(option, level) > best_key:
-        ctx.events.append(f"{name}: the last round's plan was worse than an earlier one "
-                          "(time limit); the best plan found is kept")
+    last_key = ctx.key(option, level)
+    if last_key > best_key:
+        p = PRIMARY.get(level, len(best_key))
+        if last_key[:p] != best_key[:p]:  # worse on the level itself, not a tie-break
+            ctx.events.append(f"{name}: the last round's plan was worse than an earlier one "
+                              "(time limit); the best plan found is kept")
+            info["converged"] = False
         option = best_opt
-        info["converged"] = False
     info["bound"] = max(bounds) if bounds else None
     return option, info, band_set
 
@@ -260,6 +270,9 @@ def _phase_worst(ctx: _Ctx, h_opt) -> tuple[np.ndarray, dict, np.ndarray]:
         ctx.events.append("level 1 ended above the heuristic start; the start is kept")
         opt1 = h_opt
         info["converged"] = False
+    elif (ctx.objective == "fewest_changes" and h_key[0] <= k1[0] + Z_TOL
+          and h_key[2] < k1[2] and not substation_excess(units, h_opt, ctx.sub_cap)):
+        opt1 = h_opt  # as good on level 1 and nearer the current allocation
     k1 = evaluate(units, opt1, band)
     info["proven_optimal"] = bool(info["status"] == "optimal" and info["converged"]
                                   and k1[0] <= (info["objective"] or 0) + 1e-6)
@@ -333,7 +346,10 @@ def _extremes(units: Units, options, k: int = EXTREMES_PER_BLOCK) -> np.ndarray:
 def _phase_fewest_changes(ctx: _Ctx, opt1, band_set, mad_set, z_cap):
     """Level 2: fewest relays changed (MILP rounds, bound valid for every scenario);
     level 3: closest to target with that many changes (neighbourhood search)."""
-    start = _reverted(ctx, opt1, z_cap, np.inf, ctx.at("level2"))
+    # the revert passes get a quarter of the level's time at most (their swapped-pair
+    # scoring grows with units² × columns); the MILP rounds need the rest
+    now = time.perf_counter()
+    start = _reverted(ctx, opt1, z_cap, np.inf, now + 0.25 * max(0.0, ctx.at("level2") - now))
     band_set = np.union1d(band_set, _extremes(ctx.units, (ctx.units.current, start)))
     opt2, info2, band_set = _level(ctx, "changes", band_set, np.array([], np.intp), start,
                                    deadline=ctx.at("level2"), z_cap=z_cap, round_share=0.35)
@@ -368,7 +384,8 @@ def _phase_closest(ctx: _Ctx, opt1, band_set, mad_set, z_cap):
     s2 = shares(units, opt2, mad_set)
     mad_cap_sample = float(np.abs(s2 - band.target[:, None]).mean()) * (1 + tol) + 1e-12
     mad_cap_full = k2[1] * (1 + tol) + 1e-12
-    opt2r = _reverted(ctx, opt2, z_cap, mad_cap_full, ctx.at("end"))
+    now = time.perf_counter()
+    opt2r = _reverted(ctx, opt2, z_cap, mad_cap_full, now + 0.25 * max(0.0, ctx.at("end") - now))
     opt3, info3 = _lns(ctx, "changes", opt2r, band_set, mad_set, z_cap, ctx.at("end"),
                        ctx.max_changes, mad_cap_full=mad_cap_full,
                        mad_cap_sample=mad_cap_sample)
@@ -385,11 +402,13 @@ def _claim(info: dict, seconds: float, unit: str = "") -> str:
         return "optimal (proven)"
     b = info.get("bound")
     txt = f"best found in {seconds:.0f} s"
-    if info.get("level") == LEVEL_NAMES["changes"] and b is not None:
+    if info.get("level") == LEVEL_NAMES["changes"] and b is not None and b > 1 - 1e-6:
         return txt + f"; at least {max(0, math.ceil(b - 1e-6))} {unit or 'changes'} are needed"
-    if info.get("level") == LEVEL_NAMES["worst"] and b is not None:
+    if info.get("level") == LEVEL_NAMES["worst"] and b is not None and b > 1e-9:
         return txt + f"; no plan has a worst violation below {100 * b:.3g} % of target"
-    return txt + " (a local optimum of the neighbourhood search)"
+    if info.get("method", "").startswith("neighbourhood"):
+        return txt + " (a local optimum of the neighbourhood search)"
+    return txt
 
 
 def _start(ctx: _Ctx, explanation: list[str]) -> np.ndarray:
@@ -405,9 +424,10 @@ def _start(ctx: _Ctx, explanation: list[str]) -> np.ndarray:
             f"planned with max_changes = {forced}.")
         ctx.max_changes = forced
     ctx.prog(level="heuristic", round=0, intervals=0, worst=float("nan"), status="running")
+    prefer = "changes" if ctx.objective == "fewest_changes" else "mad"
     h_opt, work = heuristic_plan(ctx.units, ctx.band, ctx.seed,
                                  time_budget_s=max(1.0, ctx.at("heuristic") - time.perf_counter()),
-                                 max_changes=ctx.max_changes)
+                                 max_changes=ctx.max_changes, prefer=prefer)
     ctx.prog(level="heuristic", round=0, intervals=int(work.size),
              worst=evaluate(ctx.units, h_opt, ctx.band)[0], status="done")
     return h_opt
@@ -434,11 +454,12 @@ def plan_allocation(study: Study, years, solver: str = "highs",
     mask = None
     if s.exporting_standard_relays == "avoid":
         units, mask = _restrict_exporting(study, units)
-    ctx = _Ctx(study, units, band_of(study, margin), solver,
+    ctx = _Ctx(study, units, band_of(study, margin + units.guard_pp), solver,
                float(mip_gap if mip_gap is not None else s.mip_gap), seed, t_start,
                float(time_limit_s if time_limit_s is not None else s.solver_time_limit_s),
                progress, [], max_changes if max_changes is not None else s.max_changes,
-               s.max_substation_share_pct, exporting_mask=mask, years=years)
+               s.max_substation_share_pct, exporting_mask=mask, years=years,
+               objective=objective)
     explanation: list[str] = []
     h_opt = _start(ctx, explanation)
     opt1, info1, band_set = _phase_worst(ctx, h_opt)

@@ -12,7 +12,7 @@ trip group is one relay, so it counts once however many feeders it trips.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -22,6 +22,15 @@ from ..year import Year
 
 #: feeders per chunk when building contributions (bounds the temporaries)
 _CHUNK = 512
+#: above this size (bytes as float64) ``pp`` is stored as float32, halving the planner's
+#: largest array; products over it still accumulate in float64 (see :func:`weighted_rows`)
+PP_FLOAT64_MAX_BYTES = 1 << 30
+#: with a float32 ``pp`` the planner holds every band this much (pp of demand) narrower, so
+#: the rounding of the stored contributions (relative 6e-8 each, at most ~1e-6 pp on a
+#: block's share) can never put a planned share outside the real band
+FLOAT32_GUARD_PP = 1e-5
+#: elements of one float64 slab in :func:`weighted_rows` (64 MB)
+_SLAB = 8_000_000
 
 
 @dataclass(frozen=True)
@@ -38,10 +47,18 @@ class Units:
     col_scenario: np.ndarray | None = None  # [column] → index into the years
     exports_standard: np.ndarray | None = None  # [unit] a standard relay that exports
     owner: np.ndarray | None = None  # [feeder] → unit
+    #: recent (option, shares) pairs of :func:`allocator.plan.heuristic.shares`
+    share_cache: list = field(default_factory=list, compare=False, repr=False)
 
     @property
     def n(self) -> int:
         return len(self.members)
+
+    @property
+    def guard_pp(self) -> float:
+        """How much narrower than the band the planner must hold it (see
+        :data:`FLOAT32_GUARD_PP`)."""
+        return FLOAT32_GUARD_PP if self.pp.dtype == np.float32 else 0.0
 
     def to_feeders(self, option: np.ndarray) -> np.ndarray:
         """Unit options (B = unarmed) → block index per feeder (UNARMED = −1)."""
@@ -75,6 +92,24 @@ class Units:
         return float(self.change_cost[np.arange(self.n), option].sum())
 
 
+def weighted_rows(pp: np.ndarray, weights: np.ndarray, cols: np.ndarray | None = None
+                  ) -> np.ndarray:
+    """``weights @ pp[:, cols]`` in float64, ``weights[k, unit]`` → ``[k, column]``, computed
+    over slabs of columns so that no full-size copy of ``pp`` is made (a float32 ``pp`` is
+    converted one slab at a time)."""
+    w = np.asarray(weights, dtype=float)
+    if cols is not None:
+        return w @ pp[:, cols]
+    n_u, n_c = pp.shape
+    if pp.dtype == np.float64:
+        return w @ pp
+    out = np.empty((w.shape[0], n_c))
+    step = max(1, _SLAB // max(n_u, 1))
+    for c0 in range(0, n_c, step):
+        out[:, c0:c0 + step] = w @ pp[:, c0:c0 + step].astype(np.float64)
+    return out
+
+
 def _members(study: Study) -> tuple[list[np.ndarray], np.ndarray]:
     """Units in order of their first feeder, and the owner unit of every feeder."""
     nf = len(study.feeders)
@@ -100,7 +135,8 @@ def _contributions(study: Study, years: tuple[Year, ...], owner: np.ndarray, n_u
     standard relay that exports in some interval of some year."""
     valid = [np.flatnonzero(y.demand_mw > 0) for y in years]
     n_c = int(sum(v.size for v in valid))
-    pp = np.zeros((n_u, n_c))
+    big = n_u * n_c * 8 > PP_FLOAT64_MAX_BYTES
+    pp = np.zeros((n_u, n_c), dtype=np.float32 if big else np.float64)
     col_s = np.concatenate([np.full(v.size, k, dtype=np.intp) for k, v in enumerate(valid)]
                            ) if n_c else np.zeros(0, dtype=np.intp)
     col_t = np.concatenate(valid) if n_c else np.zeros(0, dtype=np.intp)
@@ -111,11 +147,12 @@ def _contributions(study: Study, years: tuple[Year, ...], owner: np.ndarray, n_u
     off = 0
     for y, v in zip(years, valid):
         scale = 100.0 / y.demand_mw[v]
+        every = v.size == y.n_intervals  # no column to drop: a view, not a copy
         for a in range(0, nf, _CHUNK):
             b = min(a + _CHUNK, nf)
             net = y.net_mw[a:b]
-            exports[a:b] |= std[a:b] & (net < 0).any(axis=1)
-            c = contribution_mw(net[:, v], study.relay_code[a:b])
+            exports[a:b] |= std[a:b] & (net.min(axis=1) < 0)
+            c = contribution_mw(net if every else net[:, v], study.relay_code[a:b])
             c *= scale[None, :]
             one = single[a:b]
             pp[owner[a:b][one], off:off + v.size] = c[one]
@@ -169,16 +206,17 @@ def substation_excess(units: Units, option: np.ndarray, cap_pct: float | None
     cap = cap_pct / 100.0
     out = []
     nb = units.n_blocks
+    onehot = (np.asarray(option)[None, :] == np.arange(nb)[:, None]).astype(float)
+    shares = weighted_rows(units.pp, onehot)
     for b in range(nb):
         sel = np.flatnonzero(option == b)
         if sel.size == 0:
             continue
-        s = units.pp[sel].sum(axis=0)
-        t = int(np.argmin(s))
-        total = s[t]
+        t = int(np.argmin(shares[b]))
+        total = shares[b, t]
         if total <= 0:
             continue
-        by_sub = np.bincount(units.substation[sel], weights=units.pp[sel, t],
+        by_sub = np.bincount(units.substation[sel], weights=units.pp[sel, t].astype(float),
                              minlength=int(units.substation.max()) + 1)
         for k in np.flatnonzero(by_sub > cap * total + 1e-9):
             out.append((b, t, units.substation == k, cap))
