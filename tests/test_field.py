@@ -1,0 +1,437 @@
+"""Checks of the field outputs: the relay work list (allocator.worklist) and the visit order
+(allocator.visits).
+
+Outside references used here, each named again beside its check:
+
+* The armed-load rules (a standard relay trips the feeder's net load, negative while it
+  exports; a direction-blocked relay trips max(net, 0)): common practice, no source.  The
+  reference shares below are computed from these rules with numpy, in this file, without
+  the code under test.
+* Brute force over every order of the substation visits (itertools.permutations), each
+  state's shares from the rules above: the reference for the visit order's bottleneck.
+* ISO 8601 local time with the UTC offset (``2025-06-02T03:00+02:00``); Europe/Berlin is
+  UTC+2 in June (EU summer time, Directive 2000/84/EC; from memory).
+* The input workbook's own blocks sheet, read with openpyxl: the settings the work list
+  must show.
+
+All study data is invented test data.
+"""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import openpyxl
+import pandas as pd
+import pytest
+
+from allocator.check import run_checks
+from allocator.visits import EXACT_MAX_SUBSTATIONS, order_words, visit_order, visit_order_table
+from allocator.workbook import read_study
+from allocator.worklist import WORK_LIST_COLUMNS, work_list_table
+from allocator.year import Year
+from wbfactory import BASE_SETTINGS, write_workbook
+
+TZ = "Europe/Berlin"
+
+
+# --------------------------------------------------------------------------------------------
+# helpers (invented data; the reference arithmetic is written from the rules, not the code)
+# --------------------------------------------------------------------------------------------
+def _feeder(fid, sub, block=None, relay="standard", group=None, customers=10, prio=None):
+    return {"feeder_id": fid, "substation": sub, "zone": "Z", "profile": "res", "peak_mw": 10.0,
+            "pv_mw": 0.0, "relay": relay, "priority": prio, "allowed_blocks": None,
+            "trip_group": group, "current_block": block, "customers": customers}
+
+
+def _block(name, order, lo, hi, hz, delay=0.1, rocof=None, arm=None):
+    return {"block": name, "order": order, "pickup_hz": hz, "delay_s": delay,
+            "rocof_hz_per_s": rocof, "rocof_arm_hz": arm, "target_pct": (lo + hi) / 2,
+            "min_pct": lo, "max_pct": hi}
+
+
+def _study(tmp_path, feeders, blocks, name="field.xlsx"):
+    s = dict(BASE_SETTINGS)
+    s["priority_policy"] = "last_block"
+    return read_study(write_workbook(tmp_path / name, settings=s, feeders=feeders,
+                                     blocks=blocks))
+
+
+def _year(study, net, demand, scenario, source="profiles", start="2025-06-02 00:00"):
+    """A hand-made hourly Year (local start 2 June 2025, CEST)."""
+    net = np.asarray(net, dtype=float)
+    n_t = net.shape[1]
+    ts = pd.date_range(pd.Timestamp(start, tz=TZ).tz_convert("UTC"), periods=n_t, freq="h")
+    z = np.zeros(n_t)
+    return Year(ts, TZ, 60, study.feeder_ids, net, np.asarray(demand, dtype=float), z,
+                z.astype(np.intp), z.astype(np.int8), source=source, scenario=scenario)
+
+
+def _ref_shares(net, relays, alloc, n_blocks, demand):
+    """Shares [block, interval] from the rules (common practice, no source): standard trips
+    the net load, direction_blocked max(net, 0), unarmed nothing; 100 * armed / demand."""
+    out = np.zeros((n_blocks, net.shape[1]))
+    for f, b in enumerate(alloc):
+        if b < 0 or relays[f] == "none":
+            continue
+        out[b] += net[f] if relays[f] == "standard" else np.maximum(net[f], 0.0)
+    return 100.0 * out / demand[None, :]
+
+
+def _ref_edge(nets, demands, relays, alloc, lo, hi):
+    """Largest max(min - share, share - max) over every block, interval and scenario."""
+    e = -np.inf
+    for net, dem in zip(nets, demands):
+        s = _ref_shares(net, relays, alloc, len(lo), dem)
+        e = max(e, float(np.max(np.maximum(lo[:, None] - s, s - hi[:, None]))))
+    return e
+
+
+def _ref_state(old, new, visit_sub_of_feeder, visited):
+    """Allocation after the visits in ``visited``: a feeder takes its new block when the
+    substation where its relay is visited (its trip group's first feeder's) is visited."""
+    return np.array([new[f] if visit_sub_of_feeder[f] in visited else old[f]
+                     for f in range(len(old))])
+
+
+def _brute_force(nets, demands, relays, old, new, visit_sub, lo, hi):
+    """Every order of the substations with a change: (order, [edge after each visit])."""
+    subs = sorted({visit_sub[f] for f in range(len(old)) if old[f] != new[f]})
+    out = []
+    for perm in itertools.permutations(subs):
+        edges = [_ref_edge(nets, demands, relays,
+                           _ref_state(old, new, visit_sub, set(perm[:i + 1])), lo, hi)
+                 for i in range(len(perm))]
+        out.append((perm, edges))
+    return out
+
+
+def _visit_sub(feeders):
+    """Visit substation per feeder by the documented rule: a trip group goes with the
+    substation of its first feeder in the sheet."""
+    first = {}
+    for f in feeders:
+        if f["trip_group"]:
+            first.setdefault(f["trip_group"], f["substation"])
+    return [first[f["trip_group"]] if f["trip_group"] else f["substation"] for f in feeders]
+
+
+# ============================================================================================
+# visit order against brute force over every order (<= 6 substations)
+# ============================================================================================
+def _random_case(tmp_path, seed):
+    """2 to 6 substations, 3 blocks, two scenarios of 24 hours; one trip group across two
+    substations; bands set just around the new allocation's shares (and on even seeds the
+    current ones') so that the order of the visits matters."""
+    rng = np.random.default_rng(seed)
+    n_sub = int(rng.integers(2, 7))
+    feeders, n_t = [], 24
+    for k in range(n_sub):
+        for i in range(int(rng.integers(1, 4))):
+            relay = "direction_blocked" if rng.random() < 0.3 else "standard"
+            feeders.append(_feeder(f"F{k}{i}", f"SUB{k}", relay=relay))
+    # a trip group: the last feeder of the last substation with the first of the first
+    feeders[-1]["trip_group"] = feeders[0]["trip_group"] = "TG"
+    nf = len(feeders)
+    relays = [f["relay"] for f in feeders]
+    old = rng.integers(-1, 3, nf)
+    new = old.copy()
+    flip = rng.random(nf) < 0.6
+    new[flip] = rng.integers(-1, 3, int(flip.sum()))
+    gi = [i for i, f in enumerate(feeders) if f["trip_group"] == "TG"]
+    old[gi], new[gi] = old[gi[0]], new[gi[0]]
+    if (old == new).all():
+        new[1 % nf] = (old[1 % nf] + 2) % 4 - 1
+        new[gi] = new[gi[0]]
+    t = np.arange(n_t)
+    nets, demands = [], []
+    for sc in range(2):  # scenario 0 with a PV dip at midday (some exports), 1 without
+        base = rng.uniform(1.0, 6.0, nf)[:, None] * (1 + 0.3 * np.sin(2 * np.pi * t / 24))
+        dip = (rng.uniform(0, 3.0, nf)[:, None] * np.exp(-0.5 * ((t - 12) / 2.5) ** 2)
+               if sc == 0 else 0.0)
+        nets.append(base - dip + rng.normal(0, 0.2, (nf, n_t)))
+        demands.append(np.full(n_t, 40.0 + 3.0 * nf) + rng.normal(0, 2.0, n_t))
+    # bands around the new allocation's shares; on even seeds around the current ones too
+    # (then both ends are in band and only the visits in between can break it)
+    ends = [new, old] if seed % 2 == 0 else [new]
+    fin = np.concatenate([_ref_shares(n, relays, a, 3, d) for n, d in zip(nets, demands)
+                          for a in ends], axis=1)
+    lo = np.maximum(fin.min(axis=1) - rng.uniform(0, 0.5, 3), 0.0)
+    hi = fin.max(axis=1) + rng.uniform(0, 0.5, 3)
+    blocks = [_block(f"S{j + 1}", j + 1, round(lo[j], 6), round(hi[j], 6), 49.0 - 0.2 * j)
+              for j in range(3)]
+    lo = np.array([b["min_pct"] for b in blocks])
+    hi = np.array([b["max_pct"] for b in blocks])
+    names = ["S1", "S2", "S3"]
+    for i, f in enumerate(feeders):
+        f["current_block"] = names[old[i]] if old[i] >= 0 else None
+    study = _study(tmp_path, feeders, blocks, name=f"rand{seed}.xlsx")
+    years = [_year(study, n, d, sc) for n, d, sc in zip(nets, demands, ("sunny", "dull"))]
+    return dict(study=study, years=years, nets=nets, demands=demands, relays=relays, old=old,
+                new=new, lo=lo, hi=hi, visit_sub=_visit_sub(feeders))
+
+
+def _check_against_brute_force(c, order):
+    """The order's edges are the reference's, and its bottleneck is the brute-force best."""
+    ref = _brute_force(c["nets"], c["demands"], c["relays"], c["old"], c["new"],
+                       c["visit_sub"], c["lo"], c["hi"])
+    subs = [v.substation for v in order.visits]
+    assert sorted(subs) == sorted(ref[0][0])
+    # every state of the chosen order, from the rules (reference shares written above)
+    now = _ref_edge(c["nets"], c["demands"], c["relays"], c["old"], c["lo"], c["hi"])
+    assert order.steps[0].edge_pp == pytest.approx(now, abs=1e-9)
+    for i, st in enumerate(order.steps[1:], 1):
+        alloc = _ref_state(c["old"], c["new"], c["visit_sub"], set(subs[:i]))
+        e = _ref_edge(c["nets"], c["demands"], c["relays"], alloc, c["lo"], c["hi"])
+        assert st.edge_pp == pytest.approx(e, abs=1e-9), (i, st)
+    return ref, now
+
+
+@pytest.mark.parametrize("seed", range(16))
+def test_visit_order_exact_equals_brute_force(tmp_path, seed):
+    """Brute force over every permutation of the substations (reference shares from the
+    armed-load rules, numpy, in this file): the order found has the smallest possible
+    largest edge over its visits, so it keeps the band exactly when some order does."""
+    c = _random_case(tmp_path, seed)
+    cs = run_checks(c["study"], c["years"], c["new"])
+    order = visit_order(cs, c["old"])
+    assert len(order.visits) <= 6 <= EXACT_MAX_SUBSTATIONS
+    assert order.method == "exact" and order.proven
+    ref, now = _check_against_brute_force(c, order)
+    best = min(max(e) for _, e in ref)
+    assert max(s.edge_pp for s in order.steps[1:]) == pytest.approx(best, abs=1e-9)
+    limit = max(now, 0.0)
+    some_keeps = any(max(max(e), 0.0) <= limit + 1e-9 for _, e in ref)
+    assert order.keeps_band == some_keeps
+    # the lower bound is the optimum (proven)
+    assert order.lower_bound_pp == pytest.approx(best, abs=1e-9)
+    # the work list numbers every relay with the visit of its substation
+    wl = work_list_table(cs, c["old"], order)
+    assert sorted(wl["visit"]) == sorted(order.visit_of[s] for s in wl["visit_substation"])
+    assert list(wl["visit"]) == sorted(wl["visit"])
+
+
+def test_random_cases_discriminate(tmp_path):
+    """Guard on the cases above: in some the order matters (orders differ in their
+    bottleneck), in some an order breaks the band that another keeps, in some no order
+    keeps it, and a trip group spans two substations in each."""
+    differs = keeps_only_some = none_keeps = 0
+    for seed in range(16):
+        c = _random_case(tmp_path, seed)
+        ref = _brute_force(c["nets"], c["demands"], c["relays"], c["old"], c["new"],
+                           c["visit_sub"], c["lo"], c["hi"])
+        now = _ref_edge(c["nets"], c["demands"], c["relays"], c["old"], c["lo"], c["hi"])
+        tops = [max(max(e), 0.0) for _, e in ref]
+        differs += max(tops) - min(tops) > 1e-6
+        ok = [t <= max(now, 0.0) + 1e-9 for t in tops]
+        keeps_only_some += any(ok) and not all(ok)
+        none_keeps += not any(ok)
+        assert len({c["study"].feeders[i].substation for i in
+                    c["study"].trip_groups()["TG"]}) == 2
+    assert differs >= 4 and keeps_only_some >= 2 and none_keeps >= 1
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_visit_order_greedy_steps_and_bound(tmp_path, seed, monkeypatch):
+    """With the exact search switched off: each step is the best single next visit by the
+    reference shares, and the bound it reports is no more than the brute-force optimum."""
+    import allocator.visits as V
+
+    monkeypatch.setattr(V, "EXACT_MAX_SUBSTATIONS", 0)
+    c = _random_case(tmp_path, seed)
+    cs = run_checks(c["study"], c["years"], c["new"])
+    order = V.visit_order(cs, c["old"])
+    assert order.method == "greedy"
+    ref, _ = _check_against_brute_force(c, order)
+    subs = [v.substation for v in order.visits]
+    for i in range(len(subs)):
+        done = set(subs[:i])
+        cand = {s: _ref_edge(c["nets"], c["demands"], c["relays"],
+                             _ref_state(c["old"], c["new"], c["visit_sub"], done | {s}),
+                             c["lo"], c["hi"]) for s in subs[i:]}
+        assert cand[subs[i]] <= min(cand.values()) + 1e-9
+    best = min(max(e) for _, e in ref)
+    assert order.lower_bound_pp <= best + 1e-9
+    if order.proven:
+        assert max(s.edge_pp for s in order.steps[1:]) == pytest.approx(best, abs=1e-9)
+
+
+# --------------------------------------------------------------------------------------------
+# no order keeps the band: the step that breaks it and by how much (hand arithmetic)
+# --------------------------------------------------------------------------------------------
+# Blocks S1 and S2, band 8..12 % each; demand 100 MW in each of 4 hours (2 June 2025, CEST).
+#   SUBA: a1 4 MW, S1 -> S2;     a2 6 MW in S1 (6.5 MW at h2), unchanged
+#   SUBB: b1 3 MW, S2 -> S1;     b2 7.5 MW in S2, unchanged
+# Now: S1 = 4 + 6 = 10 (10.5 at h2), S2 = 3 + 7.5 = 10.5: in band (limit 0).
+# All done: S1 = 6 + 3 = 9 (9.5 at h2), S2 = 7.5 + 4 = 11.5: in band.
+# SUBA first: S1 = 6 (6.5 at h2) -> 2 pp below; S2 = 3 + 7.5 + 4 = 14.5 -> 2.5 pp above.
+# SUBB first: S1 = 4 + 6 + 3 = 13 (13.5 at h2) -> 1.5 pp above at h2; S2 = 7.5 -> 0.5 below.
+# Every order breaks the band at visit 1; the least bad is SUBB first: block S1, 1.5 pp
+# above its maximum at h2 = 2025-06-02T02:00+02:00, 1.5 pp over the limit of 0.
+BREAK_FEEDERS = [("a1", "SUBA", "S1"), ("a2", "SUBA", "S1"), ("b1", "SUBB", "S2"),
+                 ("b2", "SUBB", "S2")]
+BREAK_NET = np.array([[4.0] * 4, [6.0, 6.0, 6.5, 6.0], [3.0] * 4, [7.5] * 4])
+
+
+def _break_case(tmp_path):
+    blocks = [_block("S1", 1, 8, 12, 49.0), _block("S2", 2, 8, 12, 48.8)]
+    study = _study(tmp_path, [_feeder(f, s, b) for f, s, b in BREAK_FEEDERS], blocks)
+    years = [_year(study, BREAK_NET, np.full(4, 100.0), "only")]
+    new = np.array([1, 0, 0, 1])
+    return study, years, new
+
+
+def test_no_order_keeps_the_band_names_the_step(tmp_path):
+    study, years, new = _break_case(tmp_path)
+    cs = run_checks(study, years, new)
+    order = visit_order(cs, study.current_assignment)
+    # hand arithmetic above
+    assert [v.substation for v in order.visits] == ["SUBB", "SUBA"]
+    assert order.limit_pp == 0.0 and not order.keeps_band and order.proven
+    brk = order.first_break
+    assert (brk.visit, brk.substation, brk.block, brk.side) == (1, "SUBB", "S1", "max")
+    assert brk.worst_violation_pp == pytest.approx(1.5, abs=1e-12)
+    assert order.excess_pp(brk) == pytest.approx(1.5, abs=1e-12)
+    assert brk.local_time == "2025-06-02T02:00+02:00"  # ISO 8601, CEST
+    assert order.steps[2].worst_violation_pp == 0.0 and order.steps[2].edge_pp == \
+        pytest.approx(-0.5, abs=1e-12)  # all done: S2 11.5, 0.5 pp from its max
+    # brute force agrees that no order keeps it and that 1.5 pp is the least
+    nets, dem = [BREAK_NET], [np.full(4, 100.0)]
+    ref = _brute_force(nets, dem, ["standard"] * 4, study.current_assignment, new,
+                       ["SUBA", "SUBA", "SUBB", "SUBB"], np.array([8.0, 8.0]),
+                       np.array([12.0, 12.0]))
+    assert min(max(e) for _, e in ref) == pytest.approx(1.5, abs=1e-12)
+    words = order_words(order)
+    assert "Visit 1 (SUBB) breaks the band" in words and "1.50 pp above its maximum" in words
+    assert "No order of the visits keeps the band" in words
+    # the CSV names it too
+    tab = visit_order_table(order)
+    row = tab[tab["status"] == "breaks the band"]
+    assert list(row["visit"]) == [1]
+    assert float(row["excess_over_limit_pp"].iloc[0]) == pytest.approx(1.5, abs=1e-12)
+
+
+# --------------------------------------------------------------------------------------------
+# two scenarios: the order fine on one breaks the other (hand arithmetic)
+# --------------------------------------------------------------------------------------------
+# S1 band 8..12 %, S2 band 5..15 % (s2 10 MW: S2 always 10 %, 5 pp of room); demand 100 MW.
+#   SUBX: x1 disarmed from S1.  SUBY: y1 armed into S1.  base stays in S1 (at SUBZ).
+#   scenario 'sunny':    base 9, x1 1,   y1 1.5: now 10; X first 9 (room 1), Y first 11.5
+#                        (room 0.5); all done 10.5.  Alone, X first keeps the most room.
+#   scenario 'overcast': base 7.5, x1 3, y1 1.2: now 10.5; X first 7.5 -> 0.5 pp below;
+#                        Y first 11.7 (room 0.3); all done 8.7.
+# On both: Y first (largest edge -0.3 pp) keeps the band; X first breaks it by 0.5 pp.
+TWO_FEEDERS = [("base", "SUBZ", "S1"), ("x1", "SUBX", "S1"), ("y1", "SUBY", None),
+               ("s2", "SUBZ", "S2")]
+
+
+def test_two_scenarios_order_fine_on_one_breaks_the_other(tmp_path):
+    blocks = [_block("S1", 1, 8, 12, 49.0), _block("S2", 2, 5, 15, 48.8)]
+    study = _study(tmp_path, [_feeder(f, s, b) for f, s, b in TWO_FEEDERS], blocks)
+    sunny = np.array([[9.0] * 3, [1.0] * 3, [1.5] * 3, [10.0] * 3])
+    overcast = np.array([[7.5] * 3, [3.0] * 3, [1.2] * 3, [10.0] * 3])
+    dem = np.full(3, 100.0)
+    ys = _year(study, sunny, dem, "sunny")
+    yo = _year(study, overcast, dem, "overcast")
+    new = np.array([0, -1, 0, 1])
+    old = study.current_assignment
+    alone = visit_order(run_checks(study, [ys], new), old)
+    assert [v.substation for v in alone.visits] == ["SUBX", "SUBY"] and alone.keeps_band
+    # that order on the overcast year, by the reference shares: 0.5 pp below S1's minimum
+    lo, hi = np.array([8.0, 5.0]), np.array([12.0, 15.0])
+    relays = ["standard"] * 4
+    x_first = _ref_state(old, new, ["SUBZ", "SUBX", "SUBY", "SUBZ"], {"SUBX"})
+    assert _ref_edge([overcast], [dem], relays, x_first, lo, hi) == pytest.approx(0.5)
+    both = visit_order(run_checks(study, [ys, yo], new), old)
+    assert [v.substation for v in both.visits] == ["SUBY", "SUBX"]
+    assert both.keeps_band and both.proven
+    assert both.steps[1].edge_pp == pytest.approx(-0.3, abs=1e-12)
+    assert (both.steps[1].scenario, both.steps[1].block, both.steps[1].side) == \
+        ("overcast", "S1", "max")
+    assert both.scenarios == ("sunny", "overcast")
+    ref = _brute_force([sunny, overcast], [dem, dem], relays, old, new,
+                       ["SUBZ", "SUBX", "SUBY", "SUBZ"], lo, hi)
+    assert dict((p, max(e)) for p, e in ref)[("SUBX", "SUBY")] == pytest.approx(0.5)
+    assert min(max(e) for _, e in ref) == pytest.approx(-0.3)
+
+
+# ============================================================================================
+# work list: hand arithmetic on a tiny case
+# ============================================================================================
+# Blocks S1 (49.0 Hz, 0.1 s, RoCoF 0.5 Hz/s armed below 49.5 Hz) and S2 (48.8 Hz, 0.2 s).
+# 3 hours, demand 100 MW.
+#   G1a (SUBP) + G1b (SUBQ): trip group G, standard, S1 -> S2.  net 2 3 4 and 1 1 -1.5:
+#        tripped together 3 4 2.5 (the export counts negative): mean 9.5/3
+#   H (SUBQ) direction-blocked, unarmed -> S1.  net -1 2 3 -> tripped 0 2 3: mean 5/3
+#   K (SUBP) standard, S2 -> unarmed.  net 5 5 4: mean 14/3
+#   L (SUBQ) standard, S1, unchanged.  net 6 6 6
+# New S1 = H + L = 6 8 9 %: lowest at h0, where H trips 0 MW.
+# New S2 = G = 3 4 2.5 %: lowest at h2, where G trips 2.5 MW and K (leaving S2) 4 MW.
+WL_FEEDERS = [_feeder("G1a", "SUBP", "S1", group="G", customers=10),
+              _feeder("G1b", "SUBQ", "S1", group="G", customers=20),
+              _feeder("H", "SUBQ", None, relay="direction_blocked", customers=5),
+              _feeder("K", "SUBP", "S2", customers=7, prio="water"),
+              _feeder("L", "SUBQ", "S1", customers=1)]
+WL_NET = np.array([[2, 3, 4], [1, 1, -1.5], [-1, 2, 3], [5, 5, 4], [6, 6, 6]], dtype=float)
+WL_NEW = np.array([1, 1, 0, -1, 0])
+
+
+@pytest.fixture
+def wl_case(tmp_path):
+    blocks = [_block("S1", 1, 0, 100, 49.0, 0.1, rocof=0.5, arm=49.5),
+              _block("S2", 2, 0, 100, 48.8, 0.2)]
+    study = _study(tmp_path, WL_FEEDERS, blocks)
+    cs = run_checks(study, [_year(study, WL_NET, np.full(3, 100.0), "only")], WL_NEW)
+    return study, cs, tmp_path / "field.xlsx"
+
+
+def _blocks_sheet(path):
+    """The workbook's own blocks sheet (the input), read with openpyxl."""
+    ws = openpyxl.load_workbook(path)["blocks"]
+    head = [c.value for c in ws[1]]
+    return {r[0]: dict(zip(head, r)) for r in ws.iter_rows(min_row=2, values_only=True)}
+
+
+def test_work_list_hand_arithmetic(wl_case):
+    study, cs, path = wl_case
+    wl = work_list_table(cs, study.current_assignment)
+    assert list(wl.columns) == list(WORK_LIST_COLUMNS)
+    assert len(wl) == 3  # the trip group is one row
+    rows = {r["feeders"]: r for r in wl.to_dict("records")}
+    g, h, k = rows["G1a; G1b"], rows["H"], rows["K"]
+    assert (g["substations"], g["visit_substation"], g["action"]) == ("SUBP; SUBQ", "SUBP",
+                                                                      "move")
+    assert (h["action"], k["action"]) == ("arm", "disarm")
+    assert (h["visit_substation"], k["visit_substation"]) == ("SUBQ", "SUBP")
+    assert g["visit"] == k["visit"] != h["visit"]
+    assert (g["relay"], h["relay"]) == ("standard", "direction_blocked")
+    # settings now and new against the input workbook's blocks sheet
+    bs = _blocks_sheet(path)
+    for r, now, new in ((g, "S1", "S2"), (h, None, "S1"), (k, "S2", None)):
+        for side, b in (("now", now), ("new", new)):
+            if b is None:
+                assert r[f"{side}_block"] == "unarmed"
+                assert all(np.isnan(r[f"{side}_{x}"]) for x in
+                           ("pickup_hz", "delay_s", "rocof_hz_per_s", "rocof_arm_hz"))
+                continue
+            assert r[f"{side}_block"] == b
+            assert r[f"{side}_pickup_hz"] == bs[b]["pickup_hz"]
+            assert r[f"{side}_delay_s"] == bs[b]["delay_s"]
+            for x in ("rocof_hz_per_s", "rocof_arm_hz"):
+                want = bs[b][x]
+                assert (np.isnan(r[f"{side}_{x}"]) if want is None else r[f"{side}_{x}"] == want)
+    # MW moved by hand (comments above)
+    assert g["moved_mean_mw"] == pytest.approx(9.5 / 3, abs=1e-12)
+    assert g["moved_mw_at_block_lowest"] == 2.5
+    assert g["block_lowest_local_time"] == "2025-06-02T02:00+02:00"
+    assert h["moved_mean_mw"] == pytest.approx(5 / 3, abs=1e-12)
+    assert h["moved_mw_at_block_lowest"] == 0.0
+    assert h["block_lowest_local_time"] == "2025-06-02T00:00+02:00"
+    assert k["moved_mean_mw"] == pytest.approx(14 / 3, abs=1e-12)
+    assert k["moved_mw_at_block_lowest"] == 4.0
+    assert (g["customers"], h["customers"], k["customers"]) == (30, 5, 7)
+    assert (k["priority"], g["priority"]) == ("water", "")
+    assert set(wl["mw_scenario"]) == {"only"}
+    for col in ("done_by", "date", "checked_by"):
+        assert set(wl[col]) == {""}
