@@ -1,5 +1,5 @@
-"""Checks of the field outputs: the relay work list (allocator.worklist) and the visit order
-(allocator.visits).
+"""Checks of the field outputs: the annual statement (allocator.statement), the relay work
+list (allocator.worklist) and the visit order (allocator.visits).
 
 Outside references used here, each named again beside its check:
 
@@ -9,6 +9,11 @@ Outside references used here, each named again beside its check:
   the code under test.
 * Brute force over every order of the substation visits (itertools.permutations), each
   state's shares from the rules above: the reference for the visit order's bottleneck.
+* Sample percentiles: Hyndman, R. J. & Fan, Y. (1996), "Sample quantiles in statistical
+  packages", The American Statistician 50(4), definition 7 (h = (n - 1) p, linear
+  interpolation between order statistics); implemented by hand below.
+* Commission Regulation (EU) 2017/2196, Art. 50(1) and Art. 12(6)(b) (from memory): the
+  statement's citation.
 * ISO 8601 local time with the UTC offset (``2025-06-02T03:00+02:00``); Europe/Berlin is
   UTC+2 in June (EU summer time, Directive 2000/84/EC; from memory).
 * The input workbook's own blocks sheet, read with openpyxl: the settings the work list
@@ -20,6 +25,8 @@ All study data is invented test data.
 from __future__ import annotations
 
 import itertools
+import json
+import math
 
 import numpy as np
 import openpyxl
@@ -27,6 +34,9 @@ import pandas as pd
 import pytest
 
 from allocator.check import run_checks
+from allocator.export import write_check_files
+from allocator.report import write_reports
+from allocator.statement import COLUMNS, statement_table
 from allocator.visits import EXACT_MAX_SUBSTATIONS, order_words, visit_order, visit_order_table
 from allocator.workbook import read_study
 from allocator.worklist import WORK_LIST_COLUMNS, work_list_table
@@ -115,6 +125,15 @@ def _visit_sub(feeders):
         if f["trip_group"]:
             first.setdefault(f["trip_group"], f["substation"])
     return [first[f["trip_group"]] if f["trip_group"] else f["substation"] for f in feeders]
+
+
+def _hf7(x, p):
+    """Hyndman & Fan (1996) sample quantile definition 7, by hand."""
+    x = sorted(float(v) for v in x)
+    h = (len(x) - 1) * p / 100.0
+    lo = math.floor(h)
+    hi = min(lo + 1, len(x) - 1)
+    return x[lo] + (h - lo) * (x[hi] - x[lo])
 
 
 # ============================================================================================
@@ -354,6 +373,120 @@ def test_two_scenarios_order_fine_on_one_breaks_the_other(tmp_path):
                        ["SUBZ", "SUBX", "SUBY", "SUBZ"], lo, hi)
     assert dict((p, max(e)) for p, e in ref)[("SUBX", "SUBY")] == pytest.approx(0.5)
     assert min(max(e) for _, e in ref) == pytest.approx(-0.3)
+
+
+# ============================================================================================
+# annual statement: hand arithmetic
+# ============================================================================================
+# 6 hours of 2 June 2025 (CEST).  p in S1 (standard), q in S2 (standard), r in S2
+# (direction-blocked: max(net, 0)).  Demand 50 MW, 100 MW at h4.
+#   p = 5 6 4 7 5 3            S1 = 100 p / demand        = 10 12  8 14  5  6
+#   q = 4 2 5 4 8 6, r = 1 -2 1 1 2 1 -> q + max(r, 0) = 5 2 6 5 10 7
+#                               S2                         = 10  4 12 10 10 14
+#   cumulative S1 + S2                                     = 20 16 20 24 15 20
+# S1: mean 55/6, lowest 5 at h4; sorted 5 6 8 10 12 14: P5 (h = 0.25) 5.25, P95 (h = 4.75)
+#     12 + 0.75 * 2 = 13.5 (Hyndman & Fan definition 7)
+# S2: mean 60/6 = 10, lowest 4 at h1; sorted 4 10 10 10 12 14: P5 4 + 0.25 * 6 = 5.5,
+#     P95 13.5; cumulative mean 115/6, lowest 15 at h4 (not 5 + 4 = 9, the sum of minima)
+ST_NET = np.array([[5, 6, 4, 7, 5, 3], [4, 2, 5, 4, 8, 6], [1, -2, 1, 1, 2, 1]], dtype=float)
+ST_DEMAND = np.array([50, 50, 50, 50, 100, 50], dtype=float)
+
+
+def _statement_case(tmp_path, metered=False):
+    blocks = [_block("S1", 1, 8, 12, 49.0, 0.1, rocof=0.5, arm=49.5),
+              _block("S2", 2, 8, 12, 48.8, 0.2)]
+    feeders = [_feeder("p", "A", "S1"), _feeder("q", "B", "S2"),
+               _feeder("r", "B", "S2", relay="direction_blocked")]
+    study = _study(tmp_path, feeders, blocks)
+    years = [_year(study, ST_NET, ST_DEMAND, "first"),
+             _year(study, ST_NET * 1.1, ST_DEMAND, "second")]
+    if metered:  # the metered year is the statement's, wherever it stands
+        years = [years[1], _year(study, ST_NET, ST_DEMAND, "metered", source="metered")]
+    return study, run_checks(study, years, study.current_assignment)
+
+
+@pytest.mark.parametrize("metered", [False, True])
+def test_statement_hand_arithmetic(tmp_path, metered):
+    _, cs = _statement_case(tmp_path, metered)
+    df = statement_table(cs)
+    assert list(df.columns) == [k for k, _ in COLUMNS]
+    assert list(df["scenario"]) == (["metered"] * 2 if metered else ["first"] * 2)
+    assert set(df["made_from"]) == ({"metered year"} if metered else
+                                    {"first scenario judged (no metered year)"})
+    s1, s2 = df.to_dict("records")
+    s = 100 * ST_NET[0] / ST_DEMAND
+    assert s1["armed_p5_pct"] == pytest.approx(_hf7(s, 5), abs=1e-12) == 5.25
+    assert (s1["block"], s1["pickup_hz"], s1["delay_s"], s1["rocof_hz_per_s"],
+            s1["rocof_arm_hz"]) == ("S1", 49.0, 0.1, 0.5, 49.5)
+    assert np.isnan(s2["rocof_hz_per_s"]) and np.isnan(s2["rocof_arm_hz"])
+    exp = [(55 / 6, 5.0, "2025-06-02T04:00+02:00", 5.25, 13.5, 55 / 6, 5.0,
+            "2025-06-02T04:00+02:00"),
+           (10.0, 4.0, "2025-06-02T01:00+02:00", 5.5, 13.5, 115 / 6, 15.0,
+            "2025-06-02T04:00+02:00")]
+    for r, (mean, mn, t, p5, p95, cmean, cmin, ct) in zip((s1, s2), exp):
+        assert r["armed_mean_pct"] == pytest.approx(mean, abs=1e-12)
+        assert r["armed_min_pct"] == pytest.approx(mn, abs=1e-12)
+        assert r["armed_min_local_time"] == t  # ISO 8601 local time, CEST = UTC+2
+        assert r["armed_p5_pct"] == pytest.approx(p5, abs=1e-12)
+        assert r["armed_p95_pct"] == pytest.approx(p95, abs=1e-12)
+        assert r["cumulative_mean_pct"] == pytest.approx(cmean, abs=1e-12)
+        assert r["lowest_cumulative_pct"] == pytest.approx(cmin, abs=1e-12)
+        assert r["lowest_cumulative_local_time"] == ct
+    assert s2["lowest_cumulative_pct"] > s1["armed_min_pct"] + s2["armed_min_pct"]
+
+
+def test_statement_csv_equals_summary_json(tmp_path):
+    """statement.csv holds summary.json's values for the statement scenario (6 decimals)."""
+    _, cs = _statement_case(tmp_path)
+    write_check_files(cs, tmp_path / "out")
+    st = pd.read_csv(tmp_path / "out" / "statement.csv", keep_default_na=False)
+    summ = json.loads((tmp_path / "out" / "summary.json").read_text(encoding="utf-8"))
+    sc = next(s for s in summ["scenarios"] if s["scenario"] == st["scenario"].iloc[0])
+    assert sc["scenario"] == "first"
+    for r, b, a in zip(st.to_dict("records"), sc["blocks"], sc["annual_statement"]):
+        assert r["block"] == b["block"] == a["block"]
+        for k, key in (("armed_mean_pct", "mean_share_pct"), ("armed_min_pct", "min_share_pct"),
+                       ("armed_p5_pct", "p5_share_pct"), ("armed_p95_pct", "p95_share_pct"),
+                       ("pickup_hz", "pickup_hz"), ("delay_s", "delay_s")):
+            assert r[k] == pytest.approx(b[key], abs=1e-6), k
+        assert r["armed_min_local_time"] == b["min_share_local_time"]
+        assert r["cumulative_mean_pct"] == pytest.approx(a["cumulative_mean_pct"], abs=1e-6)
+        assert r["lowest_cumulative_pct"] == pytest.approx(a["cumulative_min_pct"], abs=1e-6)
+
+
+def test_statement_sheet(tmp_path):
+    """The statement sheet: citation (Regulation (EU) 2017/2196 Art. 50(1), Art. 12(6)(b);
+    from memory), the scenario it is made from, the table with the statement's values, and
+    blank prepared-by / checked-by / date fields."""
+    _, cs = _statement_case(tmp_path)
+    write_reports(cs, tmp_path, formats={"xlsx"})
+    write_check_files(cs, tmp_path / "csv")
+    summ = json.loads((tmp_path / "csv" / "summary.json").read_text(encoding="utf-8"))
+    first = summ["scenarios"][0]
+    ws = openpyxl.load_workbook(tmp_path / "report.xlsx")["statement"]
+    text = [c.value for row in ws.iter_rows(max_row=7) for c in row if c.value]
+    assert any("2017/2196" in t and "Art. 50(1)" in t and "12(6)(b)" in t for t in text)
+    assert any("scenario 'first'" in t and "no metered year" in t for t in text)
+    assert any("lowest cumulative share over the year" in t for t in text)
+    head = [c.value for c in ws[8]]
+    assert "lowest cumulative share over the year %" in head
+    labels = dict(COLUMNS)
+    # the very values summary.json holds for the statement scenario (same rounding)
+    for i, (b, a) in enumerate(zip(first["blocks"], first["annual_statement"])):
+        row = {h: c.value for h, c in zip(head, ws[9 + i])}
+        assert row["scenario"] == first["scenario"] == "first"
+        for k, key in (("armed_mean_pct", "mean_share_pct"), ("armed_min_pct", "min_share_pct"),
+                       ("armed_p5_pct", "p5_share_pct"), ("armed_p95_pct", "p95_share_pct"),
+                       ("pickup_hz", "pickup_hz"), ("delay_s", "delay_s")):
+            assert row[labels[k]] == b[key], k
+        assert row[labels["cumulative_mean_pct"]] == a["cumulative_mean_pct"]
+        assert row[labels["lowest_cumulative_pct"]] == a["cumulative_min_pct"]
+        assert row[labels["armed_min_local_time"]] == b["min_share_local_time"]
+    labels_at = {ws.cell(r, 1).value: r for r in range(11, ws.max_row + 1)
+                 if ws.cell(r, 1).value}
+    for word in ("prepared by", "checked by", "date"):
+        r = labels_at[word]
+        assert all(ws.cell(r, j).value is None for j in range(2, 6))
 
 
 # ============================================================================================

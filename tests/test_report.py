@@ -164,8 +164,8 @@ def test_parse_formats_rejects(text):
 # ============================================================================================
 # workbook
 # ============================================================================================
-SHEETS = ["summary", "scenarios", "blocks", "feeders", "relay_changes", "intervals", "windows",
-          "exports", "substations"]
+SHEETS = ["summary", "statement", "scenarios", "blocks", "feeders", "relay_changes", "intervals",
+          "windows", "exports", "substations"]
 
 
 def test_workbook_sheets_and_headers(case):

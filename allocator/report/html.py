@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from ..check import Check, ScenarioChecks, annual_statement, exporting_feeders
+from ..check import Check, ScenarioChecks, exporting_feeders
 from ..export import as_set, stacked
 from . import content
 
@@ -253,29 +253,6 @@ def _exports(check: ScenarioChecks, limit: int = 15) -> str:
     return note + _table(heads, rows)
 
 
-def _statement(cs: ScenarioChecks) -> str:
-    from ..check import statement_check
-
-    check = statement_check(cs)
-    heads = ["block", "frequency setting (pickup) Hz", "time delay s",
-             "netted demand disconnected, mean %", "netted demand disconnected, minimum %",
-             "cumulative mean %", "cumulative minimum %"]
-    rows = []
-    for r in annual_statement(check):
-        rows.append(f"<tr><td>{esc(r['block'])}</td>{_td(r['pickup_hz'], '.3f')}"
-                    f"{_td(r['delay_s'], '.3f')}"
-                    f"{_td(r['netted_demand_disconnected_mean_pct'], '.2f')}"
-                    f"{_td(r['netted_demand_disconnected_min_pct'], '.2f')}"
-                    f"{_td(r['cumulative_mean_pct'], '.2f')}{_td(r['cumulative_min_pct'], '.2f')}"
-                    "</tr>")
-    return ("<p>For the annual notification under Regulation (EU) 2017/2196 (network code on "
-            "emergency and restoration), Art. 50(1): each frequency setting at which netted "
-            "demand disconnection starts and the percentage of netted demand disconnected at "
-            "it, as the mean and the minimum over the study year. Cumulative = this block and "
-            f"all blocks that trip before it. Scenario: {esc(check.scenario)}.</p>"
-            + _table(heads, rows))
-
-
 def _kv(pairs: list[tuple[str, str]]) -> str:
     return ('<dl class="kv">' + "".join(f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>" for k, v in pairs)
             + "</dl>")
@@ -413,8 +390,9 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
     parts.append(_exports(cs))
     parts.append("<h2>Relay changes (field work list)</h2>")
     parts.append(_relay_changes(check, previous_idx))
-    parts.append("<h2>Annual statement: frequency settings and netted demand disconnected</h2>")
-    parts.append(_statement(cs))
+    from . import fieldhtml
+
+    parts.append(fieldhtml.statement_section(cs))
     if frequency:
         parts.append("<h2>Frequency indication (single-bus model)</h2>")
         parts.append(_frequency(frequency))
