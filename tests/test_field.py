@@ -1,5 +1,5 @@
 """Checks of the field outputs: the annual statement (allocator.statement), the relay work
-list (allocator.worklist) and the visit order (allocator.visits).
+list (allocator.worklist), the visit order (allocator.visits) and their files and sheets.
 
 Outside references used here, each named again beside its check:
 
@@ -16,6 +16,12 @@ Outside references used here, each named again beside its check:
   statement's citation.
 * ISO 8601 local time with the UTC offset (``2025-06-02T03:00+02:00``); Europe/Berlin is
   UTC+2 in June (EU summer time, Directive 2000/84/EC; from memory).
+* ECMA-376 Office Open XML, Part 1, SpreadsheetML page setup (section numbers from memory):
+  ``pageSetup`` (§18.3.1.63: ``orientation``, ``paperSize`` with 9 = A4 and 1 = Letter,
+  ``fitToWidth``, ``fitToHeight`` with 0 = as many pages as needed), ``pageSetUpPr``
+  (§18.3.1.65: ``fitToPage``), ``pane`` (§18.3.1.66: the frozen header) and the defined name
+  ``_xlnm.Print_Titles`` (§18.2.5: rows repeated on every printed page); read back with
+  openpyxl and from the package's XML.
 * The input workbook's own blocks sheet, read with openpyxl: the settings the work list
   must show.
 
@@ -27,6 +33,9 @@ from __future__ import annotations
 import itertools
 import json
 import math
+import re
+import zipfile
+from pathlib import Path
 
 import numpy as np
 import openpyxl
@@ -34,8 +43,9 @@ import pandas as pd
 import pytest
 
 from allocator.check import run_checks
-from allocator.export import write_check_files
+from allocator.export import write_check_files, write_field_files
 from allocator.report import write_reports
+from allocator.report import figures as F
 from allocator.statement import COLUMNS, statement_table
 from allocator.visits import EXACT_MAX_SUBSTATIONS, order_words, visit_order, visit_order_table
 from allocator.workbook import read_study
@@ -568,3 +578,167 @@ def test_work_list_hand_arithmetic(wl_case):
     assert set(wl["mw_scenario"]) == {"only"}
     for col in ("done_by", "date", "checked_by"):
         assert set(wl[col]) == {""}
+
+
+def test_work_list_and_visit_files(wl_case, tmp_path):
+    """work_list.csv and visit_order.csv read back with pandas: one row per relay, blank
+    sign-off columns, the visit numbers of visit_order.csv."""
+    study, cs, _ = wl_case
+    order = write_field_files(cs, study.current_assignment, tmp_path / "o")
+    wl = pd.read_csv(tmp_path / "o" / "work_list.csv", keep_default_na=False)
+    vo = pd.read_csv(tmp_path / "o" / "visit_order.csv", keep_default_na=False)
+    assert len(wl) == 3 and list(wl.columns) == list(WORK_LIST_COLUMNS)
+    assert (wl[["done_by", "date", "checked_by"]] == "").all().all()
+    assert list(vo["visit"]) == [0, 1, 2]
+    by_sub = dict(zip(vo["substation"], vo["visit"]))
+    assert all(by_sub[s] == v for s, v in zip(wl["visit_substation"], wl["visit"]))
+    assert order.keeps_band  # bands 0..100 %: every state is in band
+    assert set(vo["status"][1:]) == {"in band"}
+
+
+# ============================================================================================
+# the sheets: print setup read back (ECMA-376 SpreadsheetML page setup, see the docstring)
+# ============================================================================================
+def _sheet_xml(path: Path, name: str) -> tuple[str, str]:
+    with zipfile.ZipFile(path) as z:
+        wb = z.read("xl/workbook.xml").decode("utf-8")
+        rels = z.read("xl/_rels/workbook.xml.rels").decode("utf-8")
+        rid = re.search(rf'<sheet[^>]*name="{name}"[^>]*r:id="([^"]+)"', wb).group(1)
+        target = re.search(rf'Id="{rid}"[^>]*Target="([^"]+)"', rels) or \
+            re.search(rf'Target="([^"]+)"[^>]*Id="{rid}"', rels)
+        return z.read("xl/" + target.group(1).lstrip("/").removeprefix("xl/")).decode(), wb
+
+
+def test_field_sheets_print_setup(wl_case, tmp_path):
+    study, cs, _ = wl_case
+    write_reports(cs, tmp_path, previous_idx=study.current_assignment, formats={"xlsx"})
+    path = tmp_path / "report.xlsx"
+    wb = openpyxl.load_workbook(path)
+    assert wb.sheetnames[:4] == ["summary", "statement", "work_list", "visit_order"]
+    for name, title_row, freeze in (("work_list", 1, "C2"), ("visit_order", 1, "A2"),
+                                    ("statement", 8, None)):
+        ws = wb[name]
+        # ECMA-376 pageSetup / pageSetUpPr (openpyxl's reading of them)
+        assert ws.page_setup.orientation == "landscape"
+        assert int(ws.page_setup.paperSize) == 9  # A4
+        assert int(ws.page_setup.fitToWidth) == 1 and int(ws.page_setup.fitToHeight) == 0
+        assert ws.sheet_properties.pageSetUpPr.fitToPage is True
+        assert ws.print_title_rows == f"${title_row}:${title_row}"
+        assert ws.freeze_panes == freeze
+        # and the package's own XML: the same attributes and the defined name
+        xml, wbxml = _sheet_xml(path, name)
+        setup = re.search(r"<pageSetup [^>]*>", xml).group(0)
+        for attr in ('orientation="landscape"', 'paperSize="9"', 'fitToWidth="1"',
+                     'fitToHeight="0"'):
+            assert attr in setup, (name, attr)
+        assert re.search(r'<pageSetUpPr [^>]*fitToPage="1"', xml)
+        sid = wb.sheetnames.index(name)
+        assert re.search(rf'<definedName name="_xlnm.Print_Titles" localSheetId="{sid}">'
+                         rf"'{name}'!\${title_row}:\${title_row}</definedName>", wbxml)
+        if freeze:
+            assert re.search(r'<pane [^>]*state="frozen"', xml)
+    ws = wb["work_list"]
+    head = [c.value for c in ws[1]]
+    assert head[:6] == ["visit", "visit at substation", "substation(s)", "feeder(s)",
+                        "relay kind", "action"]
+    assert head[-3:] == ["done by", "date", "checked by"]
+    assert "MW moved: mean (only)" in head
+    feeders = [ws.cell(r, 4).value for r in range(2, ws.max_row + 1)]
+    assert sorted(feeders) == ["G1a; G1b", "H", "K"]
+    assert all(ws.cell(r, j).value is None for r in range(2, 5) for j in (22, 23, 24))
+
+
+def test_field_sheets_without_changes(wl_case, tmp_path):
+    """A check of the allocation in service now: one row on each field sheet says so."""
+    study, _, _ = wl_case
+    cs = run_checks(study, [_year(study, WL_NET, np.full(3, 100.0), "only")],
+                    study.current_assignment)
+    write_reports(cs, tmp_path, formats={"xlsx"})
+    wb = openpyxl.load_workbook(tmp_path / "report.xlsx")
+    for name, words in (("work_list", "No relay changes: this report checks the allocation "
+                                      "in service now."),
+                        ("visit_order", "No visits")):
+        ws = wb[name]
+        assert ws.max_row == 2 and ws["A2"].value.startswith(words)
+    write_reports(cs, tmp_path / "same", previous_idx=study.current_assignment,
+                  formats={"xlsx"})
+    ws = openpyxl.load_workbook(tmp_path / "same" / "report.xlsx")["work_list"]
+    assert ws.max_row == 2 and "every relay keeps" in ws["A2"].value
+
+
+def test_visit_order_figure_and_html(wl_case, tmp_path):
+    study, cs, _ = wl_case
+    paths = write_reports(cs, tmp_path, previous_idx=study.current_assignment,
+                          formats={"png", "html"})
+    p = paths["png:visit_order"]
+    from matplotlib import image as mpimg
+
+    img = mpimg.imread(p)
+    w, h = F.visit_order_size(2)
+    assert img.shape[:2] == (round(h * F.DPI), round(w * F.DPI))
+    assert float(img[..., :3].var()) > 1e-3
+    text = (tmp_path / "report.html").read_text(encoding="utf-8")
+    assert 'id="work-list"' in text and 'id="visit-order"' in text and 'id="statement"' in text
+    assert "G1a; G1b" in text and "SUBP; SUBQ" in text
+
+
+# ============================================================================================
+# the command line
+# ============================================================================================
+@pytest.fixture
+def cli_wb(tmp_path, monkeypatch):
+    from wbfactory import base_feeders, flat_profiles
+
+    monkeypatch.chdir(tmp_path)
+    feeders = base_feeders(10)  # peaks 1..10 MW at SUB0 / SUB1
+    for i, b in ((0, "S1"), (4, "S1"), (1, "S2"), (3, "S2")):
+        feeders[i]["current_block"] = b
+    return write_workbook(tmp_path / "study.xlsx", settings=dict(BASE_SETTINGS),
+                          feeders=feeders, profiles=flat_profiles())
+
+
+def test_cli_check_writes_field_files(cli_wb, tmp_path, monkeypatch, capsys):
+    from allocator.cli import main
+
+    monkeypatch.setenv("COLUMNS", "80")
+    assert main(["check", str(cli_wb), "--out", "now", "--format", "none"]) == 0
+    assert (tmp_path / "now" / "statement.csv").is_file()
+    assert not (tmp_path / "now" / "work_list.csv").exists()
+    assert not (tmp_path / "now" / "visit_order.csv").exists()
+    out = capsys.readouterr().out
+    assert "Annual statement to the system operator" in out and "Visit order" not in out
+    # the same allocation given as a file: still no work list
+    same = tmp_path / "same.csv"
+    same.write_text("feeder_id,block\nF00,S1\nF04,S1\nF01,S2\nF03,S2\n")
+    assert main(["check", str(cli_wb), "--assignment", str(same), "--out", "same",
+                 "--format", "none", "--quiet"]) == 0
+    assert not (tmp_path / "same" / "work_list.csv").exists()
+    # F04 S1 -> S2 (SUB0), F05 armed in S1 (SUB1), F03 disarmed (SUB1)
+    moved = tmp_path / "moved.csv"
+    moved.write_text("feeder_id,block\nF00,S1\nF04,S2\nF01,S2\nF05,S1\n")
+    assert main(["check", str(cli_wb), "--assignment", str(moved), "--out", "moved",
+                 "--format", "none"]) == 0
+    wl = pd.read_csv(tmp_path / "moved" / "work_list.csv", keep_default_na=False)
+    assert sorted(zip(wl["feeders"], wl["action"], wl["now_block"], wl["new_block"])) == [
+        ("F03", "disarm", "S2", "unarmed"), ("F04", "move", "S1", "S2"),
+        ("F05", "arm", "unarmed", "S1")]
+    vo = pd.read_csv(tmp_path / "moved" / "visit_order.csv", keep_default_na=False)
+    assert list(vo["visit"]) == [0, 1, 2] and sorted(vo["substation"][1:]) == ["SUB0", "SUB1"]
+    out = capsys.readouterr().out
+    assert "Visit order" in out and max(len(x) for x in out.splitlines()) <= 80
+    assert "…" not in out
+    for v in vo["worst_violation_pp"]:
+        assert f"{v:.2f}" in out
+
+
+def test_visit_order_without_any_valid_interval(wl_case, tmp_path):
+    """Netted demand never above 0: the visits are listed, not judged, and nothing claims
+    the band is kept; the reports are still written (no visit-order figure)."""
+    study, _, _ = wl_case
+    cs = run_checks(study, [_year(study, WL_NET, np.zeros(3), "only")], WL_NEW)
+    order = visit_order(cs, study.current_assignment)
+    assert not order.judged and not order.keeps_band and order.method == "none"
+    assert {order.status(s) for s in order.steps[1:]} == {"not judged"}
+    assert "not judged" in order_words(order)
+    paths = write_reports(cs, tmp_path, previous_idx=study.current_assignment)
+    assert "png:visit_order" not in paths and "xlsx" in paths

@@ -69,6 +69,10 @@ SHEETS = {
     "summary": "verdicts, plan status, worst windows, what the fills mean, cautions",
     "statement": "the annual statement to the system operator (Regulation (EU) 2017/2196 "
                  "Art. 50(1)), with blank prepared-by / checked-by fields",
+    "work_list": "one row per relay whose setting changes, in visit order: the setting now "
+                 "and after, MW moved, blank sign-off columns; prints one page wide",
+    "visit_order": "the substation visits in order and the worst band violation over every "
+                   "scenario after each",
     "scenarios": "every scenario judged: how its year was made and its verdict",
     "blocks": "per scenario, block settings and the year's statistics (the values of "
               "summary.json)",

@@ -1,5 +1,6 @@
 """The field sheets of report.xlsx: ``statement`` (the annual statement to the system
-operator).
+operator), ``work_list`` (one row per relay to change, in visit order) and ``visit_order``
+(the worst violation after each substation visit).
 
 The tables are small, so they are written cell by cell with openpyxl (text always as text,
 never a formula: :func:`allocator.report.xlsxtable.put_text`).  Every sheet is set up for
@@ -17,6 +18,8 @@ from openpyxl.utils import get_column_letter
 
 from .. import statement as stm
 from ..check import ScenarioChecks
+from ..visits import VisitOrder, order_words, visit_order, visit_order_table
+from ..worklist import work_list_table
 from .content import json_number
 from .xlsxtable import HEADER_ALIGN, HEADER_BORDER, HEADER_FILL, HEADER_FONT, put, put_text
 
@@ -25,7 +28,7 @@ BOLD = Font(bold=True)
 WRAP = Alignment(wrap_text=True, vertical="top")
 BOX = Border(bottom=Side(style="thin", color="808080"))
 
-#: where the new sheet goes: right after the summary
+#: where the new sheets go: right after the summary
 AFTER = "summary"
 
 
@@ -93,9 +96,77 @@ def statement_sheet(wb, cs: ScenarioChecks) -> None:
     ws.freeze_panes = None  # the heading stays at the top of a short sheet anyway
 
 
+WORK_HEADS = (
+    ("visit", "visit", "0"), ("visit_substation", "visit at substation", None),
+    ("substations", "substation(s)", None), ("feeders", "feeder(s)", None),
+    ("relay", "relay kind", None), ("action", "action", None),
+    ("now_block", "now: block", None), ("now_pickup_hz", "now: pickup Hz", "0.000"),
+    ("now_delay_s", "now: time delay s", "0.000"),
+    ("now_rocof_hz_per_s", "now: RoCoF setting Hz/s", "0.00"),
+    ("now_rocof_arm_hz", "now: RoCoF arming Hz", "0.00"),
+    ("new_block", "new: block", None), ("new_pickup_hz", "new: pickup Hz", "0.000"),
+    ("new_delay_s", "new: time delay s", "0.000"),
+    ("new_rocof_hz_per_s", "new: RoCoF setting Hz/s", "0.00"),
+    ("new_rocof_arm_hz", "new: RoCoF arming Hz", "0.00"),
+    ("moved_mean_mw", "MW moved: mean", "0.00"),
+    ("moved_mw_at_block_lowest", "MW moved at the block's lowest share", "0.00"),
+    ("block_lowest_local_time", "time of that lowest share (local)", None),
+    ("customers", "customers", "0"), ("priority", "priority site", None),
+    ("done_by", "done by", None), ("date", "date", None), ("checked_by", "checked by", None),
+)
+
+
+def work_list_sheet(wb, cs: ScenarioChecks, previous_idx, order: VisitOrder | None) -> None:
+    ws = wb.create_sheet("work_list")
+    heads = [h for _, h, _ in WORK_HEADS]
+    fmts = [f for _, _, f in WORK_HEADS]
+    df = None if previous_idx is None else work_list_table(cs, previous_idx, order)
+    if df is None or df.empty:
+        msg = ("No relay changes: this report checks the allocation in service now."
+               if df is None else "No relay changes: every relay keeps the setting it has now.")
+        rows = [(msg,) + (None,) * (len(heads) - 1)]
+    else:
+        sc = df["mw_scenario"].iloc[0]
+        keys = [k for k, _, _ in WORK_HEADS]
+        for k in ("moved_mean_mw", "moved_mw_at_block_lowest"):
+            heads[keys.index(k)] += f" ({sc})"
+        rows = [tuple(_nan(v) for v in r)
+                for r in df[[k for k, _, _ in WORK_HEADS]].itertuples(index=False)]
+    widths = [6, 14, 14, 16, 12, 8] + [9] * 10 + [9, 10, 18, 9, 10, 12, 10, 12]
+    _grid(ws, 1, heads, rows, fmts, widths)
+    if df is None or df.empty:
+        ws.column_dimensions["A"].width = 60
+    print_setup(ws, 1, len(heads))
+    ws.freeze_panes = "C2"
+
+
+def visit_order_sheet(wb, order: VisitOrder | None) -> None:
+    ws = wb.create_sheet("visit_order")
+    heads = ["visit", "substation", "relays", "feeders", "worst violation after the visit pp",
+             "least room to a band edge pp", "scenario", "block", "band edge", "local time",
+             "status", "over the limit by pp"]
+    fmts = ["0", None, "0", "0", "0.00", "0.00", None, None, None, None, None, "0.00"]
+    if order is None or not order.visits:
+        rows = [("No visits: no relay setting changes.",) + (None,) * (len(heads) - 1)]
+        _grid(ws, 1, heads, rows, fmts)
+        ws.column_dimensions["A"].width = 40
+    else:
+        df = visit_order_table(order)
+        rows = [tuple(_nan(v) for v in x) for x in df.itertuples(index=False)]
+        r = _grid(ws, 1, heads, rows, fmts,
+                  [6, 16, 7, 8, 12, 12, 12, 8, 7, 20, 18, 10]) + 1
+        put_text(ws, r, 1, order_words(order))
+        put_text(ws, r + 1, 1, f"Limit: {order.limit_pp:.2f} pp (the worst violation of the "
+                               "allocation in service now, or 0 when it is in band).")
+    print_setup(ws, 1, len(heads))
+
+
 def field_sheets(wb, cs: ScenarioChecks, previous_idx) -> None:
-    """Add the statement sheet right after the summary."""
+    """Add the statement, work_list and visit_order sheets right after the summary."""
+    order = None if previous_idx is None else visit_order(cs, previous_idx)
     statement_sheet(wb, cs)
+    work_list_sheet(wb, cs, previous_idx, order)
+    visit_order_sheet(wb, order)
     at = wb.sheetnames.index(AFTER) + 1 if AFTER in wb.sheetnames else len(wb.sheetnames)
-    for k, name in enumerate(("statement",)):
+    for k, name in enumerate(("statement", "work_list", "visit_order")):
         wb.move_sheet(name, offset=at + k - wb.sheetnames.index(name))

@@ -208,28 +208,6 @@ def _windows(check: ScenarioChecks) -> str:
     return _table(heads, rows) + more
 
 
-def _relay_changes(check: Check, previous_idx) -> str:
-    if previous_idx is None:
-        return ("<p>No relay changes: this report checks the workbook's current allocation."
-                "</p>")
-    df = content.relay_changes(check, previous_idx)
-    if df.empty:
-        return "<p>No relay changes: every feeder keeps the block it has now.</p>"
-    heads = ["substation", "feeder", "action", "from block", "to block", "new pickup Hz",
-             "new time delay s", "new RoCoF Hz/s", "priority site"]
-    rows = []
-    for r in df.itertuples():
-        rows.append(f"<tr><td>{esc(r.substation)}</td><td>{esc(r.feeder_id)}</td>"
-                    f"<td>{esc(r.action)}</td><td>{esc(r.from_block)}</td>"
-                    f"<td>{esc(r.to_block)}</td>{_td(r.pickup_hz, '.3f')}"
-                    f"{_td(r.delay_s, '.3f')}{_td(r.rocof_hz_per_s, '.2f')}"
-                    f"<td>{esc(r.priority)}</td></tr>")
-    n_sub = df["substation"].nunique()
-    return (f"<p>{len(df)} feeders at {n_sub} substations change block. Sorted by substation, "
-            "then feeder. 'disarm' means the feeder's UFLS trip is taken out of the scheme."
-            "</p>" + _table(heads, rows))
-
-
 def _exports(check: ScenarioChecks, limit: int = 15) -> str:
     df = stacked(check, exporting_feeders)
     if df.empty or "substation" not in df.columns:
@@ -388,10 +366,9 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
     parts.append(_windows(cs))
     parts.append("<h2>Exporting feeders</h2>")
     parts.append(_exports(cs))
-    parts.append("<h2>Relay changes (field work list)</h2>")
-    parts.append(_relay_changes(check, previous_idx))
     from . import fieldhtml
 
+    parts.append(fieldhtml.work_sections(cs, previous_idx))
     parts.append(fieldhtml.statement_section(cs))
     if frequency:
         parts.append("<h2>Frequency indication (single-bus model)</h2>")
