@@ -742,3 +742,29 @@ def test_visit_order_without_any_valid_interval(wl_case, tmp_path):
     assert "not judged" in order_words(order)
     paths = write_reports(cs, tmp_path, previous_idx=study.current_assignment)
     assert "png:visit_order" not in paths and "xlsx" in paths
+
+
+def test_console_visit_table_is_short_and_names_the_break(monkeypatch):
+    """More visits than the console shows: the table stops after SHOWN visits but still
+    lists the first one that breaks the band, and says how many are left out."""
+    import io
+
+    from rich.console import Console
+
+    import allocator.fieldconsole as FC
+    from allocator.visits import VisitOrder, VisitStep, Visit
+
+    n = FC.SHOWN + 5
+    steps = [VisitStep(0, "", 0, 0, -1.0, "a", "B1", "2025-06-02T00:00+02:00", "min")]
+    steps += [VisitStep(i, f"S{i:02d}", 1, 1, 0.75 if i == n else -0.5, "a", "B1",
+                        "2025-06-02T00:00+02:00", "min") for i in range(1, n + 1)]
+    order = VisitOrder(tuple(Visit(s.substation, ()) for s in steps[1:]), tuple(steps),
+                       "greedy", False, -1.0, ("a",), ())
+    buf = io.StringIO()
+    FC.visit_order_table(Console(file=buf, width=80), order)
+    text = buf.getvalue()
+    shown = [f"S{i:02d}" for i in range(1, n + 1) if f"S{i:02d}" in text]
+    assert shown == [f"S{i:02d}" for i in range(1, FC.SHOWN + 1)] + [f"S{n:02d}"]
+    assert f"{n} visits in all, {n - FC.SHOWN - 1} not shown" in text
+    assert f"Visit {n} (S{n:02d}) breaks the band" in " ".join(text.split())
+    assert "0.75" in text
