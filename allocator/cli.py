@@ -111,13 +111,22 @@ def cmd_check(args, console) -> int:
     from .safeio import atomic_dir
 
     out, study, years, chk, warns = _checked_allocation(args, console, "check")
+    order = None
     with atomic_dir(out) as tmp:
         write_check_files(chk, tmp)
+        if args.assignment and (chk.block_idx != study.current_assignment).any():
+            from .export import write_field_files
+
+            order = write_field_files(chk, study.current_assignment, tmp)
         _reports(args, chk, tmp,
                  previous_idx=study.current_assignment if args.assignment else None)
     verdict_table(console, chk)
     worst_windows(console, chk)
     statement_table(console, chk)
+    if order is not None:
+        from .fieldconsole import visit_order_table
+
+        visit_order_table(console, order)
     warnings(console, list(warns) + _year_notes(years))
     console.print(f"Wrote {out}/")
     return EXIT_OK
@@ -246,11 +255,16 @@ def cmd_plan(args, console) -> int:
 
     cur, cur_warns = current_assignment(study)
     before = run_checks(study, years, cur, cur_warns)
+    from .export import write_field_files
+    from .fieldconsole import visit_order_table
+
     with atomic_dir(out) as tmp:
         outcome, chk, info = _plan_into(args, console, study, years, tmp, args.quiet)
+        order = write_field_files(chk, study.current_assignment, tmp)
         _reports(args, chk, tmp, previous_idx=study.current_assignment,
                  plan_info=info, before=before)
     _print_plan(console, outcome, chk, info)
+    visit_order_table(console, order)
     console.print(f"Wrote {out}/")
     return EXIT_OK
 
@@ -434,7 +448,12 @@ def cmd_demo(args, console) -> int:
             outcome, chk, info = _plan_into(args, console, study, years, tmp, True)
         with step("check the plan"):
             write_check_files(chk, tmp)
+            from .export import write_field_files
+            from .fieldconsole import visit_order_table
+
+            order = write_field_files(chk, study.current_assignment, tmp)
         _print_plan(console, outcome, chk, info)
+        visit_order_table(console, order)
         with step("frequency indication"):
             fs_before, fsum_before = _frequency_into(study, before, tmp / "frequency" /
                                                      "current", None, True, console)

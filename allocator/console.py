@@ -11,7 +11,7 @@ from rich.markup import escape
 from rich.table import Table
 from rich.text import Text
 
-from .check import Check, annual_statement
+from .check import Check
 from .domain import Study
 
 
@@ -159,20 +159,22 @@ def scenario_table(console: Console, cs) -> None:
 
 
 def statement_table(console: Console, checks) -> None:
-    from .check import statement_check
+    """The annual statement (:func:`allocator.statement.statement_table`)."""
     from .export import as_set
+    from .statement import statement_basis
+    from .statement import statement_table as table
 
-    check = statement_check(as_set(checks))
-    rows = [(escape(r["block"]), f"{r['pickup_hz']:.2f}", f"{r['delay_s']:.2f}",
-             f"{r['netted_demand_disconnected_mean_pct']:.1f}",
-             f"{r['netted_demand_disconnected_min_pct']:.1f}",
-             f"{r['cumulative_mean_pct']:.1f}", f"{r['cumulative_min_pct']:.1f}")
-            for r in annual_statement(check)]
-    print_table(console, "Annual statement: frequency setting and % of netted demand "
-                "disconnected (Regulation (EU) 2017/2196 Art. 50(1))",
-                ["block", "pickup Hz", "delay s", "mean %", "lowest %", "cumulative mean %",
-                 "lowest cumulative share over the year %"], rows, right=set(range(1, 7)),
-                caption=f"scenario {escape(check.scenario)}")
+    cs = as_set(checks)
+    rows = [(escape(r.block), f"{r.pickup_hz:.2f}", f"{r.delay_s:.2f}",
+             f"{r.armed_mean_pct:.1f}", f"{r.armed_min_pct:.1f}", f"{r.armed_p5_pct:.1f}",
+             f"{r.armed_p95_pct:.1f}", f"{r.cumulative_mean_pct:.1f}",
+             f"{r.lowest_cumulative_pct:.1f}")
+            for r in table(cs).itertuples()]
+    print_table(console, "Annual statement to the system operator: pickup frequency and % of "
+                "netted demand armed (Regulation (EU) 2017/2196 Art. 50(1))",
+                ["block", "pickup Hz", "delay s", "mean %", "lowest %", "P5 %", "P95 %",
+                 "cumulative mean %", "lowest cumulative share over the year %"], rows,
+                right=set(range(1, 9)), caption=escape(statement_basis(cs)))
 
 
 def worst_windows(console: Console, check, n: int = 5) -> None:

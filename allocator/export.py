@@ -15,9 +15,12 @@ import pandas as pd
 from .check import (Check, ScenarioChecks, by_substation, exporting_feeders, low_load_view,
                     summary_set_dict)
 from .safeio import write_csv, write_json
+from .statement import statement_table
 
 CHECK_FILES = ("summary.json", "armed_load.csv", "shortfalls.csv", "exporting_feeders.csv",
-               "by_substation.csv", "low_load.csv")
+               "by_substation.csv", "low_load.csv", "statement.csv")
+#: written beside a check when its allocation differs from the one in service now
+FIELD_FILES = ("work_list.csv", "visit_order.csv")
 
 
 def as_set(checks: Check | ScenarioChecks) -> ScenarioChecks:
@@ -40,7 +43,7 @@ def stacked(checks: ScenarioChecks, table) -> pd.DataFrame:
 
 def write_check_files(checks: Check | ScenarioChecks, out: Path) -> dict[str, Path]:
     """summary.json, armed_load.csv, shortfalls.csv, exporting_feeders.csv,
-    by_substation.csv, low_load.csv.  Returns name → path."""
+    by_substation.csv, low_load.csv, statement.csv.  Returns name → path."""
     cs = as_set(checks)
     out.mkdir(parents=True, exist_ok=True)
     paths = {name.split(".")[0]: out / name for name in CHECK_FILES}
@@ -50,4 +53,20 @@ def write_check_files(checks: Check | ScenarioChecks, out: Path) -> dict[str, Pa
     write_csv(stacked(cs, exporting_feeders), paths["exporting_feeders"])
     write_csv(stacked(cs, by_substation), paths["by_substation"])
     write_csv(stacked(cs, low_load_view), paths["low_load"])
+    write_csv(statement_table(cs), paths["statement"])
     return paths
+
+
+def write_field_files(checks: Check | ScenarioChecks, previous_idx, out: Path):
+    """work_list.csv and visit_order.csv from ``previous_idx`` (in service now) to the
+    checked allocation (see :mod:`allocator.worklist`, :mod:`allocator.visits`).
+    Returns the :class:`~allocator.visits.VisitOrder`."""
+    from .visits import visit_order, visit_order_table
+    from .worklist import work_list_table
+
+    cs = as_set(checks)
+    order = visit_order(cs, previous_idx)
+    out.mkdir(parents=True, exist_ok=True)
+    write_csv(work_list_table(cs, previous_idx, order), out / FIELD_FILES[0])
+    write_csv(visit_order_table(order), out / FIELD_FILES[1])
+    return order

@@ -64,6 +64,14 @@ def test_plan_writes_files_and_check(wb, tmp_path, monkeypatch):
     assert info["worst_violation_pp"] == pytest.approx(summary["worst_violation_pp"], abs=1e-9)
     changed = (plan["block"] != plan["previous_block"]).sum()
     assert info["feeders_changed"] == changed
+    # the field files: statement with the check, work list (one row per relay changed) and
+    # visit order (one row per substation visited, after the network now) beside plan.csv
+    assert (out / "check" / "statement.csv").is_file()
+    wl = pd.read_csv(out / "work_list.csv", keep_default_na=False)
+    vo = pd.read_csv(out / "visit_order.csv", keep_default_na=False)
+    assert len(wl) == info["relays_changed"]
+    assert sorted(set(wl["visit"])) == list(range(1, len(vo)))
+    assert set(wl["visit_substation"]) == set(vo["substation"][1:])
     # the planned assignment is accepted by `check --assignment`
     assert main(["check", str(wb), "--assignment", str(out / "plan.csv"), "--out",
                  str(tmp_path / "recheck"), "--format", "none", "--quiet"]) == 0
@@ -77,9 +85,14 @@ def test_demo_whole_job(tmp_path, monkeypatch, capsys):
     assert main(["demo", "--time-limit", "15"]) == 0
     out = tmp_path / "outputs" / "demo"
     for name in ("report.html", "report.xlsx", "summary.json", "plan.csv", "plan.json",
-                 "year_summary.csv", "armed_load.csv"):
+                 "year_summary.csv", "armed_load.csv", "statement.csv", "work_list.csv",
+                 "visit_order.csv"):
         assert (out / name).is_file(), name
+    import openpyxl
+
+    names = openpyxl.load_workbook(out / "report.xlsx", read_only=True).sheetnames
+    assert {"statement", "work_list", "visit_order"} <= set(names)
     assert any((out / "figures").glob("*.png"))
     text = capsys.readouterr().out
-    assert "Verdict before: NOT COMPLIANT" in text
+    assert "Verdict before: NOT COMPLIANT" in text and "Visit order" in text
     assert "report.html" in text and "report.xlsx" in text

@@ -164,7 +164,8 @@ def test_parse_formats_rejects(text):
 # ============================================================================================
 # workbook
 # ============================================================================================
-SHEETS = ["summary", "scenarios", "blocks", "feeders", "relay_changes", "intervals", "windows",
+SHEETS = ["summary", "statement", "work_list", "visit_order", "scenarios", "blocks", "feeders",
+          "relay_changes", "intervals", "windows",
           "exports", "substations"]
 
 
@@ -577,6 +578,49 @@ def test_html_content(case):
         assert html.escape(c) in text
 
 
+def _section(text: str, anchor: str) -> str:
+    i = text.index(f'id="{anchor}"')
+    j = text.find("<h2", i)
+    return text[i:j if j > 0 else len(text)]
+
+
+def _cells(section: str) -> list[list[str]]:
+    """Data rows of the tables in a page section: each cell's text, entities decoded."""
+    rows = []
+    for tr in re.findall(r"<tr>(.*?)</tr>", section, re.S):
+        cells = [html.unescape(re.sub(r"<[^>]+>", "", c))
+                 for c in re.findall(r"<td[^>]*>(.*?)</td>", tr, re.S)]
+        if cells:
+            rows.append(cells)
+    return rows
+
+
+def _check_field_sections(text: str, plan_case) -> None:
+    """The statement and the work list as a reader of the page sees them: the statement's
+    rows carry each block's pickup, mean and lowest share and lowest cumulative share (the
+    check's own statistics; the cumulative share summed here from the block shares), and the
+    work list one row per changed feeder (no trip groups here) with the action and the
+    blocks now and new, as the test's plan made them."""
+    chk, study, new = plan_case["check"], plan_case["study"], plan_case["new"]
+    rows = _cells(_section(text, "statement"))
+    assert [r[0] for r in rows] == [b.name for b in chk.blocks]
+    cum = np.cumsum(chk.share_pct[:, chk.valid], axis=0).min(axis=1)
+    for r, s, c in zip(rows, chk.stats, cum):
+        assert r[1] == f"{s.pickup_hz:.3f}"
+        assert r[5] == f"{s.mean_share_pct:.2f}" and r[6] == f"{s.min_share_pct:.2f}"
+        assert r[7] == s.min_share_local_time
+        assert r[11] == f"{c:.2f}"
+    rows = _cells(_section(text, "work-list"))
+    names = study.block_names
+    word = lambda b: names[b] if b >= 0 else "unarmed"  # noqa: E731
+    cur = study.current_assignment
+    want = sorted((fid, "arm" if cur[i] < 0 else "disarm" if new[i] < 0 else "move",
+                   word(cur[i]), word(new[i]))
+                  for i, fid in enumerate(study.feeder_ids) if cur[i] != new[i])
+    assert sorted((r[2], r[4], r[5], r[10]) for r in rows) == want
+    assert "Visit order" in text and "visit-order" in text
+
+
 def test_html_plan(plan_case):
     text = (plan_case["out"] / "report.html").read_text(encoding="utf-8")
     assert "Current allocation (before)" in text and "Planned allocation (after)" in text
@@ -584,6 +628,7 @@ def test_html_plan(plan_case):
     assert html.escape(MARKUP_ID) in text and MARKUP_ID not in text
     assert html.escape(FORMULA_ID) in text
     assert "field work list" in text
+    _check_field_sections(text, plan_case)
     _check_offline(text)
 
 
@@ -678,8 +723,9 @@ def test_html_in_headless_chromium(plan_case, tmp_path):
     the machine) and a resolver that resolves nothing.  The browser's own service traffic
     (update and account endpoints) is learnt from a run on an empty page; the report run may
     reach no host beyond that.  A control page with one external image proves the trap
-    sees page requests.  Then: the DOM after loading holds the verdict and no resource
-    reference other than data: URIs, and the screenshot is not blank."""
+    sees page requests.  Then: the DOM after loading holds the verdict, the annual statement
+    and the relay work list with the plan's values, and no resource reference other than
+    data: URIs, and the screenshot is not blank."""
     exe = _chromium()
     if exe is None:
         if os.environ.get("UFLS_REQUIRE_BROWSER") == "1":
@@ -722,6 +768,8 @@ def test_html_in_headless_chromium(plan_case, tmp_path):
     chk = plan_case["check"]
     assert ("NOT COMPLIANT" if not chk.compliant else "COMPLIANT") in dom
     assert "Planned allocation (after)" in dom
+    # the statement and the work list as the browser built them
+    _check_field_sections(dom, plan_case)
     for ref in _resource_refs(dom):
         assert ref.startswith("data:"), ref[:60]
     assert shot.exists(), r.stderr.decode("utf-8", "replace")[-2000:]

@@ -90,7 +90,8 @@ def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
         from .figures import render_figures
 
         fig_dir = out / "figures" if "png" in formats else None
-        figs = render_figures(check, fig_dir, before=before, fc=fc)
+        figs = render_figures(check, fig_dir, before=before, fc=fc,
+                              previous_idx=previous_idx)
         if fig_dir is not None:
             for f in figs:
                 written[f"png:{f.name}"] = f.path

@@ -67,6 +67,12 @@ SHARE_KEYS = ("min_share_pct", "p1_share_pct", "p5_share_pct", "mean_share_pct",
 
 SHEETS = {
     "summary": "verdicts, plan status, worst windows, what the fills mean, cautions",
+    "statement": "the annual statement to the system operator (Regulation (EU) 2017/2196 "
+                 "Art. 50(1)), with blank prepared-by / checked-by fields",
+    "work_list": "one row per relay whose setting changes, in visit order: the setting now "
+                 "and after, MW moved, blank sign-off columns; prints one page wide",
+    "visit_order": "the substation visits in order and the worst band violation over every "
+                   "scenario after each",
     "scenarios": "every scenario judged: how its year was made and its verdict",
     "blocks": "per scenario, block settings and the year's statistics (the values of "
               "summary.json)",
@@ -501,5 +507,8 @@ def write_workbook(check: Check | ScenarioChecks, path: Path,
               _relay_sheet(wb, first, previous_idx), _intervals_sheet(wb, cs),
               _windows_sheet(wb, cs), _exports_sheet(wb, cs),
               _substations_sheet(wb, cs)]
+    from .fieldsheets import field_sheets
+
+    field_sheets(wb, cs, previous_idx)
     save(wb, path, tables)
     return path

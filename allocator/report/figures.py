@@ -10,6 +10,8 @@
 * ``feeder_classes``: which feeder classes (profiles) make up each block - mean armed MW
   over the year and at the block's worst interval, exports below zero.
 * ``worst_windows``: the worst runs outside a band on the year's timeline.
+* ``visit_order`` (when the report compares with the allocation in service now and relays
+  change): the worst violation after each substation visit.
 
 Figures are drawn on :class:`matplotlib.figure.Figure` objects attached to the Agg canvas
 (``FigureCanvasAgg``) directly.  That is the Agg backend without ``matplotlib.use("Agg")``:
@@ -527,6 +529,51 @@ def worst_windows(cs: ScenarioChecks) -> tuple[Figure, str, str]:
 
 
 # --------------------------------------------------------------------------------------------
+# visit order: the worst violation after each substation visit
+# --------------------------------------------------------------------------------------------
+def visit_order_size(n_visits: int) -> tuple[float, float]:
+    return _snap(min(4.0 + 0.6 * n_visits, 11.0), 4.5)
+
+
+def visit_order_figure(order) -> tuple[Figure, str, str]:
+    """Worst band violation over every scenario (pp) now and after each visit of
+    ``order`` (an :class:`allocator.visits.VisitOrder`), with 0 (every block in band) and
+    the level of the allocation in service now marked; visits that break the band in
+    vermilion with a cross."""
+    steps = order.steps
+    x = np.arange(len(steps))
+    y = np.array([s.worst_violation_pp for s in steps])
+    fig = _new(visit_order_size(len(order.visits)))
+    ax = fig.add_subplot()
+    ax.axhline(0.0, color=palette.GREEN, lw=1.2, ls="solid", label="0: every block in band")
+    ax.axhline(order.limit_pp, color=palette.BEFORE, lw=1.2, ls=(0, (4, 2)),
+               label=f"allocation in service now: {order.limit_pp:.2f} pp")
+    ax.plot(x, y, color=palette.INK, lw=1.4, marker="o", ms=5, label="after the visit")
+    bad = np.array([order.excess_pp(s) > 1e-9 for s in steps])
+    if bad.any():
+        ax.plot(x[bad], y[bad], ls="none", marker="X", ms=10, color=palette.BELOW,
+                mec=palette.INK, mew=0.6, label="breaks the band")
+    ax.set_xticks(x)
+    ax.set_xticklabels(["now"] + [f"{s.visit}\n{s.substation}" for s in steps[1:]],
+                       fontsize=7.5, rotation=0 if len(steps) <= 8 else 45)
+    ax.set_xlabel("visit")
+    ax.set_ylabel("worst violation over every scenario (pp)")
+    top = max(float(y.max()), order.limit_pp, 0.1)
+    ax.set_ylim(-0.05 * top, 1.15 * top)
+    fig.legend(*ax.get_legend_handles_labels(), loc="outside lower center", ncols=4)
+    ax.set_title(f"Worst distance outside a band after each visit ({', '.join(order.scenarios)})",
+                 loc="left")
+    title = "Visit order: worst violation after each visit"
+    caption = ("The worst distance outside any block's band, over every interval of every "
+               "scenario judged, with the relay changes of the visits so far done and the "
+               "rest as in service now. The green line is 0 (every block in band), the grey "
+               "dashed line the allocation in service now; a visit keeps the band when its "
+               "point is on or under the higher of the two. A vermilion cross marks a visit "
+               "that breaks it.")
+    return fig, title, caption
+
+
+# --------------------------------------------------------------------------------------------
 def _weakest(cs: ScenarioChecks, j: int) -> Check:
     """The scenario where block j comes closest to (or goes furthest past) a band edge."""
     return min(cs.checks, key=lambda c: min(c.stats[j].headroom_to_min_pp,
@@ -535,10 +582,12 @@ def _weakest(cs: ScenarioChecks, j: int) -> Check:
 
 def render_figures(check: Check | ScenarioChecks, out_dir: Path | None,
                    before: Check | ScenarioChecks | None = None,
-                   fc: content.FeederContrib | None = None) -> list[FigureFile]:
+                   fc: content.FeederContrib | None = None,
+                   previous_idx: np.ndarray | None = None) -> list[FigureFile]:
     """Render every figure; save PNGs into ``out_dir`` (created) unless it is None.
     Share maps show each block in its weakest scenario; the duration curves every
-    scenario; the average day and feeder classes the first scenario."""
+    scenario; the average day and feeder classes the first scenario.  ``previous_idx``
+    (the allocation in service now) adds the visit-order figure when relays change."""
     from ..export import as_set
 
     cs = as_set(check)
@@ -553,6 +602,12 @@ def render_figures(check: Check | ScenarioChecks, out_dir: Path | None,
              ("average_day", lambda: average_day(first)),
              ("feeder_classes", lambda: feeder_classes(first, fc)),
              ("worst_windows", lambda: worst_windows(cs))]
+    if previous_idx is not None:
+        from ..visits import visit_order
+
+        order = visit_order(cs, previous_idx)
+        if order.visits and order.judged:
+            jobs.append(("visit_order", lambda: visit_order_figure(order)))
     if out_dir is not None:
         out_dir = Path(out_dir)
         out_dir.mkdir(parents=True, exist_ok=True)

@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from ..check import Check, ScenarioChecks, annual_statement, exporting_feeders
+from ..check import Check, ScenarioChecks, exporting_feeders
 from ..export import as_set, stacked
 from . import content
 
@@ -208,28 +208,6 @@ def _windows(check: ScenarioChecks) -> str:
     return _table(heads, rows) + more
 
 
-def _relay_changes(check: Check, previous_idx) -> str:
-    if previous_idx is None:
-        return ("<p>No relay changes: this report checks the workbook's current allocation."
-                "</p>")
-    df = content.relay_changes(check, previous_idx)
-    if df.empty:
-        return "<p>No relay changes: every feeder keeps the block it has now.</p>"
-    heads = ["substation", "feeder", "action", "from block", "to block", "new pickup Hz",
-             "new time delay s", "new RoCoF Hz/s", "priority site"]
-    rows = []
-    for r in df.itertuples():
-        rows.append(f"<tr><td>{esc(r.substation)}</td><td>{esc(r.feeder_id)}</td>"
-                    f"<td>{esc(r.action)}</td><td>{esc(r.from_block)}</td>"
-                    f"<td>{esc(r.to_block)}</td>{_td(r.pickup_hz, '.3f')}"
-                    f"{_td(r.delay_s, '.3f')}{_td(r.rocof_hz_per_s, '.2f')}"
-                    f"<td>{esc(r.priority)}</td></tr>")
-    n_sub = df["substation"].nunique()
-    return (f"<p>{len(df)} feeders at {n_sub} substations change block. Sorted by substation, "
-            "then feeder. 'disarm' means the feeder's UFLS trip is taken out of the scheme."
-            "</p>" + _table(heads, rows))
-
-
 def _exports(check: ScenarioChecks, limit: int = 15) -> str:
     df = stacked(check, exporting_feeders)
     if df.empty or "substation" not in df.columns:
@@ -251,29 +229,6 @@ def _exports(check: ScenarioChecks, limit: int = 15) -> str:
             + (f" The {limit} with the largest negative contribution are listed; all are on "
                "the workbook's exports sheet." if len(df) > limit else "") + "</p>")
     return note + _table(heads, rows)
-
-
-def _statement(cs: ScenarioChecks) -> str:
-    from ..check import statement_check
-
-    check = statement_check(cs)
-    heads = ["block", "frequency setting (pickup) Hz", "time delay s",
-             "netted demand disconnected, mean %", "netted demand disconnected, minimum %",
-             "cumulative mean %", "cumulative minimum %"]
-    rows = []
-    for r in annual_statement(check):
-        rows.append(f"<tr><td>{esc(r['block'])}</td>{_td(r['pickup_hz'], '.3f')}"
-                    f"{_td(r['delay_s'], '.3f')}"
-                    f"{_td(r['netted_demand_disconnected_mean_pct'], '.2f')}"
-                    f"{_td(r['netted_demand_disconnected_min_pct'], '.2f')}"
-                    f"{_td(r['cumulative_mean_pct'], '.2f')}{_td(r['cumulative_min_pct'], '.2f')}"
-                    "</tr>")
-    return ("<p>For the annual notification under Regulation (EU) 2017/2196 (network code on "
-            "emergency and restoration), Art. 50(1): each frequency setting at which netted "
-            "demand disconnection starts and the percentage of netted demand disconnected at "
-            "it, as the mean and the minimum over the study year. Cumulative = this block and "
-            f"all blocks that trip before it. Scenario: {esc(check.scenario)}.</p>"
-            + _table(heads, rows))
 
 
 def _kv(pairs: list[tuple[str, str]]) -> str:
@@ -411,10 +366,10 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
     parts.append(_windows(cs))
     parts.append("<h2>Exporting feeders</h2>")
     parts.append(_exports(cs))
-    parts.append("<h2>Relay changes (field work list)</h2>")
-    parts.append(_relay_changes(check, previous_idx))
-    parts.append("<h2>Annual statement: frequency settings and netted demand disconnected</h2>")
-    parts.append(_statement(cs))
+    from . import fieldhtml
+
+    parts.append(fieldhtml.work_sections(cs, previous_idx))
+    parts.append(fieldhtml.statement_section(cs))
     if frequency:
         parts.append("<h2>Frequency indication (single-bus model)</h2>")
         parts.append(_frequency(frequency))
