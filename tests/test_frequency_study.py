@@ -64,7 +64,7 @@ def test_planted_shortfall_lowers_coverage_and_plan_restores_it(demo):
     low_b2 = next(v for k, v in cover.items() if "lowest_B2" in k)
     typical = next(v for k, v in cover.items() if "typical" in k)
     assert low_b2 < typical
-    outcome = plan_allocation(study, year, time_limit_s=15, max_changes=20)
+    outcome = plan_allocation(study, year, time_limit_s=30, max_changes=20)
     after = run_check(study, year, outcome.block_idx)
     assert after.compliant
     fs2 = run_frequency_study(after)
