@@ -43,9 +43,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .domain import Study
+from .domain import FeederFlag, Study
 from .errors import Collector, InputError, Problem
-from .year import FeederFlag
 
 DEFAULT_MAX_METERED_MB = 500
 TOTAL_ID = "TOTAL"

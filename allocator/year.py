@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from .domain import DAY_TYPES, MINUTES_PER_DAY, Settings, Study
+from .domain import DAY_TYPES, MINUTES_PER_DAY, FeederFlag, Settings, Study
 from .solar import clearsky_pv_pu
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -24,15 +24,6 @@ if TYPE_CHECKING:  # pragma: no cover
 
 #: rows of the [feeder, interval] array built per chunk (bounds temporaries)
 _CHUNK_FEEDERS = 256
-
-
-@dataclass(frozen=True)
-class FeederFlag:
-    """A data-quality note on one feeder's series (metered path)."""
-
-    feeder_id: str
-    flag: str  # e.g. "gaps_filled", "flat_lined", "all_zero", "out_of_range", "no_metered_data"
-    detail: str
 
 
 @dataclass(frozen=True)
