@@ -106,8 +106,10 @@ def profile_table_pu(study: Study, interval_minutes: int) -> np.ndarray:
 # builder
 # --------------------------------------------------------------------------------------------
 def gross_load_mw(study: Study, local_times: pd.DatetimeIndex, season_idx: np.ndarray,
-                  day_idx: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-    """Gross load ``[feeder, interval]`` MW = peak_mw × profile value at the local time."""
+                  day_idx: np.ndarray, out: np.ndarray | None = None,
+                  rows: np.ndarray | None = None) -> np.ndarray:
+    """Gross load ``[feeder, interval]`` MW = peak_mw × profile value at the local time;
+    ``rows`` = feeder indices to compute (default all), in that order."""
     iv = study.settings.interval_minutes
     table = profile_table_pu(study, iv)
     n_p, n_s, n_d, n_slots = table.shape
@@ -115,9 +117,10 @@ def gross_load_mw(study: Study, local_times: pd.DatetimeIndex, season_idx: np.nd
     slot = np.minimum(minute // iv, n_slots - 1)
     key = (season_idx.astype(np.intp) * n_d + day_idx.astype(np.intp)) * n_slots + slot
     flat = table.reshape(n_p, -1)[:, key]  # [profile, interval] - small
-    prof = study.profile_index
-    peak = study.peak_mw
-    n_f = len(prof)
+    rows = np.arange(len(study.feeders)) if rows is None else np.asarray(rows, dtype=np.intp)
+    prof = study.profile_index[rows]
+    peak = study.peak_mw[rows]
+    n_f = len(rows)
     if out is None:
         out = np.empty((n_f, len(key)), dtype=float)
     for a in range(0, n_f, _CHUNK_FEEDERS):
@@ -126,28 +129,54 @@ def gross_load_mw(study: Study, local_times: pd.DatetimeIndex, season_idx: np.nd
     return out
 
 
-def build_year(study: Study, metered: "MeteredData | None" = None) -> Year:
-    """Build the study year of per-feeder net load.
+@dataclass(frozen=True)
+class Calendar:
+    """The study's intervals and what each one is: local time, season, day type, PV."""
 
-    Profile path: net = peak_mw × profile(season, day type, local time) − pv_mw × pv_derate
-    × clear-sky PV per unit.  With ``metered`` data, metered values replace the profile ones
-    where present; gaps are filled by ``gap_fill`` (see :mod:`allocator.metered`).
-    Demand per ``demand_basis``: ``feeders`` = sum of all feeders' net load;
-    ``metered_total`` = the metered TOTAL series.
-    """
+    timestamps_utc: pd.DatetimeIndex
+    local_times: pd.DatetimeIndex
+    season_index: np.ndarray
+    day_type_index: np.ndarray
+    pv_pu: np.ndarray
+
+
+def study_calendar(study: Study) -> Calendar:
     s = study.settings
     ts = study_intervals(s.year, s.timezone, s.interval_minutes)
     local = ts.tz_convert(s.timezone)
     season_idx = study.profiles.month_season[local.month.to_numpy() - 1]
     day_idx = day_type_index(local, holiday_dates(s))
     pv_pu = clearsky_pv_pu(ts, s.interval_minutes, s.latitude_deg, s.longitude_deg)
+    return Calendar(ts, local, season_idx, day_idx, pv_pu)
 
-    net = gross_load_mw(study, local, season_idx, day_idx)
-    pv_cap = study.pv_mw * s.pv_derate
+
+def profile_net_mw(study: Study, cal: Calendar, rows: np.ndarray | None = None,
+                   out: np.ndarray | None = None) -> np.ndarray:
+    """Profile-built net load ``[feeder, interval]`` (gross − derated clear-sky PV) of
+    ``rows`` (default all feeders)."""
+    rows = np.arange(len(study.feeders)) if rows is None else np.asarray(rows, dtype=np.intp)
+    net = gross_load_mw(study, cal.local_times, cal.season_index, cal.day_type_index,
+                        out=out, rows=rows)
+    pv_cap = study.pv_mw[rows] * study.settings.pv_derate
     for a in range(0, net.shape[0], _CHUNK_FEEDERS):
         b = min(a + _CHUNK_FEEDERS, net.shape[0])
-        net[a:b] -= pv_cap[a:b, None] * pv_pu[None, :]
+        net[a:b] -= pv_cap[a:b, None] * cal.pv_pu[None, :]
+    return net
 
+
+def build_year(study: Study, metered: "MeteredData | None" = None) -> Year:
+    """Build the study year of per-feeder net load.
+
+    Profile path: net = peak_mw × profile(season, day type, local time) − pv_mw × pv_derate
+    × clear-sky PV per unit.  With ``metered`` data, metered values are used where present
+    and gaps are filled by ``gap_fill`` (see :mod:`allocator.metered`); profile values are
+    computed only for the feeders that need them, and the metered array read by
+    :func:`~allocator.metered.read_metered` becomes ``net_mw`` (filled in place).
+    Demand per ``demand_basis``: ``feeders`` = sum of all feeders' net load;
+    ``metered_total`` = the metered TOTAL series.
+    """
+    s = study.settings
+    cal = study_calendar(study)
     flags: tuple[FeederFlag, ...] = ()
     notes: list[str] = []
     source = "profiles"
@@ -155,9 +184,17 @@ def build_year(study: Study, metered: "MeteredData | None" = None) -> Year:
     if metered is not None:
         from .metered import merge_metered
 
-        net, total, flags, more = merge_metered(study, metered, ts, net)
+        net, total, flags, more = merge_metered(
+            study, metered, cal.timestamps_utc, lambda rows: profile_net_mw(study, cal, rows))
         notes += more
         source = "metered"
+    else:
+        from .memory import require
+
+        n_f, n_iv = len(study.feeders), len(cal.timestamps_utc)
+        require(n_f * n_iv * 8, f"the year of net load ({n_f:,} feeders × {n_iv:,} intervals "
+                "× 8 bytes)", study.path)
+        net = profile_net_mw(study, cal)
     if s.demand_basis == "metered_total":
         if total is None:
             from .errors import InputError, Problem
@@ -171,8 +208,9 @@ def build_year(study: Study, metered: "MeteredData | None" = None) -> Year:
     net.setflags(write=False)
     demand = np.asarray(demand, dtype=float)
     demand.setflags(write=False)
-    return Year(ts, s.timezone, s.interval_minutes, study.feeder_ids, net, demand, pv_pu,
-                season_idx, day_idx, source, tuple(flags), tuple(notes))
+    return Year(cal.timestamps_utc, s.timezone, s.interval_minutes, study.feeder_ids, net,
+                demand, cal.pv_pu, cal.season_index, cal.day_type_index, source,
+                tuple(flags), tuple(notes))
 
 
 def year_summary(study: Study, year: Year) -> pd.DataFrame:
@@ -198,5 +236,6 @@ def year_summary(study: Study, year: Year) -> pd.DataFrame:
     })
 
 
-__all__ = ["Year", "FeederFlag", "build_year", "study_intervals", "day_type_index",
-           "holiday_dates", "profile_table_pu", "gross_load_mw", "year_summary", "DAY_TYPES"]
+__all__ = ["Year", "FeederFlag", "Calendar", "build_year", "study_calendar", "study_intervals",
+           "day_type_index", "holiday_dates", "profile_table_pu", "gross_load_mw",
+           "profile_net_mw", "year_summary", "DAY_TYPES"]

@@ -264,25 +264,43 @@ def _read_metered(folder: Path):
                                                               s.interval_minutes))
 
 
-def test_metered_size_limit_from_environment(metered_case, monkeypatch):
-    size_mb = (metered_case / "m.csv").stat().st_size / 1048576
+def test_metered_file_size_is_not_limited_but_memory_is(metered_case, monkeypatch):
+    """The old metered size cap is gone (UFLS_MAX_METERED_MB has no effect); what would not fit
+    in memory is refused before anything is allocated, with the numbers."""
     monkeypatch.setenv("UFLS_MAX_METERED_MB", "0.001")
-    assert size_mb > 0.001
+    assert _read_metered(metered_case).n_feeders_with_data == 10
+    monkeypatch.setenv("UFLS_MAX_MEMORY_MB", "100")
     with pytest.raises(InputError) as ei:
         _read_metered(metered_case)
     msg = str(ei.value)
-    assert "above the 0.001 MB limit" in msg and "UFLS_MAX_METERED_MB" in msg
-    monkeypatch.setenv("UFLS_MAX_METERED_MB", "1")
+    # 10 feeders + TOTAL, 8,760 hourly intervals in 2025, 10 bytes a cell, plus 256 MB
+    assert "(11 series × 8,760 intervals × 10 bytes, plus 256 MB for reading)" in msg
+    assert "about 0.25 GB" in msg and "only 0.10 GB is available (UFLS_MAX_MEMORY_MB)" in msg
+    monkeypatch.setenv("UFLS_MAX_MEMORY_MB", "300")
     assert _read_metered(metered_case).n_feeders_with_data == 10
 
 
+def test_memory_available_reads_proc_meminfo():
+    """MemAvailable from /proc/meminfo (Linux proc(5)), compared with the kernel's own file
+    read here independently."""
+    from allocator.memory import available_bytes
+
+    text = Path("/proc/meminfo").read_text() if Path("/proc/meminfo").exists() else ""
+    m = re.search(r"^MemAvailable:\s+(\d+) kB", text, re.M)
+    if not m:
+        pytest.skip("no /proc/meminfo MemAvailable on this system")
+    got, source = available_bytes()
+    if source == "MemAvailable":
+        assert abs(got - int(m.group(1)) * 1024) < 512 * 1024 * 1024  # it moves between reads
+
+
 @pytest.mark.parametrize("value", ["lots", "-1", "0", "inf", "nan"])
-def test_metered_size_limit_not_a_positive_number_is_an_input_error(metered_case,
-                                                                   monkeypatch, value):
-    monkeypatch.setenv("UFLS_MAX_METERED_MB", value)
+def test_memory_limit_not_a_positive_number_is_an_input_error(metered_case, monkeypatch,
+                                                              value):
+    monkeypatch.setenv("UFLS_MAX_MEMORY_MB", value)
     with pytest.raises(InputError) as ei:
         _read_metered(metered_case)
-    assert f"UFLS_MAX_METERED_MB='{value}'" in str(ei.value)
+    assert f"UFLS_MAX_MEMORY_MB='{value}'" in str(ei.value)
 
 
 # --------------------------------------------------------------------------------------------

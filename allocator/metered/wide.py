@@ -1,0 +1,126 @@
+"""The wide layout, as historians export it: a ``timestamp`` column and one column per
+feeder (header = feeder_id; ``TOTAL`` for the system demand).  A blank cell is no reading.
+
+Every value is a reading of its column's feeder at its row's time, so the rows carry the
+time rules (one timestamp form, the skipped and the repeated hour, time order, no row
+twice) and each cell the value rules (a number, finite), located by file row and the
+feeder's column.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+import pyarrow as pa
+
+from ..domain import Study
+from .columns import match_ids, mw_values
+from .model import NAT, TOTAL_ID
+from .rowchecks import Problems, TimeRules, mw_message
+from .sources import Batch, Source
+from .timestamps import batch_times
+
+
+def looks_wide(src: Source, study: Study) -> bool:
+    """A ``timestamp`` column, no ``feeder_id`` or ``mw`` column, and at least one column
+    named after a feeder of the study or TOTAL."""
+    low = [n.lower() for n in src.names]
+    if "feeder_id" in low or "mw" in low or "timestamp" not in low:
+        return False
+    code = match_ids(pa.array(src.names, type=pa.string()),
+                     pa.array(list(study.feeder_ids), type=pa.string()))
+    return bool((code >= 0).any())
+
+
+@dataclass
+class WideRows:
+    """Per row: line, UTC ns (NAT where unusable), autumn-hour flag; per reading (grouped by
+    series, row order within): series code, time, MW, line, and the row of each reading."""
+
+    line: np.ndarray
+    t: np.ndarray
+    amb: np.ndarray
+    code: np.ndarray
+    rt: np.ndarray
+    mw: np.ndarray
+    rline: np.ndarray
+    row: np.ndarray
+    text: Callable[[np.ndarray], list[str]]
+
+
+def _third(text: str, _pos) -> str:
+    return (f"local time '{text}' occurs a third time in the file: in the repeated autumn "
+            "hour each local time can appear twice (first summer time, then standard time); "
+            "use UTC offsets to be unambiguous")
+
+
+class WideDecoder:
+    def __init__(self, src: Source, study: Study, probs: Problems):
+        self.src, self.p = src, probs
+        names = src.names
+        self.ts = [n.lower() for n in names].index("timestamp")
+        self.rules = TimeRules(study.settings.timezone, probs)
+        self.value_cols, self.codes = self._header(study, names)
+
+    def _header(self, study: Study, names: list[str]) -> tuple[list[int], np.ndarray]:
+        other = [i for i in range(len(names)) if i != self.ts]
+        code = match_ids(pa.array([names[i] for i in other], type=pa.string()),
+                         pa.array(list(study.feeder_ids), type=pa.string()))
+        lower = {x.lower(): x for x in study.feeder_ids}
+        keep, seen = [], {}
+        for i, c in zip(other, code.tolist()):
+            h = names[i]
+            if h == "":
+                self.p.header.add(f"column {i + 1} has no name in the header; name it after "
+                                  "its feeder", row=1)
+            elif c < 0:
+                hint = f"; did you mean '{lower[h.lower()]}'?" if h.lower() in lower else ""
+                self.p.header.add(f"feeder_id '{h}' is not a feeder of the study and not "
+                                  f"{TOTAL_ID}{hint}", row=1, column=h)
+            elif c in seen:
+                self.p.header.add(f"column '{h}' appears twice in the header (also column "
+                                  f"{seen[c] + 1})", row=1, column=h)
+            else:
+                seen[c] = i
+                keep.append((i, c))
+        return [i for i, _ in keep], np.array([c for _, c in keep], dtype=np.int64)
+
+    @property
+    def columns(self) -> list[int]:
+        return [self.ts] + self.value_cols
+
+    dict_columns: set = set()
+
+    def decode(self, b: Batch) -> WideRows:
+        tm = batch_times(b.arrays[self.ts], self.rules.tz)
+        vals = [mw_values(b.arrays[i], self.src.decimal_comma) for i in self.value_cols]
+        present = np.array([~v.blank & ~(np.isnan(v.mw) & _numeric(b.arrays[i]))
+                            for v, i in zip(vals, self.value_cols)]).reshape(-1, b.n)
+        mw = np.array([v.mw for v in vals]).reshape(-1, b.n)
+        keep = present.any(axis=0) | ~tm.blank if tm.blank is not None else \
+            np.ones(b.n, dtype=bool)
+        self._value_problems(vals, present & keep, mw, b.line)
+        t, amb = self.rules.resolve(tm, keep, b.line, lambda q: [""] * len(q), _third)
+        ok = present & np.isfinite(mw) & (t != NAT)
+        j, r = np.nonzero(ok)
+        return WideRows(b.line, t, amb, self.codes[j], t[r], mw[j, r], b.line[r], r,
+                        lambda q: tm.text(r[q]))
+
+    def _value_problems(self, vals, present, mw, line) -> None:
+        """Cells that hold something other than a finite number, in row order."""
+        j, r = np.nonzero(present & ~np.isfinite(mw))
+        if not len(j):
+            return
+        o = np.lexsort((j, r))
+        j, r = j[o], r[o]
+        names = self.src.names
+        self.p.mw.add(np.arange(len(j)), line[r], lambda q: [
+            mw_message(vals[j[k]].text(np.array([r[k]]))[0]) for k in q],
+            column=lambda q: [names[self.value_cols[j[k]]] for k in q])
+
+
+def _numeric(arr: pa.Array) -> bool:
+    t = arr.type
+    return pa.types.is_integer(t) or pa.types.is_floating(t) or pa.types.is_decimal(t)
