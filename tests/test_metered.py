@@ -788,3 +788,36 @@ def test_build_year_fills_the_read_array_in_place_and_can_be_repeated(tmp_path):
     assert y1.flags == y2.flags
     kept = np.isfinite(raw)
     np.testing.assert_array_equal(y1.net_mw[kept], raw[kept])
+
+
+# --------------------------------------------------------------------------------------------
+# 5- and 10-minute studies
+# --------------------------------------------------------------------------------------------
+def test_five_minute_study_averages_minutes_and_holds_quarter_hours(tmp_path):
+    study = make_study(tmp_path, interval_minutes=5)
+    ts = intervals(study)
+    assert len(ts) == 105_120  # 365 days × 288
+    m1 = pd.date_range("2025-05-05T08:00Z", periods=60, freq="1min")
+    q = pd.date_range("2025-05-05T08:00Z", periods=4, freq="15min")
+    v1 = np.arange(60, dtype=float)
+    df = pd.concat([long_frame(offset_text(m1), ["F00"], v1[None, :]),
+                    long_frame(offset_text(q), ["F01"], np.array([[1.0, 2.0, 3.0, 4.0]]))])
+    m = read_metered(write_csv(tmp_path / "five.csv", df), study, ts)
+    i = ts.get_loc(pd.Timestamp("2025-05-05T08:00Z"))
+    np.testing.assert_allclose(m.values_mw[0, i:i + 12], v1.reshape(12, 5).mean(axis=1))
+    np.testing.assert_array_equal(m.values_mw[1, i:i + 12], np.repeat([1.0, 2, 3, 4], 3))
+    assert np.isnan(m.values_mw[1, i + 12])  # the last reading covers one step only
+    assert any("readings every 1 min" in n and "averaged into the 5-minute" in n
+               for n in m.notes)
+    assert any("readings every 15 min" in n and "held over" in n for n in m.notes)
+
+
+def test_ten_minute_study_five_minute_readings_off_the_ten_minute_grid_are_fine(tmp_path):
+    study = make_study(tmp_path, interval_minutes=10)
+    ts = intervals(study)
+    five = pd.date_range("2025-02-01T00:05Z", periods=12, freq="5min")  # starts off-grid
+    m = read_metered(write_csv(tmp_path / "ten.csv", long_frame(
+        offset_text(five), ["F02"], np.arange(12.0)[None, :])), study, ts)
+    i = ts.get_loc(pd.Timestamp("2025-02-01T00:00Z"))
+    np.testing.assert_array_equal(m.values_mw[2, i:i + 7],
+                                  [0.0, 1.5, 3.5, 5.5, 7.5, 9.5, 11.0])

@@ -656,11 +656,11 @@ _settings_case("settings_unknown_timezone", "timezone 'Europe/Vienn' (typo)", "t
 _settings_case("settings_timezone_utc_offset", "timezone 'UTC+1' (an offset, not a zone)",
                "timezone", "UTC+1", "unknown time zone 'UTC+1'")
 _settings_case("settings_interval_7", "interval_minutes 7", "interval_minutes", 7,
-               "expected 15, 30 or 60, found 7")
+               "expected 5, 10, 15, 30 or 60, found 7")
 _settings_case("settings_interval_7_via_plan", "interval_minutes 7, refused by plan too",
-               "interval_minutes", 7, "expected 15, 30 or 60, found 7", command="plan")
+               "interval_minutes", 7, "expected 5, 10, 15, 30 or 60, found 7", command="plan")
 _settings_case("settings_interval_as_text", "interval_minutes 'hourly'", "interval_minutes",
-               "hourly", "expected 15, 30 or 60, found text 'hourly'")
+               "hourly", "expected 5, 10, 15, 30 or 60, found text 'hourly'")
 _settings_case("settings_nominal_hz_55", "nominal_hz 55", "nominal_hz", 55,
                "expected 50 or 60, found 55")
 _settings_case("settings_year_fraction", "year 2025.5", "year", 2025.5,
@@ -724,11 +724,11 @@ def _(d):
       Expect(W, "settings", SETTING_ROW["timezone"], "value", "unknown time zone 'CEST'"),
       Expect(W, "settings", SETTING_ROW["nominal_hz"], "value", "expected 50 or 60, found 0"),
       Expect(W, "settings", SETTING_ROW["interval_minutes"], "value",
-             "expected 15, 30 or 60, found 5"),
+             "expected 5, 10, 15, 30 or 60, found 20"),
       Expect(W, "settings", SETTING_ROW["longitude"], "value",
              "expected longitude in degrees ≥ -180, found -200"))
 def _(d):
-    write_wb(d, settings={"timezone": "CEST", "nominal_hz": 0, "interval_minutes": 5,
+    write_wb(d, settings={"timezone": "CEST", "nominal_hz": 0, "interval_minutes": 20,
                           "longitude": -200})
     return std_argv()
 
