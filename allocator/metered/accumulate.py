@@ -35,8 +35,12 @@ class Accumulator:
     def __init__(self, n_series: int, n_iv: int, ts0: int, iv_ns: int, hi_mw: np.ndarray,
                  lo_mw: np.ndarray, file: str):
         self.ns, self.n_iv, self.ts0, self.iv_ns, self.file = n_series, n_iv, ts0, iv_ns, file
-        self.sum = np.zeros(n_series * n_iv)
-        self.cnt = np.zeros(n_series * n_iv, dtype=np.uint16)
+        # written once in order: the pages are mapped now, sequentially, not one by one at
+        # scattered first writes (measured: 50 ms against up to 0.5 s per batch)
+        self.sum = np.empty(n_series * n_iv)
+        self.sum.fill(0.0)
+        self.cnt = np.empty(n_series * n_iv, dtype=np.uint16)
+        self.cnt.fill(0)
         self.hi, self.lo = hi_mw, lo_mw
         self.last = np.full(n_series, NAT, dtype=np.int64)
         self.hist = SpacingHistogram()
@@ -49,30 +53,48 @@ class Accumulator:
         self.n_pre = self.n_post = 0
         self.off = OffGrid(z.copy())
 
-    def add(self, code, t, mw, line, first, text) -> None:
+    def add(self, code, t, mw, pos, line, first, text) -> None:
         """Good readings grouped by series (time order within a series); ``first`` marks
-        each group's first row; ``text(i)`` gives the timestamp texts of rows ``i``."""
+        each group's first row; ``pos`` are their batch rows, ``line`` the batch's lines and
+        ``text(rows)`` the timestamp texts of batch rows (for the off-grid listing)."""
         if not len(code):
             return
         self._spacing(code, t, first)
         i0 = (t - self.ts0) // self.iv_ns
+        self._off_grid(code, t - self.ts0 - i0 * self.iv_ns, pos, line, text)
+        if i0[0] >= 0 and i0[-1] < self.n_iv and i0.min() >= 0 and i0.max() < self.n_iv:
+            self._scatter(code, i0, mw)
+            self._stats(code, mw, first)
+            return
         pre, post = i0 < 0, i0 >= self.n_iv
         self.n_pre += int(pre.sum())
         self.n_post += int(post.sum())
         if pre.any():
             self._before_year(code[pre], t[pre], mw[pre])
         inside = ~(pre | post)
-        self._scatter(code[inside], i0[inside], mw[inside])
-        self._stats(code[inside], mw[inside])
-        self._off_grid(code, t, line, text)
+        c = code[inside]
+        self._scatter(c, i0[inside], mw[inside])
+        self._stats(c, mw[inside], np.append(True, c[1:] != c[:-1]) if len(c) else c)
 
     def _spacing(self, code, t, first) -> None:
+        """Run-length encoded spacings into the histogram (a run = equal spacings)."""
+        n = len(t)
         prev = np.empty_like(t)
         prev[1:] = t[:-1]
-        prev[first] = self.last[code[first]]
-        have = prev != NAT
-        self.hist.add(code[have], t[have] - prev[have])
-        last = np.append(first[1:], True)
+        fpos = np.flatnonzero(first)
+        prev[fpos] = self.last[code[fpos]]
+        d = t - prev
+        start = np.empty(n, dtype=bool)
+        start[0] = True
+        np.not_equal(d[1:], d[:-1], out=start[1:])
+        start |= first
+        lone = fpos[prev[fpos] == NAT]  # a series' first reading has no spacing
+        start[lone[lone + 1 < n] + 1] = True
+        starts = np.flatnonzero(start)
+        lens = np.diff(np.append(starts, n))
+        keep = prev[starts] != NAT
+        self.hist.add_runs(code[starts[keep]], d[starts[keep]], lens[keep])
+        last = np.append(fpos[1:] - 1, n - 1)
         self.last[code[last]] = t[last]
 
     def _before_year(self, code, t, mw) -> None:
@@ -88,7 +110,7 @@ class Accumulator:
         idx = code.astype(np.int64) * self.n_iv + i0
         change = np.empty(len(idx), dtype=bool)
         change[0] = True
-        change[1:] = idx[1:] != idx[:-1]
+        np.not_equal(idx[1:], idx[:-1], out=change[1:])
         if change.all():
             self.sum[idx] += mw
             self.cnt[idx] += 1
@@ -103,28 +125,38 @@ class Accumulator:
         self.sum[cells] += np.add.reduceat(mw, starts)
         self.cnt[cells] += k.astype(np.uint16)
 
-    def _stats(self, code, mw) -> None:
+    def _stats(self, code, mw, first) -> None:
+        """Count, min, max and out-of-range counts per series (rows grouped by series)."""
         if not len(code):
             return
-        change = np.append(True, code[1:] != code[:-1])
-        starts = np.flatnonzero(change)
+        starts = np.flatnonzero(first)
         c = code[starts]
-        self.n_in[c] += np.diff(np.append(starts, len(code)))
-        self.min[c] = np.minimum(self.min[c], np.minimum.reduceat(mw, starts))
-        self.max[c] = np.maximum(self.max[c], np.maximum.reduceat(mw, starts))
-        self.n_high += np.bincount(code[mw > self.hi[code]], minlength=self.ns)
-        self.n_low += np.bincount(code[mw < self.lo[code]], minlength=self.ns)
+        lens = np.diff(np.append(starts, len(code)))
+        self.n_in[c] += lens
+        lo_seg, hi_seg = np.minimum.reduceat(mw, starts), np.maximum.reduceat(mw, starts)
+        self.min[c] = np.minimum(self.min[c], lo_seg)
+        self.max[c] = np.maximum(self.max[c], hi_seg)
+        for seg_bad, lim, out, above in ((hi_seg > self.hi[c], self.hi, self.n_high, True),
+                                        (lo_seg < self.lo[c], self.lo, self.n_low, False)):
+            if seg_bad.any():
+                rows = np.repeat(seg_bad, lens)
+                cr, mr = code[rows], mw[rows]
+                hit = mr > lim[cr] if above else mr < lim[cr]
+                out += np.bincount(cr[hit], minlength=self.ns)
 
-    def _off_grid(self, code, t, line, text) -> None:
-        off = np.flatnonzero((t - self.ts0) % self.iv_ns != 0)
+    def _off_grid(self, code, rem, pos, line, text) -> None:
+        """Readings whose start is not on the interval grid (``rem`` ns past a boundary)."""
+        off = np.flatnonzero(rem)
         if not len(off):
             return
         c = code[off]
-        self.off.n += np.bincount(c, minlength=self.ns)
+        this = np.bincount(c, minlength=self.ns)
+        already = self.off.n[c]
+        self.off.n += this
         start = np.append(True, c[1:] != c[:-1])
         seg = np.cumsum(start) - 1
         rank = np.arange(len(c)) - np.flatnonzero(start)[seg]
-        already = self.off.n[c] - np.bincount(c, minlength=self.ns)[c]
         keep = off[rank + already < MAX_LISTED]
         if len(keep):
-            self.off.kept.append((code[keep], line[keep], np.array(text(keep), dtype=object)))
+            rows = pos[keep]
+            self.off.kept.append((code[keep], line[rows], np.array(text(rows), dtype=object)))

@@ -30,11 +30,12 @@ def _as_dictionary(arr: pa.Array) -> pa.DictionaryArray:
 
 @dataclass
 class FeederCodes:
-    """Per row: ``code`` (0..nf-1 study feeder, nf TOTAL, -1 blank or unknown), ``blank``;
-    ``unknown`` = (distinct ids, first batch position, count) of ids not in the study."""
+    """Per row: ``code`` (0..nf-1 study feeder, nf TOTAL, -1 blank or unknown), ``blank``
+    (None when no row is blank); ``unknown`` = (distinct ids, first batch position, count)
+    of ids not in the study."""
 
     code: np.ndarray
-    blank: np.ndarray
+    blank: np.ndarray | None
     unknown: tuple[list[str], np.ndarray, np.ndarray]
     text: Callable[[np.ndarray], list[str]]
 
@@ -53,19 +54,19 @@ def match_ids(values: pa.Array, study_ids: pa.Array) -> np.ndarray:
 def feeder_codes(arr: pa.Array, study_ids: pa.Array) -> FeederCodes:
     d = _as_dictionary(arr)
     values = pc.utf8_trim_whitespace(d.dictionary.cast(pa.string()))
-    values = pa.concat_arrays([values, pa.array([""])])  # nulls take this entry
-    idx = d.indices.fill_null(len(values) - 1).to_numpy(zero_copy_only=False)
+    idx = d.indices.to_numpy(zero_copy_only=False)
+    if d.null_count:  # nulls take an appended blank entry
+        values = pa.concat_arrays([values, pa.array([""])])
+        idx = d.indices.fill_null(len(values) - 1).to_numpy(zero_copy_only=False)
     dcode = match_ids(values, study_ids)
     dblank = pc.equal(values, "").to_numpy(zero_copy_only=False)
-    code = dcode[idx]
-    unk_entries = np.flatnonzero((dcode < 0) & ~dblank)
     unknown = ([], np.zeros(0, np.int64), np.zeros(0, np.int64))
+    unk_entries = np.flatnonzero((dcode < 0) & ~dblank)
     if len(unk_entries):
         rows = np.flatnonzero(np.isin(idx, unk_entries))
         u, first, cnt = np.unique(idx[rows], return_index=True, return_counts=True)
         o = np.argsort(rows[first], kind="stable")
-        ids = values.take(pa.array(u[o])).to_pylist()
-        unknown = (ids, rows[first][o], cnt[o])
+        unknown = (values.take(pa.array(u[o])).to_pylist(), rows[first][o], cnt[o])
     py = None
 
     def text(pos: np.ndarray) -> list[str]:
@@ -73,13 +74,13 @@ def feeder_codes(arr: pa.Array, study_ids: pa.Array) -> FeederCodes:
         py = values.to_pylist() if py is None else py
         return [py[i] for i in idx[pos]]
 
-    return FeederCodes(code, dblank[idx], unknown, text)
+    return FeederCodes(dcode[idx], dblank[idx] if dblank.any() else None, unknown, text)
 
 
 @dataclass
 class Values:
-    """Per row: ``mw`` float64 (NaN where not a number), ``blank`` (empty text or null),
-    ``text(pos)`` the value as written, for messages."""
+    """Per row: ``mw`` float64 (NaN where not a number), ``blank`` (empty text or null;
+    None when no row is), ``text(pos)`` the value as written, for messages."""
 
     mw: np.ndarray
     blank: np.ndarray
@@ -87,21 +88,23 @@ class Values:
 
 
 def _numeric(arr: pa.Array) -> Values:
-    mw = pc.cast(arr, pa.float64()).fill_null(np.nan).to_numpy(zero_copy_only=False)
-    blank = np.zeros(len(mw), dtype=bool)
-    return Values(mw, blank, lambda pos: [f"{v}" for v in mw[pos]])
+    if arr.type != pa.float64():
+        arr = pc.cast(arr, pa.float64())
+    mw = arr.to_numpy(zero_copy_only=False)  # nulls become NaN
+    return Values(mw, None, lambda pos: [f"{v}" for v in mw[pos]])
 
 
 def _from_text(arr: pa.Array, decimal_comma: bool) -> Values:
     txt = pc.utf8_trim_whitespace(arr)
     num = pc.replace_substring(txt, ",", ".") if decimal_comma else txt
+    blank = None
     try:
-        mw = pc.cast(num, pa.float64()).to_numpy(zero_copy_only=False)
-        mw = np.where(pc.is_null(num).to_numpy(zero_copy_only=False), np.nan, mw)
+        mw = pc.cast(num, pa.float64()).to_numpy(zero_copy_only=False)  # nulls: NaN
     except pa.ArrowInvalid:
         s = pd.Series(num.to_numpy(zero_copy_only=False), dtype=object)
         mw = pd.to_numeric(s, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
-    blank = pc.fill_null(pc.equal(txt, ""), True).to_numpy(zero_copy_only=False)
+    if arr.null_count or np.isnan(mw).any():  # only then can a value be blank
+        blank = pc.fill_null(pc.equal(txt, ""), True).to_numpy(zero_copy_only=False)
     return Values(mw, blank, lambda pos: [t if t is not None else "" for t in
                                           txt.take(pa.array(pos)).to_pylist()])
 

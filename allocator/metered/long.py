@@ -27,8 +27,8 @@ class Rows:
     code: np.ndarray
     t: np.ndarray
     mw: np.ndarray
-    mw_ok: np.ndarray
-    amb: np.ndarray
+    mw_ok: np.ndarray | None  # None: every row
+    amb: np.ndarray | None  # None: no row
     text: Callable[[np.ndarray], list[str]]  # timestamp texts of batch rows
 
 
@@ -69,38 +69,44 @@ class LongDecoder:
             else None
         tm = batch_times(get(self.cols["timestamp"]), self.rules.tz) \
             if "timestamp" in self.cols else None
-        keep = ~self._blank_rows(b, fc, vals, tm)
+        keep = self._kept_rows(b, fc, vals, tm)
         code = fc.code if fc is not None else np.full(n, -1, dtype=np.int64)
         if fc is not None:
             self._feeder_problems(fc, keep, line)
         mw = vals.mw if vals is not None else np.full(n, np.nan)
-        mw_ok = keep & np.isfinite(mw)
-        if vals is not None:
-            self.p.mw.add(np.flatnonzero(keep & ~mw_ok), line,
+        mw_ok = np.isfinite(mw)
+        if keep is not None:
+            mw_ok &= keep
+        if mw_ok.all():
+            mw_ok = None
+        elif vals is not None:
+            bad = ~mw_ok if keep is None else keep & ~mw_ok
+            self.p.mw.add(np.flatnonzero(bad), line,
                           lambda q: [mw_message(x) for x in vals.text(q)])
         if tm is None:
-            return Rows(line, code, np.full(n, NAT), mw, mw_ok, np.zeros(n, bool),
-                        lambda q: [""] * len(q))
+            return Rows(line, code, np.full(n, NAT), mw, mw_ok, None, lambda q: [""] * len(q))
         fid = fc.text if fc is not None else (lambda q: [""] * len(q))
         t, amb = self.rules.resolve(tm, keep, line, fid,
                                     lambda x, i: third_for_feeder(fid([i])[0], x))
         return Rows(line, code, t, mw, mw_ok, amb, tm.text)
 
     def _feeder_problems(self, fc, keep, line) -> None:
-        self.p.fid_blank.add(np.flatnonzero(fc.blank & keep), line,
-                             lambda q: ["feeder_id is blank"] * len(q))
+        if fc.blank is not None:
+            blank = fc.blank if keep is None else fc.blank & keep
+            self.p.fid_blank.add(np.flatnonzero(blank), line,
+                                 lambda q: ["feeder_id is blank"] * len(q))
         ids, first, cnt = fc.unknown
         self.p.unknown.add(ids, line[first], cnt)
 
-    def _blank_rows(self, b: Batch, fc, vals, tm) -> np.ndarray:
-        """CSV rows where every column is empty (blank lines): dropped, lines still counted."""
-        n = b.n
+    def _kept_rows(self, b: Batch, fc, vals, tm) -> np.ndarray | None:
+        """CSV rows where every column is empty (blank lines) are dropped, their lines still
+        counted: the rows kept, None when that is all of them."""
         if self.src.kind != "csv":
-            return np.zeros(n, dtype=bool)
-        blank = np.ones(n, dtype=bool)
-        for part in (fc, vals, tm):
-            if part is not None:
-                blank &= part.blank
+            return None
+        parts = [p.blank for p in (fc, vals, tm) if p is not None]
+        if not parts or any(x is None for x in parts):
+            return None
+        blank = np.logical_and.reduce(parts)
         cand = np.flatnonzero(blank)
         if len(cand) and self.extra:
             idx = pa.array(cand)
@@ -108,4 +114,4 @@ class LongDecoder:
                 t = pc.utf8_trim_whitespace(b.arrays[i].take(idx))
                 blank[cand] &= pc.fill_null(pc.equal(t, ""), True).to_numpy(
                     zero_copy_only=False)
-        return blank
+        return ~blank if blank.any() else None

@@ -106,16 +106,25 @@ def _feed(pl: _Plan, rows, seq: SequenceCheck, acc: Accumulator) -> None:
     if pl.wide:
         ok = np.flatnonzero(rows.t != NAT)
         zero = np.zeros(len(ok), dtype=np.int64)
-        seq.update(zero, rows.t[ok], rows.line[ok], rows.amb[ok], _starts(zero))
-        acc.add(rows.code, rows.rt, rows.mw, rows.rline, _starts(rows.code), rows.text)
+        seq.update(zero, rows.t[ok], ok, rows.line, None if rows.amb is None
+                   else rows.amb[ok], _starts(zero))
+        acc.add(rows.code, rows.rt, rows.mw, rows.row, rows.line, _starts(rows.code),
+                rows.text)
         return
-    pos = np.flatnonzero((rows.t != NAT) & (rows.code >= 0))
-    pos = pos[_grouped(rows.code[pos])]
-    c = rows.code[pos]
-    seq.update(c, rows.t[pos], rows.line[pos], rows.amb[pos], _starts(c))
-    g = pos[rows.mw_ok[pos]]
-    cg = rows.code[g]
-    acc.add(cg, rows.t[g], rows.mw[g], rows.line[g], _starts(cg), lambda i: rows.text(g[i]))
+    sel = (rows.code >= 0) & (rows.t != NAT)
+    if sel.all():
+        pos = _grouped(rows.code)
+    else:
+        pos = np.flatnonzero(sel)
+        pos = pos[_grouped(rows.code[pos])]
+    c, t = rows.code[pos], rows.t[pos]
+    first = _starts(c)
+    seq.update(c, t, pos, rows.line, None if rows.amb is None else rows.amb[pos], first)
+    if rows.mw_ok is not None:
+        m = rows.mw_ok[pos]
+        pos, c, t = pos[m], c[m], t[m]
+        first = _starts(c)
+    acc.add(c, t, rows.mw[pos], pos, rows.line, first, rows.text)
 
 
 def _checked_rows(src: Source, study: Study, timestamps_utc):
@@ -126,9 +135,9 @@ def _checked_rows(src: Source, study: Study, timestamps_utc):
         if pl.wide:
             ok = rows.t != NAT
             yield np.zeros(int(ok.sum()), dtype=np.int64), rows.t[ok], rows.line[ok]
-        else:
-            ok = (rows.t != NAT) & (rows.code >= 0)
-            yield rows.code[ok], rows.t[ok], rows.line[ok]
+            continue
+        ok = (rows.t != NAT) & (rows.code >= 0)
+        yield rows.code[ok], rows.t[ok], rows.line[ok]
 
 
 def _off_grid(pl: _Plan, acc: Accumulator, res: np.ndarray) -> Listing:

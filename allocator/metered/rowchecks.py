@@ -55,18 +55,24 @@ class TimeRules:
         self.main_line = 0
         self.amb = Ambiguity()
 
-    def resolve(self, tm: Times, keep: np.ndarray, line: np.ndarray, key, third_msg
-                ) -> tuple[np.ndarray, np.ndarray]:
-        """(UTC ns per row, NAT where unusable; in the repeated autumn hour) - listing the
-        problems.  ``key(pos)`` names the series of rows for the autumn-hour order,
-        ``third_msg(text, pos)`` words a third reading."""
+    def resolve(self, tm: Times, keep: np.ndarray | None, line: np.ndarray, key, third_msg
+                ) -> tuple[np.ndarray, np.ndarray | None]:
+        """(UTC ns per row, NAT where unusable; in the repeated autumn hour, None if no row
+        is) - listing the problems.  ``keep`` None: every row counts.  ``key(pos)`` names the
+        series of rows for the autumn-hour order, ``third_msg(text, pos)`` words a third
+        reading."""
+        f = tm.uniform()
+        if keep is None and f and self.main_form in (0, f):  # the usual batch: one look
+            if self.main_form == 0:
+                self.main_form, self.main_line = f, int(line[0])
+            return tm.utc, None
+        keep = np.ones(len(line), dtype=bool) if keep is None else keep
         self._unreadable(tm, keep, line)
         self._mixed(tm, keep, line)
         t = np.where(tm.form == 1, tm.utc, NAT)
         nv = keep & (tm.form == 2)
         skipped = nv & (tm.utc == NAT)
-        pos = np.flatnonzero(skipped)
-        self.p.ts_skipped.add(pos, line, lambda q: [
+        self.p.ts_skipped.add(np.flatnonzero(skipped), line, lambda q: [
             f"local time '{x}' does not exist in {self.tz}: the clocks skip that hour when "
             "summer time starts" for x in tm.text(q)])
         amb = nv & ~skipped & (tm.utc != tm.std)

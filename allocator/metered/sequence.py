@@ -44,10 +44,11 @@ class SequenceCheck:
         self.n_dup = self.n_order = self.n_cand = self.n_over = 0
 
     # ---- streaming ---------------------------------------------------------------------
-    def update(self, code: np.ndarray, t: np.ndarray, line: np.ndarray, amb: np.ndarray,
-               first: np.ndarray) -> None:
+    def update(self, code: np.ndarray, t: np.ndarray, pos: np.ndarray, line: np.ndarray,
+               amb: np.ndarray | None, first: np.ndarray) -> None:
         """Rows grouped by series (file order within a series); ``first`` marks the first
-        row of each group."""
+        row of each group; ``line[pos]`` are their lines; ``amb`` their autumn-hour flags
+        (None: none)."""
         if not len(code):
             return
         prev = np.empty_like(t)
@@ -58,10 +59,11 @@ class SequenceCheck:
             last[:-1] = first[1:]
             last[-1] = True
             self.pm[code[last]] = t[last]
-            self.pm_line[code[last]] = line[last]
+            self.pm_line[code[last]] = line[pos[last]]
             return
-        self._examine(code, t, line, amb)
-        self._raise_max(code, t, line)
+        ln = line[pos]
+        self._examine(code, t, ln, np.zeros(len(t), bool) if amb is None else amb)
+        self._raise_max(code, t, ln)
 
     def _raise_max(self, code, t, line) -> None:
         df = pd.DataFrame({"c": code, "t": t, "line": line})

@@ -18,6 +18,8 @@ from __future__ import annotations
 import codecs
 import csv
 import gzip
+import queue
+import threading
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Iterator
@@ -32,8 +34,8 @@ from .listing import Listing
 
 #: bytes of CSV text parsed per batch
 CSV_BLOCK_BYTES = 16 << 20
-#: Parquet rows per batch (long files); wide files aim at this many cells per batch
-BATCH_CELLS = 1 << 19
+#: cells (rows × columns) per Parquet batch, and per wide-file batch of either kind
+BATCH_CELLS = 1 << 21
 #: longest header line read (a wide file of 20,000 feeders has a header of ~200 kB)
 MAX_HEADER_BYTES = 64 << 20
 DICT = pa.dictionary(pa.int32(), pa.string())
@@ -129,18 +131,61 @@ def batches(src: Source, columns: list[int], dict_cols: set[int], col: Collector
             shape: Listing, exact: bool, wide: bool = False) -> Iterator[Batch]:
     """Stream the chosen columns.  CSV: every column as text (``dict_cols`` dictionary-
     encoded); wide files read blank cells as nulls.  Raises RestartExact (CSV, not exact)
-    when a line has the wrong number of fields."""
+    when a line has the wrong number of fields.  The next batch is parsed on a thread of
+    its own while the caller works on this one (pyarrow parses without the GIL)."""
     if src.kind == "parquet":
-        yield from _parquet_batches(src, columns, dict_cols, col, wide)
+        gen = _parquet_batches(src, columns, dict_cols, col, wide)
     else:
-        yield from _csv_batches(src, columns, dict_cols, col, shape, exact, wide)
+        gen = _csv_batches(src, columns, dict_cols, col, shape, exact, wide)
+    yield from prefetched(gen)
+
+
+def prefetched(gen: Iterator, depth: int = 2) -> Iterator:
+    """Items of ``gen`` produced on a worker thread, at most ``depth`` ahead; an exception
+    in ``gen`` is raised here; closing this generator stops the worker."""
+    q: queue.Queue = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+    done = object()
+
+    def work() -> None:
+        try:
+            for item in gen:
+                while not stop.is_set():
+                    try:
+                        q.put((True, item), timeout=0.1)
+                        break
+                    except queue.Full:
+                        continue
+                if stop.is_set():
+                    return
+            q.put((True, done))
+        except BaseException as exc:  # handed to the consumer
+            q.put((False, exc))
+
+    th = threading.Thread(target=work, name="metered-reader", daemon=True)
+    th.start()
+    try:
+        while True:
+            ok, item = q.get()
+            if not ok:
+                raise item
+            if item is done:
+                return
+            yield item
+    finally:
+        stop.set()
+        while th.is_alive():
+            try:
+                q.get_nowait()
+            except queue.Empty:
+                th.join(0.05)
 
 
 def _parquet_batches(src, columns, dict_cols, col, wide) -> Iterator[Batch]:
     names = [src.raw_names[i] for i in columns]
     strings = [src.raw_names[i] for i in dict_cols if pa.types.is_string(src.types[i])
                or pa.types.is_large_string(src.types[i])]
-    rows = max(1, BATCH_CELLS // max(len(columns), 1)) if wide else BATCH_CELLS * 2
+    rows = max(1, BATCH_CELLS // max(len(columns), 1)) if wide else BATCH_CELLS // 2
     k = 0
     try:
         pf = pq.ParquetFile(str(src.path), read_dictionary=strings or None)

@@ -26,24 +26,19 @@ class SpacingHistogram:
         self.counts = np.zeros(0, dtype=np.int64)
         self.unit_s = 1
 
-    def add(self, code: np.ndarray, d_ns: np.ndarray) -> None:
-        """Spacings ``d_ns`` of series ``code`` (grouped by series)."""
+    def add_runs(self, code: np.ndarray, d_ns: np.ndarray, n: np.ndarray) -> None:
+        """``n[k]`` spacings of ``d_ns[k]`` ns in series ``code[k]``."""
         if not len(code):
             return
         q = np.rint(d_ns / (NS_PER_S * self.unit_s))
         key = (code.astype(np.int64) << _SHIFT) | np.clip(q, 0, _MASK).astype(np.int64)
-        change = np.empty(len(key), dtype=bool)
-        change[0] = True
-        change[1:] = key[1:] != key[:-1]
-        starts = np.flatnonzero(change)
-        lens = np.diff(np.append(starts, len(key)))
-        self._merge(key[starts], lens)
+        self._merge(key, n)
         if len(self.keys) > MAX_KEYS and self.unit_s == 1:
             self.unit_s = 60
             c, d = self.keys >> _SHIFT, self.keys & _MASK
-            k, n = (c << _SHIFT) | np.rint(d / 60).astype(np.int64), self.counts
+            k, cnt = (c << _SHIFT) | np.rint(d / 60).astype(np.int64), self.counts
             self.keys, self.counts = np.zeros(0, np.int64), np.zeros(0, np.int64)
-            self._merge(k, n)
+            self._merge(k, cnt)
 
     def _merge(self, key: np.ndarray, n: np.ndarray) -> None:
         u, inv = np.unique(np.concatenate([self.keys, key]), return_inverse=True)

@@ -10,8 +10,7 @@ columns (time-zone aware or naive) need no text parsing.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import Callable
+from functools import cached_property
 
 import numpy as np
 import pandas as pd
@@ -25,18 +24,49 @@ OFFSET_RE = r"\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?\s*(?:[Zz]|[+-]\d{2}(?::?\d{2})?
 _LO, _HI = pd.Timestamp("1678-01-01"), pd.Timestamp("2261-12-31")
 
 
-@dataclass
 class Times:
-    """Per row: ``form`` 0 unreadable, 1 UTC offset, 2 naive local; ``utc`` (form 1) or
-    summer-time reading (form 2; NAT in the skipped hour); ``std`` standard-time reading and
-    ``naive`` wall clock (form 2); ``text(pos)`` the texts of some rows, for messages."""
+    """Times of a batch, kept per distinct value (``*_u`` arrays) with each row's index
+    ``idx`` into them (None: one value per row).  Per row (computed when asked): ``form`` 0
+    unreadable, 1 UTC offset, 2 naive local; ``utc`` (form 1) or summer-time reading
+    (form 2; NAT in the skipped hour); ``std`` standard-time reading and ``naive`` wall
+    clock (form 2); ``blank`` empty text; ``text(pos)`` the texts of some rows."""
 
-    form: np.ndarray
-    utc: np.ndarray
-    std: np.ndarray
-    naive: np.ndarray
-    text: Callable[[np.ndarray], list[str]]
-    blank: np.ndarray | None = None  # text columns: the text is empty (or null)
+    def __init__(self, form_u, utc_u, std_u, naive_u, idx, text, blank_u=None):
+        self.form_u, self.utc_u, self.std_u, self.naive_u = form_u, utc_u, std_u, naive_u
+        self.idx, self.text, self.blank_u = idx, text, blank_u
+
+    def _rows(self, u):
+        return u if self.idx is None else u[self.idx]
+
+    @cached_property
+    def form(self) -> np.ndarray:
+        return self._rows(self.form_u)
+
+    @cached_property
+    def utc(self) -> np.ndarray:
+        return self._rows(self.utc_u)
+
+    @cached_property
+    def std(self) -> np.ndarray:
+        return self._rows(self.std_u)
+
+    @cached_property
+    def naive(self) -> np.ndarray:
+        return self._rows(self.naive_u)
+
+    @cached_property
+    def blank(self) -> np.ndarray | None:
+        return None if self.blank_u is None else self._rows(self.blank_u)
+
+    def uniform(self) -> int:
+        """The form shared by every value when all are plainly usable (no unreadable or
+        blank value, none in the skipped or repeated hour); 0 otherwise."""
+        f = self.form_u
+        if not len(f) or (f != f[0]).any() or f[0] == 0:
+            return 0
+        if f[0] == 2 and ((self.utc_u == NAT) | (self.utc_u != self.std_u)).any():
+            return 0
+        return int(f[0])
 
 
 def _in_range(d) -> np.ndarray:
@@ -95,12 +125,13 @@ def text_times(arr: pa.Array, tz: str) -> Times:
     if not pa.types.is_dictionary(arr.type):
         arr = pc.dictionary_encode(arr)
     values = pc.utf8_trim_whitespace(arr.dictionary.cast(pa.string()))
-    idx = arr.indices.fill_null(-1).to_numpy(zero_copy_only=False).astype(np.intp)
+    idx = arr.indices.fill_null(-1).to_numpy(zero_copy_only=False)
     form, utc, std, naive = parse_texts(values, tz)
-    form, utc, std, naive = (np.append(x, v) for x, v in
-                             ((form, 0), (utc, NAT), (std, NAT), (naive, NAT)))
-    # a null (blank Parquet or wide-CSV cell) takes the appended "unreadable" entry
-    blank = np.append(pc.equal(values, "").to_numpy(zero_copy_only=False), True)
+    blank = pc.equal(values, "").to_numpy(zero_copy_only=False)
+    if arr.null_count:  # a null (blank Parquet or wide-CSV cell) takes an appended entry
+        idx = np.where(idx < 0, len(form), idx)
+        form, utc, std, naive, blank = (np.append(x, v) for x, v in (
+            (form, 0), (utc, NAT), (std, NAT), (naive, NAT), (blank, True)))
     text_of = None
 
     def text(pos: np.ndarray) -> list[str]:
@@ -108,24 +139,29 @@ def text_times(arr: pa.Array, tz: str) -> Times:
         text_of = values.to_pylist() + [""] if text_of is None else text_of
         return [text_of[i] for i in idx[pos]]
 
-    return Times(form[idx], utc[idx], std[idx], naive[idx], text, blank[idx])
+    return Times(form, utc, std, naive, idx, text, blank)
 
 
 def typed_times(arr: pa.Array, tz: str) -> Times:
     """Times of a Parquet timestamp column: time-zone aware → form 1, naive → form 2."""
     aware = arr.type.tz is not None
     unit = arr.type.unit
-    raw = pc.cast(arr, pa.int64()).fill_null(NAT).to_numpy(zero_copy_only=False)
+    raw = pc.cast(arr, pa.int64())
+    raw = (raw.fill_null(NAT) if raw.null_count else raw).to_numpy(zero_copy_only=False)
     per_ns = {"s": 10**9, "ms": 10**6, "us": 10**3, "ns": 1}[unit]
     lo = _LO.as_unit("ns").value // per_ns
     hi = _HI.as_unit("ns").value // per_ns
-    ok = (raw != NAT) & (raw >= lo) & (raw <= hi)
-    ns = np.where(ok, raw * per_ns, NAT)
-    form = np.where(ok, 1 if aware else 2, 0).astype(np.int8)
-    utc = ns if aware else np.full(len(ns), NAT, dtype=np.int64)
-    naive = np.full(len(ns), NAT, dtype=np.int64) if aware else ns
-    utc, std = _split_naive(form, utc, naive, tz)
-    return Times(form, utc, std, naive, lambda pos: _typed_text(arr, pos))
+    if len(raw) and raw.min() >= lo and raw.max() <= hi:  # every value usable
+        ns = raw * per_ns if per_ns != 1 else raw
+        form = np.full(len(ns), 1 if aware else 2, dtype=np.int8)
+    else:
+        ok = (raw != NAT) & (raw >= lo) & (raw <= hi)
+        ns = np.where(ok, raw * per_ns, NAT)
+        form = np.where(ok, 1 if aware else 2, 0).astype(np.int8)
+    if aware:  # std and naive matter only for naive times: no arrays made for them
+        return Times(form, ns, ns, ns, None, lambda pos: _typed_text(arr, pos))
+    utc, std = _split_naive(form, np.full(len(ns), NAT, dtype=np.int64), ns, tz)
+    return Times(form, utc, std, ns, None, lambda pos: _typed_text(arr, pos))
 
 
 def _typed_text(arr: pa.Array, pos: np.ndarray) -> list[str]:

@@ -36,16 +36,16 @@ def looks_wide(src: Source, study: Study) -> bool:
 
 @dataclass
 class WideRows:
-    """Per row: line, UTC ns (NAT where unusable), autumn-hour flag; per reading (grouped by
-    series, row order within): series code, time, MW, line, and the row of each reading."""
+    """Per row: line, UTC ns (NAT where unusable), autumn-hour flag (None: no row), the
+    timestamp texts ``text(rows)``; per reading (grouped by series, row order within):
+    series code, time, MW and its row."""
 
     line: np.ndarray
     t: np.ndarray
-    amb: np.ndarray
+    amb: np.ndarray | None
     code: np.ndarray
     rt: np.ndarray
     mw: np.ndarray
-    rline: np.ndarray
     row: np.ndarray
     text: Callable[[np.ndarray], list[str]]
 
@@ -96,17 +96,20 @@ class WideDecoder:
     def decode(self, b: Batch) -> WideRows:
         tm = batch_times(b.arrays[self.ts], self.rules.tz)
         vals = [mw_values(b.arrays[i], self.src.decimal_comma) for i in self.value_cols]
-        present = np.array([~v.blank & ~(np.isnan(v.mw) & _numeric(b.arrays[i]))
-                            for v, i in zip(vals, self.value_cols)]).reshape(-1, b.n)
+        present = np.array([_present(v, b.arrays[i]) for v, i in zip(vals, self.value_cols)],
+                           dtype=bool).reshape(-1, b.n)
         mw = np.array([v.mw for v in vals]).reshape(-1, b.n)
-        keep = present.any(axis=0) | ~tm.blank if tm.blank is not None else \
-            np.ones(b.n, dtype=bool)
-        self._value_problems(vals, present & keep, mw, b.line)
+        keep = None  # CSV rows with a blank time and no value are blank lines: dropped
+        if tm.blank is not None and tm.blank.any():
+            keep = present.any(axis=0) | ~tm.blank
+            present &= keep
+        self._value_problems(vals, present, mw, b.line)
         t, amb = self.rules.resolve(tm, keep, b.line, lambda q: [""] * len(q), _third)
-        ok = present & np.isfinite(mw) & (t != NAT)
+        ok = present & np.isfinite(mw)
+        if (t == NAT).any():
+            ok &= (t != NAT)
         j, r = np.nonzero(ok)
-        return WideRows(b.line, t, amb, self.codes[j], t[r], mw[j, r], b.line[r], r,
-                        lambda q: tm.text(r[q]))
+        return WideRows(b.line, t, amb, self.codes[j], t[r], mw[j, r], r, tm.text)
 
     def _value_problems(self, vals, present, mw, line) -> None:
         """Cells that hold something other than a finite number, in row order."""
@@ -119,6 +122,13 @@ class WideDecoder:
         self.p.mw.add(np.arange(len(j)), line[r], lambda q: [
             mw_message(vals[j[k]].text(np.array([r[k]]))[0]) for k in q],
             column=lambda q: [names[self.value_cols[j[k]]] for k in q])
+
+
+def _present(v, arr: pa.Array) -> np.ndarray:
+    """Cells holding something: numbers not NaN; text not blank (bad text is present)."""
+    if _numeric(arr):
+        return ~np.isnan(v.mw)
+    return np.ones(len(v.mw), dtype=bool) if v.blank is None else ~v.blank
 
 
 def _numeric(arr: pa.Array) -> bool:
