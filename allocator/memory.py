@@ -17,7 +17,11 @@ says how much is needed and how much is available.
 
 from __future__ import annotations
 
+import contextlib
+import ctypes
+import ctypes.util
 import os
+import sys
 
 from .errors import InputError, Problem
 
@@ -106,3 +110,41 @@ def require(need_bytes: int, what: str, file: str) -> None:
     raise InputError([Problem(file, f"{what} would need about {need_bytes / GB:.2f} GB of "
                               f"memory, but only {avail / GB:.2f} GB is available ({source});"
                               " free memory, use a larger machine or split the study")])
+
+
+# glibc mallopt parameters (malloc.h)
+_M_TRIM_THRESHOLD, _M_MMAP_THRESHOLD = -1, -3
+_GLIBC_DEFAULT = 128 * 1024
+
+
+def _libc_mallopt():
+    if not sys.platform.startswith("linux"):
+        return None
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+        return libc.mallopt
+    except (OSError, AttributeError):
+        return None
+
+
+@contextlib.contextmanager
+def reuse_freed_memory(max_chunk_bytes: int = 64 * MB, keep_bytes: int = GB):
+    """While a file is streamed, keep the memory of one batch's arrays for the next (glibc).
+
+    glibc malloc gives arrays of more than a few MB their own mapping and returns it on
+    free, so every batch would map fresh pages, which the kernel must zero first (measured
+    on the 2-core machine, 3,000 feeders × 35,040 intervals from Parquet: about 500,000 page
+    faults per read, against about 40,000 with these settings).  Inside the block arrays up
+    to ``max_chunk_bytes`` come from the heap and up to ``keep_bytes`` of freed heap are
+    kept; afterwards glibc's default thresholds are set again.  No effect elsewhere."""
+    mallopt = _libc_mallopt()
+    if mallopt is None:
+        yield
+        return
+    mallopt(_M_MMAP_THRESHOLD, int(max_chunk_bytes))
+    mallopt(_M_TRIM_THRESHOLD, int(keep_bytes))
+    try:
+        yield
+    finally:
+        mallopt(_M_MMAP_THRESHOLD, _GLIBC_DEFAULT)
+        mallopt(_M_TRIM_THRESHOLD, _GLIBC_DEFAULT)

@@ -18,6 +18,7 @@ import pandas as pd
 
 from .accumulate import Accumulator
 from .model import NAT, NS_PER_DAY
+from .quality import flat_runs
 
 CHUNK_ROWS = 256
 
@@ -43,23 +44,26 @@ def cover_end(cs: np.ndarray, t: np.ndarray, res: np.ndarray, tz: str) -> np.nda
 def means_in_place(acc: Accumulator) -> np.ndarray:
     """The sum array turned into values (NaN where no reading), ``[series, interval]``."""
     vals = acc.sum.reshape(acc.ns, acc.n_iv)
+    if acc.cnt is None:  # one reading per cell at most
+        return vals
     cnt = acc.cnt.reshape(acc.ns, acc.n_iv)
     for a in range(0, acc.ns, CHUNK_ROWS):
         s, c = vals[a:a + CHUNK_ROWS], cnt[a:a + CHUNK_ROWS]
         np.divide(s, c, out=s, where=c > 1)
-        s[c == 0] = np.nan
     return vals
 
 
-def hold_coarse(acc: Accumulator, vals: np.ndarray, res: np.ndarray, tz: str) -> int:
-    """Spread readings of series coarser than the interval over the intervals they cover.
-    Returns how many readings from before the year reach into it (they count as inside)."""
+def hold_coarse(acc: Accumulator, vals: np.ndarray, res: np.ndarray, tz: str,
+                flat: tuple[np.ndarray, np.ndarray, np.ndarray]) -> int:
+    """Spread readings of series coarser than the interval over the intervals they cover,
+    and measure their flat runs (``flat`` arrays, per series, set for these rows).  Returns
+    how many readings from before the year reach into it (they count as inside)."""
     rows = np.flatnonzero((res > acc.iv_ns) & ((acc.n_in > 0) | (acc.pre_t != NAT)))
-    cnt = acc.cnt.reshape(acc.ns, acc.n_iv)
     n_pre_in = 0
     for a in range(0, len(rows), CHUNK_ROWS):
         part = rows[a:a + CHUNK_ROWS]
-        r, col = np.nonzero(cnt[part] > 0)
+        starts = ~np.isnan(vals[part])
+        r, col = np.nonzero(starts)
         cs, i0, v = part[r], col.astype(np.int64), vals[part[r], col]
         pre = part[acc.pre_t[part] != NAT]
         if len(pre):
@@ -74,7 +78,17 @@ def hold_coarse(acc: Accumulator, vals: np.ndarray, res: np.ndarray, tz: str) ->
         i1 = -((acc.ts0 - end) // acc.iv_ns)  # ceil
         n_pre_in += _count_pre_inside(acc, cs, i0, i1, v)
         _fill(vals, cs, np.clip(i0 + 1, 0, acc.n_iv), np.clip(i1, 0, acc.n_iv), v, i0 < 0)
+        _pre_starts(starts, part, cs, i0, i1)
+        for out, got in zip(flat, flat_runs(vals[part], starts)):
+            out[part] = got
     return n_pre_in
+
+
+def _pre_starts(starts: np.ndarray, part: np.ndarray, cs, i0, i1) -> None:
+    """A reading from before the year that covers cell 0 starts a reading there."""
+    inside = (i0 < 0) & (i1 > 0)
+    if inside.any():
+        starts[np.searchsorted(part, cs[inside]), 0] = True
 
 
 def _count_pre_inside(acc: Accumulator, cs, i0, i1, v) -> int:

@@ -17,7 +17,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from .model import TOTAL_ID
+from .model import TOTAL_ID, np_of
 
 
 def _as_dictionary(arr: pa.Array) -> pa.DictionaryArray:
@@ -54,10 +54,10 @@ def match_ids(values: pa.Array, study_ids: pa.Array) -> np.ndarray:
 def feeder_codes(arr: pa.Array, study_ids: pa.Array) -> FeederCodes:
     d = _as_dictionary(arr)
     values = pc.utf8_trim_whitespace(d.dictionary.cast(pa.string()))
-    idx = d.indices.to_numpy(zero_copy_only=False)
+    idx = np_of(d.indices)
     if d.null_count:  # nulls take an appended blank entry
         values = pa.concat_arrays([values, pa.array([""])])
-        idx = d.indices.fill_null(len(values) - 1).to_numpy(zero_copy_only=False)
+        idx = np_of(d.indices.fill_null(len(values) - 1))
     dcode = match_ids(values, study_ids)
     dblank = pc.equal(values, "").to_numpy(zero_copy_only=False)
     unknown = ([], np.zeros(0, np.int64), np.zeros(0, np.int64))
@@ -90,7 +90,7 @@ class Values:
 def _numeric(arr: pa.Array) -> Values:
     if arr.type != pa.float64():
         arr = pc.cast(arr, pa.float64())
-    mw = arr.to_numpy(zero_copy_only=False)  # nulls become NaN
+    mw = np_of(arr)  # nulls become NaN
     return Values(mw, None, lambda pos: [f"{v}" for v in mw[pos]])
 
 
@@ -99,7 +99,7 @@ def _from_text(arr: pa.Array, decimal_comma: bool) -> Values:
     num = pc.replace_substring(txt, ",", ".") if decimal_comma else txt
     blank = None
     try:
-        mw = pc.cast(num, pa.float64()).to_numpy(zero_copy_only=False)  # nulls: NaN
+        mw = np_of(pc.cast(num, pa.float64()))  # nulls: NaN
     except pa.ArrowInvalid:
         s = pd.Series(num.to_numpy(zero_copy_only=False), dtype=object)
         mw = pd.to_numeric(s, errors="coerce").to_numpy(dtype=float, na_value=np.nan)

@@ -45,9 +45,17 @@ def interpolate_rows(v: np.ndarray) -> np.ndarray:
 def gap_runs(vals: np.ndarray, has: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Runs of intervals without a value of the rows that have data: (row, first, end)."""
     parts = []
+    m = vals.shape[1]
     for a in range(0, vals.shape[0], 256):
-        r, c0, c1 = runs2d(np.isnan(vals[a:a + 256]) & has[a:a + 256, None])
-        parts.append((r + a, c0, c1))
+        gap = np.isnan(vals[a:a + 256])
+        gap &= has[a:a + 256, None]
+        r, j = np.divmod(np.flatnonzero(gap), m)
+        if not len(r):
+            continue
+        brk = np.ones(len(r), dtype=bool)
+        brk[1:] = (r[1:] != r[:-1]) | (j[1:] != j[:-1] + 1)
+        s = np.flatnonzero(brk)
+        parts.append((r[s] + a, j[s], j[np.append(s[1:], len(j)) - 1] + 1))
     if not parts:
         return (np.zeros(0, np.int64),) * 3
     return tuple(np.concatenate([p[k] for p in parts]).astype(np.int64) for k in range(3))

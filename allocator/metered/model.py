@@ -66,6 +66,18 @@ class MeteredData:
         return int(np.count_nonzero(self.has_data))
 
 
+def np_of(arr) -> np.ndarray:
+    """An Arrow array as numpy: without a copy where Arrow allows it (no nulls, not bool).
+    (``to_numpy(zero_copy_only=False)`` takes a slow path even for arrays that need no copy:
+    measured 62 ms against 0.01 ms for a million int32 dictionary indices.)"""
+    if arr.null_count == 0:
+        try:
+            return arr.to_numpy(zero_copy_only=True)
+        except Exception:  # bool, or a type numpy cannot view
+            pass
+    return arr.to_numpy(zero_copy_only=False)
+
+
 def ns_of(idx: pd.DatetimeIndex) -> np.ndarray:
     """int64 nanoseconds since the epoch (UTC) of a tz-aware index."""
     return idx.tz_convert("UTC").as_unit("ns").asi8

@@ -33,39 +33,46 @@ def runs2d(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return r0, c0, c1
 
 
-def flat_runs(vals: np.ndarray, starts: np.ndarray) -> tuple[np.ndarray, ...]:
-    """Longest flat run per row of ``vals [row, interval]`` (``starts > 0`` marks the
-    intervals where a reading starts): (cells, first cell, value); ties go to the later
-    run."""
-    n = vals.shape[0]
+def flat_runs(vals: np.ndarray, starts: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
+    """Longest flat run per row of ``vals [row, interval]``: (cells, first cell, value); ties
+    go to the later run.  ``starts`` marks the intervals where a reading starts (held
+    readings cover more); None: every interval with a value is a reading."""
+    n, m = vals.shape
     cells = np.zeros(n, dtype=np.int64)
     first = np.zeros(n, dtype=np.int64)
     value = np.full(n, np.nan)
     for a in range(0, n, CHUNK_ROWS):
-        v, s = vals[a:a + CHUNK_ROWS], starts[a:a + CHUNK_ROWS]
-        eq = (v[:, 1:] == v[:, :-1]) & (v[:, 1:] != 0)
-        r, c0, c1 = runs2d(eq)  # run of eq over c0..c1-1 = cells c0..c1
+        v = vals[a:a + CHUNK_ROWS]
+        p = np.flatnonzero(v[:, 1:] == v[:, :-1])  # NaN is never equal: gaps break runs
+        r, j = np.divmod(p, m - 1)
+        nz = v[r, j] != 0
+        r, j = r[nz], j[nz]
         if not len(r):
             continue
-        acc = np.cumsum(s > 0, axis=1, dtype=np.int32)
-        n_read = acc[r, c1] - np.where(c0 > 0, acc[r, np.maximum(c0 - 1, 0)], 0)
-        ok = n_read >= 2
-        r, c0, c1 = r[ok], c0[ok], c1[ok]
-        if not len(r):
-            continue
+        brk = np.ones(len(r), dtype=bool)
+        brk[1:] = (r[1:] != r[:-1]) | (j[1:] != j[:-1] + 1)
+        s = np.flatnonzero(brk)
+        rr, c0, c1 = r[s], j[s], j[np.append(s[1:], len(j)) - 1] + 1  # cells c0..c1
+        if starts is not None:
+            acc = np.cumsum(starts[a:a + CHUNK_ROWS], axis=1, dtype=np.int32)
+            n_read = acc[rr, c1] - np.where(c0 > 0, acc[rr, np.maximum(c0 - 1, 0)], 0)
+            ok = n_read >= 2
+            rr, c0, c1 = rr[ok], c0[ok], c1[ok]
+            if not len(rr):
+                continue
         ln = c1 - c0 + 1
-        o = np.lexsort((c0, ln, r))
-        last = np.append(r[o][1:] != r[o][:-1], True)
-        rr, oo = r[o][last] + a, o[last]
-        cells[rr], first[rr] = ln[oo], c0[oo]
-        value[rr] = v[r[oo], c0[oo]]
+        o = np.lexsort((c0, ln, rr))
+        last = np.append(rr[o][1:] != rr[o][:-1], True)
+        pick = o[last]
+        cells[rr[pick] + a], first[rr[pick] + a] = ln[pick], c0[pick]
+        value[rr[pick] + a] = v[rr[pick], c0[pick]]
     return cells, first, value
 
 
-def reading_stats(ids: list[str], n_in, mn, mx, n_high, n_low, vals, starts, ts0: int,
+def reading_stats(ids: list[str], n_in, mn, mx, n_high, n_low, flat, ts0: int,
                   iv_ns: int) -> pd.DataFrame:
-    """One row per series (feeders, then TOTAL) for the flags."""
-    cells, first, value = flat_runs(vals, starts)
+    """One row per series (feeders, then TOTAL) for the flags; ``flat`` = flat_runs(...)."""
+    cells, first, value = flat
     h = cells * (iv_ns / NS_PER_H)
     has = n_in > 0
     out = pd.DataFrame({
@@ -90,7 +97,7 @@ def stats_from_aligned(study: Study, vals: np.ndarray, has: np.ndarray, ts_ns: n
                            np.nanmin(np.where(ok, vals, np.inf), axis=1),
                            np.nanmax(np.where(ok, vals, -np.inf), axis=1),
                            (vals > hi[:, None]).sum(axis=1), (vals < lo[:, None]).sum(axis=1),
-                           vals, ok, int(ts_ns[0]), iv_ns)
+                           flat_runs(vals), int(ts_ns[0]), iv_ns)
     return st
 
 

@@ -19,7 +19,7 @@ from .long import LongDecoder
 from .merge import gap_runs
 from .model import (MAX_LISTED, NAT, NS_PER_MIN, RANGE_FACTOR, RANGE_MARGIN_MW, MeteredData,
                     fmt_minutes, names, ns_of, series_ids)
-from .quality import reading_stats
+from .quality import flat_runs, reading_stats
 from .rowchecks import Problems
 from .sequence import SequenceCheck
 from .sources import RestartExact, Source, batches, open_source
@@ -38,10 +38,11 @@ def read_metered(path: str | os.PathLike, study: Study,
     """
     p = Path(path)
     src = open_source(p, Collector(str(p)))
-    try:
-        return _read(src, study, timestamps_utc, exact=False)
-    except RestartExact:
-        return _read(src, study, timestamps_utc, exact=True)
+    with memory.reuse_freed_memory():
+        try:
+            return _read(src, study, timestamps_utc, exact=False)
+        except RestartExact:
+            return _read(src, study, timestamps_utc, exact=True)
 
 
 class _Plan:
@@ -89,10 +90,39 @@ def _read(src: Source, study: Study, timestamps_utc, exact: bool) -> MeteredData
     return _finish(pl, acc, res, timestamps_utc)
 
 
-def _grouped(code: np.ndarray) -> np.ndarray:
-    """Stable order grouping rows by series (radix sort for up to 65,535 series)."""
-    key = code.astype(np.uint16) if code.size and code.max() < 65535 else code
-    return np.argsort(key, kind="stable")
+def _grouped(code: np.ndarray) -> np.ndarray | None:
+    """A stable order grouping the rows by series; None when they are grouped already
+    (a file written series by series).  A batch of a file written time step by time step
+    (the same feeders in the same order at every time) is grouped by a transpose; anything
+    else by a stable sort."""
+    n = len(code)
+    if n < 2:
+        return None
+    change = np.count_nonzero(code[1:] != code[:-1])
+    if change + 1 == np.count_nonzero(np.bincount(code)):
+        return None
+    again = np.flatnonzero(code[1:] == code[0])
+    p = int(again[0]) + 1 if len(again) else n
+    if 1 < p < n:
+        perm = _periodic(code, p)
+        if perm is not None:
+            return perm
+    return np.argsort(code, kind="stable")
+
+
+def _periodic(code: np.ndarray, p: int) -> np.ndarray | None:
+    """The grouping order when ``code`` repeats one sequence of ``p`` distinct series."""
+    n = len(code)
+    head = code[:p]
+    full, tail = divmod(n, p)
+    if np.count_nonzero(np.bincount(head)) != p:
+        return None
+    if not (code[:full * p].reshape(full, p) == head).all() or \
+            not (code[full * p:] == head[:tail]).all():
+        return None
+    idx = np.arange((full + 1) * p, dtype=np.int64).reshape(full + 1, p)
+    order = idx.T.ravel()
+    return order[order < n]
 
 
 def _starts(code: np.ndarray) -> np.ndarray:
@@ -113,10 +143,12 @@ def _feed(pl: _Plan, rows, seq: SequenceCheck, acc: Accumulator) -> None:
         return
     sel = (rows.code >= 0) & (rows.t != NAT)
     if sel.all():
-        pos = _grouped(rows.code)
+        g = _grouped(rows.code)
+        pos = np.arange(len(sel)) if g is None else g
     else:
         pos = np.flatnonzero(sel)
-        pos = pos[_grouped(rows.code[pos])]
+        g = _grouped(rows.code[pos])
+        pos = pos if g is None else pos[g]
     c, t = rows.code[pos], rows.t[pos]
     first = _starts(c)
     seq.update(c, t, pos, rows.line, None if rows.amb is None else rows.amb[pos], first)
@@ -163,16 +195,14 @@ def _off_grid(pl: _Plan, acc: Accumulator, res: np.ndarray) -> Listing:
 
 def _finish(pl: _Plan, acc: Accumulator, res: np.ndarray, timestamps_utc) -> MeteredData:
     study, nf = pl.study, pl.ns - 1
-    tz = study.settings.timezone
     vals = means_in_place(acc)
-    n_pre_in = hold_coarse(acc, vals, res, tz)
+    acc.cnt = None
+    flat = flat_runs(vals)  # coarse series: measured again with their reading starts
+    n_pre_in = hold_coarse(acc, vals, res, study.settings.timezone, flat)
     has_all = acc.n_in > 0
     notes = _notes(pl, res, has_all, acc.n_pre + acc.n_post - n_pre_in)
-    cnt = acc.cnt.reshape(acc.ns, acc.n_iv)
     stats = reading_stats(series_ids(study), acc.n_in, acc.min, acc.max, acc.n_high,
-                          acc.n_low, vals, cnt, pl.ts0, pl.iv_ns)
-    acc.cnt = None
-    del cnt
+                          acc.n_low, flat, pl.ts0, pl.iv_ns)
     values = vals[:nf]
     total = vals[nf].copy() if has_all[nf] else None
     return MeteredData(pl.file, tuple(study.feeder_ids), values, total, has_all[:nf].copy(),

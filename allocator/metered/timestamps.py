@@ -17,7 +17,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from .model import NAT
+from .model import NAT, np_of
 
 # a time of day followed by a UTC offset or Z at the end of the string
 OFFSET_RE = r"\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?\s*(?:[Zz]|[+-]\d{2}(?::?\d{2})?)$"
@@ -125,7 +125,7 @@ def text_times(arr: pa.Array, tz: str) -> Times:
     if not pa.types.is_dictionary(arr.type):
         arr = pc.dictionary_encode(arr)
     values = pc.utf8_trim_whitespace(arr.dictionary.cast(pa.string()))
-    idx = arr.indices.fill_null(-1).to_numpy(zero_copy_only=False)
+    idx = np_of(arr.indices.fill_null(-1) if arr.indices.null_count else arr.indices)
     form, utc, std, naive = parse_texts(values, tz)
     blank = pc.equal(values, "").to_numpy(zero_copy_only=False)
     if arr.null_count:  # a null (blank Parquet or wide-CSV cell) takes an appended entry
@@ -147,7 +147,7 @@ def typed_times(arr: pa.Array, tz: str) -> Times:
     aware = arr.type.tz is not None
     unit = arr.type.unit
     raw = pc.cast(arr, pa.int64())
-    raw = (raw.fill_null(NAT) if raw.null_count else raw).to_numpy(zero_copy_only=False)
+    raw = np_of(raw.fill_null(NAT) if raw.null_count else raw)
     per_ns = {"s": 10**9, "ms": 10**6, "us": 10**3, "ns": 1}[unit]
     lo = _LO.as_unit("ns").value // per_ns
     hi = _HI.as_unit("ns").value // per_ns
