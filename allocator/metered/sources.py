@@ -191,7 +191,7 @@ def _parquet_batches(src, columns, dict_cols, col, wide) -> Iterator[Batch]:
         pf = pq.ParquetFile(str(src.path), read_dictionary=strings or None)
         for rb in pf.iter_batches(batch_size=rows, columns=names, use_threads=True):
             n = rb.num_rows
-            yield Batch({i: rb.column(j) for j, i in enumerate(columns)},
+            yield Batch(dict(zip(columns, rb.columns)),
                         np.arange(k + 2, k + 2 + n, dtype=np.int64), n)
             k += n
     except (pa.ArrowException, OSError, ValueError) as exc:
@@ -241,7 +241,7 @@ def _csv_batches(src, columns, dict_cols, col, shape, exact, wide) -> Iterator[B
             ks = np.arange(k, k + n, dtype=np.int64)
             adj = np.asarray(skips, dtype=np.int64) - np.arange(len(skips)) - 2
             line = ks + 2 + np.searchsorted(adj, ks, side="right")
-            yield Batch({i: rb.column(j) for j, i in enumerate(columns)}, line, n)
+            yield Batch(dict(zip(columns, rb.columns)), line, n)
             k += n
     except (pa.ArrowException, OSError, EOFError, ValueError) as exc:
         if seen_bad:

@@ -14,10 +14,11 @@ from typing import Callable
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
 from ..domain import Study
 from .columns import match_ids, mw_values
-from .model import NAT, TOTAL_ID
+from .model import NAT, TOTAL_ID, np_of
 from .rowchecks import Problems, TimeRules, mw_message
 from .sources import Batch, Source
 from .timestamps import batch_times
@@ -95,40 +96,64 @@ class WideDecoder:
 
     def decode(self, b: Batch) -> WideRows:
         tm = batch_times(b.arrays[self.ts], self.rules.tz)
-        vals = [mw_values(b.arrays[i], self.src.decimal_comma) for i in self.value_cols]
-        present = np.array([_present(v, b.arrays[i]) for v, i in zip(vals, self.value_cols)],
-                           dtype=bool).reshape(-1, b.n)
-        mw = np.array([v.mw for v in vals]).reshape(-1, b.n)
+        mw, present, texts = self._values(b)
         keep = None  # CSV rows with a blank time and no value are blank lines: dropped
         if tm.blank is not None and tm.blank.any():
             keep = present.any(axis=0) | ~tm.blank
             present &= keep
-        self._value_problems(vals, present, mw, b.line)
+        ok = np.isfinite(mw)
+        bad = present & ~ok
+        if bad.any():
+            self._value_problems(texts, mw, bad, b.line)
         t, amb = self.rules.resolve(tm, keep, b.line, lambda q: [""] * len(q), _third)
-        ok = present & np.isfinite(mw)
         if (t == NAT).any():
             ok &= (t != NAT)
+        n, m = b.n, len(self.codes)
+        if ok.all():  # every cell a reading: no index arrays needed
+            return WideRows(b.line, t, amb, np.repeat(self.codes, n), np.tile(t, m),
+                            mw.ravel(), np.tile(np.arange(n), m), tm.text)
         j, r = np.nonzero(ok)
         return WideRows(b.line, t, amb, self.codes[j], t[r], mw[j, r], r, tm.text)
 
-    def _value_problems(self, vals, present, mw, line) -> None:
+    def _values(self, b: Batch) -> tuple[np.ndarray, np.ndarray, dict]:
+        """``[column, row]`` MW and whether a cell holds anything: numbers as they are (NaN
+        or null: no reading), text parsed (blank: no reading); ``texts`` keeps the parsed
+        text columns by position, for messages."""
+        mw = np.empty((len(self.value_cols), b.n))
+        present = np.ones(mw.shape, dtype=bool)
+        texts: dict[int, object] = {}
+        for j, i in enumerate(self.value_cols):
+            arr = b.arrays[i]
+            if arr.type == pa.float64():
+                mw[j] = np_of(arr)
+            elif _numeric(arr):
+                mw[j] = np_of(pc.cast(arr, pa.float64()))
+            else:
+                v = texts[j] = mw_values(arr, self.src.decimal_comma)
+                mw[j] = v.mw
+                if v.blank is not None:
+                    present[j] = ~v.blank
+        if len(texts) < len(self.value_cols):
+            num = np.ones(len(self.value_cols), dtype=bool)
+            num[list(texts)] = False
+            present[num] = ~np.isnan(mw[num])
+        return mw, present, texts
+
+    def _value_problems(self, texts: dict, mw: np.ndarray, bad: np.ndarray, line) -> None:
         """Cells that hold something other than a finite number, in row order."""
-        j, r = np.nonzero(present & ~np.isfinite(mw))
-        if not len(j):
-            return
+        j, r = np.nonzero(bad)
         o = np.lexsort((j, r))
         j, r = j[o], r[o]
         names = self.src.names
-        self.p.mw.add(np.arange(len(j)), line[r], lambda q: [
-            mw_message(vals[j[k]].text(np.array([r[k]]))[0]) for k in q],
-            column=lambda q: [names[self.value_cols[j[k]]] for k in q])
 
+        def written(k: int) -> str:
+            jk = int(j[k])
+            if jk in texts:
+                return texts[jk].text(np.array([r[k]]))[0]
+            return f"{mw[jk, r[k]]}"
 
-def _present(v, arr: pa.Array) -> np.ndarray:
-    """Cells holding something: numbers not NaN; text not blank (bad text is present)."""
-    if _numeric(arr):
-        return ~np.isnan(v.mw)
-    return np.ones(len(v.mw), dtype=bool) if v.blank is None else ~v.blank
+        self.p.mw.add(np.arange(len(j)), line[r], lambda q: [mw_message(written(k)) for k in q],
+                      column=lambda q: [names[self.value_cols[j[k]]] for k in q])
 
 
 def _numeric(arr: pa.Array) -> bool:
