@@ -845,3 +845,51 @@ def test_grouping_of_a_batch_is_a_stable_partition_by_series(codes):
     for k in set(codes):
         mine = [i for i in order if codes[i] == k]
         assert mine == sorted(mine)
+
+
+def test_malformed_line_with_bytes_that_are_not_utf8(tmp_path):
+    """pyarrow cannot even quote such a line; the file is reported as not UTF-8, at the byte
+    offset counted here by hand (header 23 bytes, line 2 27 bytes, 22 more)."""
+    study = make_study(tmp_path)
+    p = tmp_path / "latin.csv"
+    p.write_bytes(b"timestamp,feeder_id,mw\n2025-01-01T00:00:00Z,F01,1\n"
+                  b"2025-01-01T01:00:00Z,F\xdc1,1,4\n")
+    with pytest.raises(InputError) as ei:
+        read_metered(p, study, intervals(study))
+    assert problems(ei.value) == [(None, None, "cannot read the file as CSV: 'utf-8' codec "
+                                   "can't decode byte 0xdc in position 72: invalid "
+                                   "continuation byte")]
+
+
+def test_prefetching_hands_on_errors_and_stops_when_left_early():
+    import threading
+    import time
+
+    from allocator.metered.sources import prefetched
+
+    def gen(n, fail_at=None):
+        for i in range(n):
+            if i == fail_at:
+                raise ValueError("bad batch")
+            yield i
+
+    assert list(prefetched(gen(5))) == [0, 1, 2, 3, 4]
+    with pytest.raises(ValueError, match="bad batch"):
+        list(prefetched(gen(5, fail_at=3)))
+    before = threading.active_count()
+    it = prefetched(gen(10**9))
+    assert next(it) == 0
+    it.close()  # the consumer stops early (e.g. an input error in a batch)
+    time.sleep(0.3)
+    assert threading.active_count() <= before
+
+
+def test_reader_leaves_the_unraisable_hook_as_it_was(tmp_path):
+    import sys
+
+    study = make_study(tmp_path)
+    hook = sys.unraisablehook
+    p = write_text(tmp_path / "f.csv", ["timestamp,feeder_id,mw", "2025-01-01T00:00:00Z,F01,1,2"])
+    with pytest.raises(InputError):
+        read_metered(p, study, intervals(study))
+    assert sys.unraisablehook is hook

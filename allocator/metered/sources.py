@@ -16,9 +16,11 @@ sees it (header = line 1; for Parquet the record number + 1):
 from __future__ import annotations
 
 import codecs
+import contextlib
 import csv
 import gzip
 import queue
+import sys
 import threading
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -147,20 +149,25 @@ def prefetched(gen: Iterator, depth: int = 2) -> Iterator:
     stop = threading.Event()
     done = object()
 
+    def put(item) -> bool:
+        while not stop.is_set():
+            try:
+                q.put(item, timeout=0.1)
+                return True
+            except queue.Full:
+                continue
+        return False
+
     def work() -> None:
         try:
             for item in gen:
-                while not stop.is_set():
-                    try:
-                        q.put((True, item), timeout=0.1)
-                        break
-                    except queue.Full:
-                        continue
-                if stop.is_set():
+                if not put((True, item)):
                     return
-            q.put((True, done))
+            put((True, done))
         except BaseException as exc:  # handed to the consumer
-            q.put((False, exc))
+            put((False, exc))
+        finally:
+            gen.close()  # the reader's own clean-up runs on this thread
 
     th = threading.Thread(target=work, name="metered-reader", daemon=True)
     th.start()
@@ -235,20 +242,42 @@ def _csv_batches(src, columns, dict_cols, col, shape, exact, wide) -> Iterator[B
         return "skip"
 
     k = 0
+    with _row_text_errors() as undecodable:
+        try:
+            for rb in _csv_reader(src, columns, dict_cols, exact, wide, on_bad):
+                n = rb.num_rows
+                ks = np.arange(k, k + n, dtype=np.int64)
+                adj = np.asarray(skips, dtype=np.int64) - np.arange(len(skips)) - 2
+                line = ks + 2 + np.searchsorted(adj, ks, side="right")
+                yield Batch(dict(zip(columns, rb.columns)), line, n)
+                k += n
+        except (pa.ArrowException, OSError, EOFError, ValueError) as exc:
+            if seen_bad and not undecodable:
+                raise RestartExact() from None
+            if undecodable or "UTF8" in str(exc) or "UTF-8" in str(exc):
+                exc = _utf8_error(src) or exc
+            _cannot(col, "CSV", exc)
+
+
+@contextlib.contextmanager
+def _row_text_errors():
+    """pyarrow decodes a malformed line as UTF-8 before it calls the handler and, when that
+    fails, prints the error and stops the read: the file is not UTF-8, which is reported as
+    such.  The list it yields is non-empty when that happened."""
+    seen: list[int] = []
+    old = sys.unraisablehook
+
+    def hook(u) -> None:
+        if isinstance(u.exc_value, UnicodeDecodeError):
+            seen.append(1)
+        else:
+            old(u)
+
+    sys.unraisablehook = hook
     try:
-        for rb in _csv_reader(src, columns, dict_cols, exact, wide, on_bad):
-            n = rb.num_rows
-            ks = np.arange(k, k + n, dtype=np.int64)
-            adj = np.asarray(skips, dtype=np.int64) - np.arange(len(skips)) - 2
-            line = ks + 2 + np.searchsorted(adj, ks, side="right")
-            yield Batch(dict(zip(columns, rb.columns)), line, n)
-            k += n
-    except (pa.ArrowException, OSError, EOFError, ValueError) as exc:
-        if seen_bad:
-            raise RestartExact() from None
-        if "UTF8" in str(exc) or "UTF-8" in str(exc):
-            exc = _utf8_error(src) or exc
-        _cannot(col, "CSV", exc)
+        yield seen
+    finally:
+        sys.unraisablehook = old
 
 
 def _utf8_error(src: Source) -> UnicodeDecodeError | ValueError | None:
