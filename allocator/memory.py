@@ -6,7 +6,9 @@ they are about to allocate and compare them with the memory the machine has free
 
 * Linux: ``MemAvailable`` of ``/proc/meminfo`` (the kernel's estimate of memory available
   for new work without swapping);
-* elsewhere: free physical pages (``os.sysconf``) when the platform reports them;
+* elsewhere: ``psutil.virtual_memory().available`` when psutil is installed, Windows'
+  ``GlobalMemoryStatusEx`` (available physical memory), or free physical pages
+  (``os.sysconf``) where the platform reports them; when none is known nothing is refused;
 * capped by the address-space limit (``RLIMIT_AS``) less what the process already maps,
   and by ``UFLS_MAX_MEMORY_MB`` when set (to keep the tool within a share of a shared
   machine).
@@ -48,6 +50,38 @@ def _sysconf_available() -> int | None:
         return None
 
 
+def _psutil_available() -> int | None:
+    try:
+        import psutil  # optional; not a dependency
+
+        return int(psutil.virtual_memory().available)
+    except Exception:
+        return None
+
+
+def _windows_available() -> int | None:
+    if not sys.platform.startswith("win"):
+        return None
+
+    class Status(ctypes.Structure):
+        _fields_ = [("dwLength", ctypes.c_ulong), ("dwMemoryLoad", ctypes.c_ulong),
+                    ("ullTotalPhys", ctypes.c_ulonglong), ("ullAvailPhys", ctypes.c_ulonglong),
+                    ("ullTotalPageFile", ctypes.c_ulonglong),
+                    ("ullAvailPageFile", ctypes.c_ulonglong),
+                    ("ullTotalVirtual", ctypes.c_ulonglong),
+                    ("ullAvailVirtual", ctypes.c_ulonglong),
+                    ("ullAvailExtendedVirtual", ctypes.c_ulonglong)]
+
+    st = Status()
+    st.dwLength = ctypes.sizeof(Status)
+    try:
+        if ctypes.windll.kernel32.GlobalMemoryStatusEx(ctypes.byref(st)):  # type: ignore
+            return int(st.ullAvailPhys)
+    except (AttributeError, OSError):
+        pass
+    return None
+
+
 def _address_space_left() -> int | None:
     """RLIMIT_AS less the current virtual size, when a limit is set."""
     try:
@@ -86,11 +120,15 @@ def env_limit_bytes(file: str) -> int | None:
 
 def available_bytes(file: str = "") -> tuple[int | None, str]:
     """(bytes available for new arrays or None if unknown, where the number comes from)."""
-    found = [(v, s) for v, s in ((_meminfo_available(), "MemAvailable"),) if v is not None]
-    if not found:
-        v = _sysconf_available()
+    found = []
+    for probe, name in ((_meminfo_available, "MemAvailable"),
+                        (_psutil_available, "available memory"),
+                        (_windows_available, "available physical memory"),
+                        (_sysconf_available, "free physical memory")):
+        v = probe()
         if v is not None:
-            found.append((v, "free physical memory"))
+            found.append((v, name))
+            break
     v = _address_space_left()
     if v is not None:
         found.append((v, "address-space limit"))

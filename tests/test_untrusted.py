@@ -294,6 +294,29 @@ def test_memory_available_reads_proc_meminfo():
         assert abs(got - int(m.group(1)) * 1024) < 512 * 1024 * 1024  # it moves between reads
 
 
+def test_memory_available_without_proc_meminfo_falls_back(monkeypatch):
+    """Where /proc/meminfo is missing the free physical pages of sysconf(3) are used, here
+    compared with os.sysconf read directly; with nothing known, nothing is refused."""
+    import os
+
+    from allocator import memory
+
+    monkeypatch.setattr(memory, "_meminfo_available", lambda: None)
+    monkeypatch.setattr(memory, "_psutil_available", lambda: None)
+    monkeypatch.delenv("UFLS_MAX_MEMORY_MB", raising=False)
+    try:
+        want = os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    except (ValueError, OSError, AttributeError):
+        want = None
+    got, source = memory.available_bytes()
+    if want is not None and source == "free physical memory":
+        assert abs(got - want) < 512 * 1024 * 1024
+    monkeypatch.setattr(memory, "_sysconf_available", lambda: None)
+    monkeypatch.setattr(memory, "_address_space_left", lambda: None)
+    assert memory.available_bytes() == (None, "unknown")
+    memory.require(10**15, "a petabyte", "x.csv")  # unknown: not refused
+
+
 @pytest.mark.parametrize("value", ["lots", "-1", "0", "inf", "nan"])
 def test_memory_limit_not_a_positive_number_is_an_input_error(metered_case, monkeypatch,
                                                               value):
