@@ -42,7 +42,8 @@ def read_metered(path: str | os.PathLike, study: Study,
         try:
             return _read(src, study, timestamps_utc, exact=False)
         except RestartExact:
-            return _read(src, study, timestamps_utc, exact=True)
+            pass  # read again below, once the first pass's arrays are released
+        return _read(src, study, timestamps_utc, exact=True)
 
 
 class _Plan:
