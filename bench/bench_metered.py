@@ -17,8 +17,9 @@ the end).  Then, each in its own child process so peaks do not mix:
   the whole command (workbook, metered file with every check, the year, the armed-load
   check, the CSV/JSON outputs).
 
-Wall time by ``time.perf_counter`` around the child, peak RSS from ``os.wait4`` (that child
-alone, started from a small launcher process: see ``LAUNCHER``).  The load average at the start of each run is printed, since the machine is shared.
+Wall time by ``time.perf_counter`` around the child, CPU time (user + system) and peak RSS
+from ``os.wait4`` (that child alone, started from a small launcher process: see
+``LAUNCHER``).  CPU time varies less than wall time when other work shares the machine.  The load average at the start of each run is printed, since the machine is shared.
 
 Targets (issue 13): 3,000 feeders × 35,040 intervals long CSV ≤ 60 s, ≤ 4 GB, ≤ 2.5× the
 baseline; the same as long and wide Parquet ≤ 20 s, ≤ 3 GB; 10,000 feeders long Parquet and
@@ -227,7 +228,7 @@ if pid == 0:
     os.execv(sys.argv[1], sys.argv[1:])
 _, status, ru = os.wait4(pid, 0)
 print(json.dumps({"rc": os.waitstatus_to_exitcode(status), "s": time.perf_counter() - t0,
-                  "maxrss_kb": ru.ru_maxrss}))
+                  "maxrss_kb": ru.ru_maxrss, "cpu_s": ru.ru_utime + ru.ru_stime}))
 """
 
 
@@ -240,7 +241,7 @@ def run_child(argv: list[str], cwd: Path) -> dict:
     res = json.loads(p.stdout.decode().strip().splitlines()[-1])
     tail = (cwd / "stderr.txt").read_text(errors="replace").strip().splitlines()[-3:]
     return {"rc": res["rc"], "wall_s": res["s"], "peak_gb": res["maxrss_kb"] / 2**20,
-            "load": load, "tail": tail}
+            "cpu_s": res["cpu_s"], "load": load, "tail": tail}
 
 
 def run_case(c: Case, data: Path) -> dict:
@@ -278,9 +279,9 @@ def verdict(c: Case, r: dict) -> str:
 
 
 def table(cases: list[Case], results: list[dict]) -> str:
-    head = ("| case | rows | file | tool s | tool peak | baseline s | baseline peak | "
-            "ratio | target | load | verdict |")
-    lines = [head, "|" + "---|" * 11]
+    head = ("| case | rows | file | tool s | tool CPU s | tool peak | baseline s | "
+            "baseline CPU s | baseline peak | ratio | target | load | verdict |")
+    lines = [head, "|" + "---|" * 13]
     for c, r in zip(cases, results):
         t, b = r["tool"], r["baseline"]
         target = ", ".join(x for x in (
@@ -289,7 +290,8 @@ def table(cases: list[Case], results: list[dict]) -> str:
         lines.append(
             f"| {c.name}: {c.feeders:,} × {c.interval} min {c.layout} {c.fmt} | "
             f"{r['rows_m']:.1f} M | {r['file_gb']:.2f} GB | {t['wall_s']:.1f} | "
-            f"{t['peak_gb']:.2f} GB | {b['wall_s']:.1f} | {b['peak_gb']:.2f} GB | "
+            f"{t['cpu_s']:.1f} | {t['peak_gb']:.2f} GB | {b['wall_s']:.1f} | {b['cpu_s']:.1f} | "
+            f"{b['peak_gb']:.2f} GB | "
             f"{t['wall_s'] / b['wall_s']:.2f} | {target} | {t['load']:.1f} | "
             f"{verdict(c, r)} |")
     return "\n".join(lines)
