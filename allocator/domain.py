@@ -21,6 +21,15 @@ MINUTES_PER_DAY = 1440
 
 
 @dataclass(frozen=True)
+class FeederFlag:
+    """A data-quality note on one feeder's series (metered path)."""
+
+    feeder_id: str
+    flag: str  # e.g. "gaps_filled", "flat_lined", "all_zero", "out_of_range", "no_metered_data"
+    detail: str
+
+
+@dataclass(frozen=True)
 class Settings:
     """The ``settings`` sheet, typed.  Percentages are percent of demand."""
 

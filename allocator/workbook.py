@@ -48,6 +48,8 @@ SEASON_COLUMNS = ("season", "months")
 #: longest relay delay + breaker time, s, from the frequency crossing to load disconnected,
 #: before ``validate`` warns (a rule of thumb: common practice, no source)
 MAX_OPERATING_TIME_S = 0.4
+#: study interval lengths, minutes (each divides an hour, so DST shifts stay on the grid)
+INTERVAL_MINUTES = (5.0, 10.0, 15.0, 30.0, 60.0)
 SETTING_KEYS_REQUIRED = ("utility", "year", "timezone", "nominal_hz", "interval_minutes",
                          "latitude", "longitude", "demand_basis", "priority_policy",
                          "compliance_rule")
@@ -359,9 +361,9 @@ def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, l
     nominal = num("nominal_hz", what="50 or 60")
     if nominal is not None and nominal not in (50.0, 60.0):
         bad("nominal_hz", f"expected 50 or 60, found {nominal:g}")
-    interval = num("interval_minutes", what="15, 30 or 60")
-    if interval is not None and interval not in (15.0, 30.0, 60.0):
-        bad("interval_minutes", f"expected 15, 30 or 60, found {interval:g}")
+    interval = num("interval_minutes", what="5, 10, 15, 30 or 60")
+    if interval is not None and interval not in INTERVAL_MINUTES:
+        bad("interval_minutes", f"expected 5, 10, 15, 30 or 60, found {interval:g}")
     lat = num("latitude", minimum=-90, maximum=90, what="latitude in degrees")
     lon = num("longitude", minimum=-180, maximum=180, what="longitude in degrees")
     country = txt("holiday_country")

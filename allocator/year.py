@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from .domain import DAY_TYPES, MINUTES_PER_DAY, Scenario, Settings, Study
+from .domain import DAY_TYPES, MINUTES_PER_DAY, FeederFlag, Scenario, Settings, Study
 from .solar import clearsky_pv_pu
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -24,15 +24,6 @@ if TYPE_CHECKING:  # pragma: no cover
 
 #: rows of the [feeder, interval] array built per chunk (bounds temporaries)
 _CHUNK_FEEDERS = 256
-
-
-@dataclass(frozen=True)
-class FeederFlag:
-    """A data-quality note on one feeder's series (metered path)."""
-
-    feeder_id: str
-    flag: str  # e.g. "gaps_filled", "flat_lined", "all_zero", "out_of_range", "no_metered_data"
-    detail: str
 
 
 @dataclass(frozen=True)
@@ -124,8 +115,10 @@ def profile_table_pu(study: Study, interval_minutes: int) -> np.ndarray:
 # builder
 # --------------------------------------------------------------------------------------------
 def gross_load_mw(study: Study, local_times: pd.DatetimeIndex, season_idx: np.ndarray,
-                  day_idx: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
-    """Gross load ``[feeder, interval]`` MW = peak_mw × profile value at the local time."""
+                  day_idx: np.ndarray, out: np.ndarray | None = None,
+                  rows: np.ndarray | None = None) -> np.ndarray:
+    """Gross load ``[feeder, interval]`` MW = peak_mw × profile value at the local time;
+    ``rows`` = feeder indices to compute (default all), in that order."""
     iv = study.settings.interval_minutes
     table = profile_table_pu(study, iv)
     n_p, n_s, n_d, n_slots = table.shape
@@ -133,9 +126,10 @@ def gross_load_mw(study: Study, local_times: pd.DatetimeIndex, season_idx: np.nd
     slot = np.minimum(minute // iv, n_slots - 1)
     key = (season_idx.astype(np.intp) * n_d + day_idx.astype(np.intp)) * n_slots + slot
     flat = table.reshape(n_p, -1)[:, key]  # [profile, interval] - small
-    prof = study.profile_index
-    peak = study.peak_mw
-    n_f = len(prof)
+    rows = np.arange(len(study.feeders)) if rows is None else np.asarray(rows, dtype=np.intp)
+    prof = study.profile_index[rows]
+    peak = study.peak_mw[rows]
+    n_f = len(rows)
     if out is None:
         out = np.empty((n_f, len(key)), dtype=float)
     for a in range(0, n_f, _CHUNK_FEEDERS):
@@ -163,6 +157,48 @@ def scenario_pv_pu(study: Study, scenario: Scenario, ts: pd.DatetimeIndex) -> np
     return clearsky_pv_pu(ts, s.interval_minutes, s.latitude_deg, s.longitude_deg)
 
 
+@dataclass(frozen=True)
+class Calendar:
+    """One year's intervals and what each one is: local time, season, day type, PV."""
+
+    timestamps_utc: pd.DatetimeIndex
+    local_times: pd.DatetimeIndex
+    season_index: np.ndarray
+    day_type_index: np.ndarray
+    pv_pu: np.ndarray
+
+
+def study_calendar(study: Study, scenario: Scenario | None = None) -> Calendar:
+    """The calendar of ``scenario``'s year (default the clear-sky study year): its own
+    weekdays, holidays, DST days and PV per unit."""
+    s = study.settings
+    sc = scenario or REFERENCE_SCENARIO
+    cal_year = s.year if scenario is None else sc.year
+    ts = study_intervals(cal_year, s.timezone, s.interval_minutes)
+    local = ts.tz_convert(s.timezone)
+    season_idx = study.profiles.month_season[local.month.to_numpy() - 1]
+    day_idx = day_type_index(local, holiday_dates(s, cal_year))
+    pv_pu = scenario_pv_pu(study, sc, ts)
+    return Calendar(ts, local, season_idx, day_idx, pv_pu)
+
+
+def profile_net_mw(study: Study, cal: Calendar, rows: np.ndarray | None = None,
+                   out: np.ndarray | None = None, load_scale: float = 1.0,
+                   pv_scale: float = 1.0) -> np.ndarray:
+    """Profile-built net load ``[feeder, interval]`` of ``rows`` (default all feeders):
+    load_scale × gross − pv_scale × pv_mw × pv_derate × the calendar's PV per unit."""
+    rows = np.arange(len(study.feeders)) if rows is None else np.asarray(rows, dtype=np.intp)
+    net = gross_load_mw(study, cal.local_times, cal.season_index, cal.day_type_index,
+                        out=out, rows=rows)
+    if load_scale != 1.0:
+        net *= load_scale
+    pv_cap = study.pv_mw[rows] * study.settings.pv_derate * pv_scale
+    for a in range(0, net.shape[0], _CHUNK_FEEDERS):
+        b = min(a + _CHUNK_FEEDERS, net.shape[0])
+        net[a:b] -= pv_cap[a:b, None] * cal.pv_pu[None, :]
+    return net
+
+
 def build_year(study: Study, metered: "MeteredData | None" = None,
                scenario: Scenario | None = None) -> Year:
     """Build one year of per-feeder net load: the scenario's calendar year, PV and scales.
@@ -170,28 +206,18 @@ def build_year(study: Study, metered: "MeteredData | None" = None,
     Profile path: net = load_scale × peak_mw × profile(season, day type, local time)
     − pv_scale × pv_mw × pv_derate × PV per unit (clear sky, none or a weather year).
     ``scenario`` None is the clear-sky study year.  With ``metered`` data (the metered
-    scenario, in the study year), metered values replace the profile ones where present;
-    gaps are filled by ``gap_fill`` (see :mod:`allocator.metered`).
-    Demand per ``demand_basis``: ``feeders`` = sum of all feeders' net load;
-    ``metered_total`` = the metered TOTAL series.
+    scenario, in the study year; ``scenario`` is ignored), metered values are used where
+    present and gaps are filled by ``gap_fill`` from the clear-sky profiles (see
+    :mod:`allocator.metered`); profile values are computed only for the feeders that need
+    them, and the metered array read by :func:`~allocator.metered.read_metered` becomes
+    ``net_mw`` (filled in place).  Demand per ``demand_basis``: ``feeders`` = sum of all
+    feeders' net load; ``metered_total`` = the metered TOTAL series.
     """
     s = study.settings
+    if metered is not None:
+        scenario = None
     sc = scenario or REFERENCE_SCENARIO
-    cal_year = s.year if (scenario is None or metered is not None) else sc.year
-    ts = study_intervals(cal_year, s.timezone, s.interval_minutes)
-    local = ts.tz_convert(s.timezone)
-    season_idx = study.profiles.month_season[local.month.to_numpy() - 1]
-    day_idx = day_type_index(local, holiday_dates(s, cal_year))
-    pv_pu = scenario_pv_pu(study, sc, ts)
-
-    net = gross_load_mw(study, local, season_idx, day_idx)
-    if sc.load_scale != 1.0:
-        net *= sc.load_scale
-    pv_cap = study.pv_mw * s.pv_derate * sc.pv_scale
-    for a in range(0, net.shape[0], _CHUNK_FEEDERS):
-        b = min(a + _CHUNK_FEEDERS, net.shape[0])
-        net[a:b] -= pv_cap[a:b, None] * pv_pu[None, :]
-
+    cal = study_calendar(study, scenario)
     flags: tuple[FeederFlag, ...] = ()
     notes: list[str] = []
     source = "profiles"
@@ -199,9 +225,17 @@ def build_year(study: Study, metered: "MeteredData | None" = None,
     if metered is not None:
         from .metered import merge_metered
 
-        net, total, flags, more = merge_metered(study, metered, ts, net)
+        net, total, flags, more = merge_metered(
+            study, metered, cal.timestamps_utc, lambda rows: profile_net_mw(study, cal, rows))
         notes += more
         source = "metered"
+    else:
+        from .memory import require
+
+        n_f, n_iv = len(study.feeders), len(cal.timestamps_utc)
+        require(n_f * n_iv * 8, f"the year of net load ({n_f:,} feeders × {n_iv:,} intervals "
+                "× 8 bytes)", study.path)
+        net = profile_net_mw(study, cal, load_scale=sc.load_scale, pv_scale=sc.pv_scale)
     if s.demand_basis == "metered_total":
         if total is None:
             from .errors import InputError, Problem
@@ -216,12 +250,13 @@ def build_year(study: Study, metered: "MeteredData | None" = None,
     demand = np.asarray(demand, dtype=float)
     demand.setflags(write=False)
     name = "metered" if metered is not None else sc.name
-    info = ({"pv": "metered", "pv_scale": 1.0, "load_scale": 1.0, "year": cal_year}
+    info = ({"pv": "metered", "pv_scale": 1.0, "load_scale": 1.0, "year": s.year}
             if metered is not None else
             {"pv": sc.pv_text, "pv_scale": sc.pv_scale, "load_scale": sc.load_scale,
-             "year": cal_year})
-    return Year(ts, s.timezone, s.interval_minutes, study.feeder_ids, net, demand, pv_pu,
-                season_idx, day_idx, source, tuple(flags), tuple(notes), name, info)
+             "year": sc.year if scenario is not None else s.year})
+    return Year(cal.timestamps_utc, s.timezone, s.interval_minutes, study.feeder_ids, net,
+                demand, cal.pv_pu, cal.season_index, cal.day_type_index, source,
+                tuple(flags), tuple(notes), name, info)
 
 
 def year_summary(study: Study, year: Year) -> pd.DataFrame:
@@ -247,5 +282,6 @@ def year_summary(study: Study, year: Year) -> pd.DataFrame:
     })
 
 
-__all__ = ["Year", "FeederFlag", "build_year", "study_intervals", "day_type_index",
-           "holiday_dates", "profile_table_pu", "gross_load_mw", "year_summary", "DAY_TYPES"]
+__all__ = ["Year", "FeederFlag", "Calendar", "build_year", "study_calendar", "study_intervals",
+           "day_type_index", "holiday_dates", "profile_table_pu", "gross_load_mw",
+           "profile_net_mw", "year_summary", "DAY_TYPES"]

@@ -319,18 +319,6 @@ def test_listing_is_capped_with_a_count(tmp_path):
     assert e.problems[-1].message == "... and 28 more lines with a non-numeric or non-finite mw"
 
 
-def test_file_size_limit_from_environment(tmp_path, monkeypatch):
-    study = make_study(tmp_path)
-    path = write_text(tmp_path / "big.csv", ["timestamp,feeder_id,mw"] +
-                      [f"2025-01-01T{h:02d}:00:00Z,F01,1" for h in range(24)])
-    monkeypatch.setenv("UFLS_MAX_METERED_MB", "0.0001")
-    with pytest.raises(InputError) as ei:
-        read_metered(path, study, intervals(study))
-    assert "0.0001 MB limit" in str(ei.value) and "UFLS_MAX_METERED_MB" in str(ei.value)
-    monkeypatch.delenv("UFLS_MAX_METERED_MB")
-    assert read_metered(path, study, intervals(study)).has_data[1]
-
-
 def test_missing_file_and_unknown_type(tmp_path):
     study = make_study(tmp_path)
     with pytest.raises(InputError, match="not found"):
@@ -569,3 +557,339 @@ def test_parquet(tmp_path):
     with pytest.raises(InputError) as ei:
         read_metered(tmp_path / "bad.parquet", study, ts)
     assert has_problem(ei.value, 3, "feeder_id", "'ZZ'")
+
+
+# --------------------------------------------------------------------------------------------
+# streaming: results do not depend on where the batches end
+# --------------------------------------------------------------------------------------------
+@pytest.fixture()
+def tiny_batches(monkeypatch):
+    """Batches of a few rows, so every state that is carried from batch to batch is used."""
+    import allocator.metered.sources as sources
+
+    monkeypatch.setattr(sources, "CSV_BLOCK_BYTES", 1024)
+    monkeypatch.setattr(sources, "BATCH_CELLS", 16)
+
+
+def assert_same_metered(a: MeteredData, b: MeteredData) -> None:
+    # NaN positions must agree; means of readings split over two batches are summed in
+    # another order, hence the rounding tolerance
+    np.testing.assert_allclose(a.values_mw, b.values_mw, rtol=0, atol=1e-12)
+    assert (a.total_mw is None) == (b.total_mw is None)
+    if a.total_mw is not None:
+        np.testing.assert_allclose(a.total_mw, b.total_mw, rtol=0, atol=1e-12)
+    np.testing.assert_array_equal(a.has_data, b.has_data)
+    assert a.notes == b.notes
+    pd.testing.assert_frame_equal(a.reading_stats, b.reading_stats)
+
+
+def _mixed_resolution_file(tmp_path, ts):
+    """F00 hourly with a 3-hour gap, F01 every 15 min (averaged), F02 daily at local
+    midnight (held), TOTAL hourly; offsets written, time-major like a SCADA export."""
+    q = pd.date_range(ts[0], periods=4 * len(ts), freq="15min")
+    rng = np.random.default_rng(5)
+    f00 = rng.uniform(0.5, 1.5, len(ts))
+    f01 = rng.uniform(1.0, 2.0, len(q))
+    days = pd.date_range("2025-01-01", "2025-12-31", freq="D", tz=TZ)
+    f02 = np.arange(len(days), dtype=float) % 7 + 1.0
+    total = rng.uniform(20, 30, len(ts))
+    parts = [pd.DataFrame({"t": ts, "feeder_id": "F00", "mw": f00}).drop(index=range(50, 53)),
+             pd.DataFrame({"t": q, "feeder_id": "F01", "mw": f01}),
+             pd.DataFrame({"t": days.tz_convert("UTC"), "feeder_id": "F02", "mw": f02}),
+             pd.DataFrame({"t": ts, "feeder_id": "TOTAL", "mw": total})]
+    df = pd.concat(parts).sort_values("t", kind="stable")
+    df.insert(0, "timestamp", offset_text(pd.DatetimeIndex(df.pop("t"))))
+    path = write_csv(tmp_path / "mixed.csv", df)
+    return path, f00, f01, f02, total
+
+
+def test_small_batches_give_the_same_aligned_data(tmp_path, monkeypatch):
+    study = make_study(tmp_path)
+    ts = intervals(study)
+    path, f00, f01, f02, total = _mixed_resolution_file(tmp_path, ts)
+    whole = read_metered(path, study, ts)
+    import allocator.metered.sources as sources
+
+    monkeypatch.setattr(sources, "CSV_BLOCK_BYTES", 1024)
+    pieces = read_metered(path, study, ts)
+    assert_same_metered(whole, pieces)
+    # and against the readings themselves
+    want00 = f00.copy()
+    want00[50:53] = np.nan
+    np.testing.assert_array_equal(whole.values_mw[0], want00)
+    np.testing.assert_allclose(whole.values_mw[1], f01.reshape(-1, 4).mean(axis=1),
+                               rtol=0, atol=1e-12)
+    local = ts.tz_convert(TZ)
+    day = (local.normalize().tz_localize(None) - pd.Timestamp("2025-01-01")).days
+    np.testing.assert_array_equal(whole.values_mw[2], f02[day])  # DST days: 23 / 25 h
+    np.testing.assert_array_equal(whole.total_mw, total)
+
+
+def test_small_batches_naive_local_times_with_both_dst_changes(tmp_path, monkeypatch):
+    study = make_study(tmp_path)
+    ts = intervals(study)
+    vals = np.random.default_rng(2).normal(2.0, 0.3, size=(3, len(ts)))
+    path = write_csv(tmp_path / "naive.csv",
+                     long_frame(naive_text(ts), study.feeder_ids[:3], vals))
+    whole = read_metered(path, study, ts)
+    import allocator.metered.sources as sources
+
+    monkeypatch.setattr(sources, "CSV_BLOCK_BYTES", 512)
+    assert_same_metered(whole, read_metered(path, study, ts))
+    np.testing.assert_array_equal(whole.values_mw[:3], vals)
+
+
+def test_problems_across_batches_keep_their_lines(tmp_path, tiny_batches):
+    """Duplicates whose first reading is many batches back, a stretch of readings exported
+    twice (they go back in time: found by the second read), an out-of-order reading."""
+    study = make_study(tmp_path)
+    ts = intervals(study)
+    hours = [f"2025-01-{1 + h // 24:02d}T{h % 24:02d}:00:00Z" for h in range(72)]
+    lines = ["timestamp,feeder_id,mw"] + [f"{t},F01,1.5" for t in hours]  # lines 2..73
+    lines += [f"{t},F01,1.5" for t in hours[10:13]]  # lines 74..76 repeat lines 12..14
+    lines += ["2025-01-04T05:00:00Z,F01,1", "2025-01-04T03:00:00Z,F01,1"]  # 77, 78
+    lines += ["2025-01-04T05:00:00Z,F01,2"]  # 79 duplicates line 77
+    with pytest.raises(InputError) as ei:
+        read_metered(write_text(tmp_path / "twice.csv", lines), study, ts)
+    got = problems(ei.value)
+    assert got == [
+        (74, "timestamp", "second reading for feeder 'F01' at 2025-01-01 11:00 (local); the "
+                          "first is on line 12"),
+        (75, "timestamp", "second reading for feeder 'F01' at 2025-01-01 12:00 (local); the "
+                          "first is on line 13"),
+        (76, "timestamp", "second reading for feeder 'F01' at 2025-01-01 13:00 (local); the "
+                          "first is on line 14"),
+        (79, "timestamp", "second reading for feeder 'F01' at 2025-01-04 06:00 (local); the "
+                          "first is on line 77"),
+        (78, "timestamp", "timestamp 2025-01-04 04:00 (local) of feeder 'F01' comes after a "
+                          "reading for 2025-01-04 06:00; each feeder's readings must be in "
+                          "time order")]
+
+
+def test_third_autumn_reading_counted_across_batches(tmp_path, tiny_batches):
+    study = make_study(tmp_path)
+    lines = ["timestamp,feeder_id,mw"] + [f"2025-10-26 0{h}:00,F0{f},1"
+                                          for h in (0, 1, 2, 2) for f in range(6)]
+    lines += ["2025-10-26 02:00,F04,1"]  # line 26: a third 02:00 for F04
+    with pytest.raises(InputError) as ei:
+        read_metered(write_text(tmp_path / "third.csv", lines), study, intervals(study))
+    assert problems(ei.value) == [(26, "timestamp", third_for("F04"))]
+
+
+def third_for(fid):
+    return (f"local time '2025-10-26 02:00' occurs a third time for feeder '{fid}': in the "
+            "repeated autumn hour each local time can appear twice (first summer time, then "
+            "standard time); use UTC offsets to be unambiguous")
+
+
+def test_lines_stay_right_after_blank_lines_and_a_line_with_wrong_fields(tmp_path):
+    study = make_study(tmp_path)
+    lines = ["timestamp,feeder_id,mw",
+             "2025-01-01T00:00:00Z,F01,1",   # 2
+             "",                             # 3 blank: a line, no problem
+             ",,",                           # 4 only separators: blank too
+             "2025-01-01T01:00:00Z,F01",     # 5 two fields
+             "2025-01-01T02:00:00Z,F01,1,7",  # 6 four fields
+             "2025-01-01T03:00:00Z,F01,x"]   # 7 still checked: text mw
+    with pytest.raises(InputError) as ei:
+        read_metered(write_text(tmp_path / "fields.csv", lines), study, intervals(study))
+    assert [(r, c) for r, c, _ in problems(ei.value)] == [(5, None), (6, None), (7, "mw")]
+    assert "2 fields on this line, the header has 3" in problems(ei.value)[0][2]
+
+
+# --------------------------------------------------------------------------------------------
+# wide layout
+# --------------------------------------------------------------------------------------------
+def _wide_and_long(tmp_path, study, ts):
+    """The same readings as a long and a wide file; F01 has a 10-hour hole, TOTAL too."""
+    vals = np.random.default_rng(11).normal(3.0, 1.0, size=(4, len(ts)))
+    vals[1, 100:110] = np.nan
+    vals[3, 7] = np.nan
+    ids = ["F00", "F01", "F03", "TOTAL"]
+    lf = long_frame(offset_text(ts), ids, vals)
+    lf = lf[np.isfinite(lf["mw"].to_numpy())]
+    wf = pd.DataFrame({"timestamp": offset_text(ts), **{f: vals[i] for i, f in enumerate(ids)}})
+    return lf, wf, vals
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+def test_wide_and_long_files_give_equal_data_and_years(tmp_path, fmt):
+    study = make_study(tmp_path, demand_basis="metered_total")
+    ts = intervals(study)
+    lf, wf, vals = _wide_and_long(tmp_path, study, ts)
+    (tmp_path / "long").mkdir()
+    (tmp_path / "wide").mkdir()
+    lp, wp = tmp_path / "long" / f"m.{fmt}", tmp_path / "wide" / f"m.{fmt}"
+    if fmt == "csv":
+        write_csv(lp, lf)
+        write_csv(wp, wf)
+    else:
+        lf.to_parquet(lp)
+        wf.to_parquet(wp)  # NaN cells: no reading
+    a, b = read_metered(lp, study, ts), read_metered(wp, study, ts)
+    assert (a.layout, b.layout) == ("long", "wide")
+    assert_same_metered(a, b)
+    np.testing.assert_array_equal(a.values_mw[[0, 1, 3]], vals[:3])
+    ya, yb = build_year(study, a), build_year(study, b)
+    np.testing.assert_array_equal(ya.net_mw, yb.net_mw)
+    np.testing.assert_array_equal(ya.demand_mw, yb.demand_mw)
+    assert ya.flags == yb.flags
+    assert [n.replace("wide", "long") for n in yb.notes] == list(ya.notes)
+    assert "gaps_filled" in flags_of(ya.flags, "F01")
+
+
+def test_wide_problems_name_row_and_feeder_column(tmp_path):
+    study = make_study(tmp_path)
+    lines = ["timestamp,F00,F01,f02,F01, ",
+             "2025-01-01T00:00:00Z,1,2,,,",
+             "2025-01-01T01:00:00Z,1,abc,,,",   # 3: text in F01
+             "2025-01-01T01:00:00Z,1,2,,,",     # 4: the row for 01:00 again
+             "2025-01-01T00:30:00Z,inf,,,,"]    # 5: out of order, inf in F00
+    with pytest.raises(InputError) as ei:
+        read_metered(write_text(tmp_path / "wide.csv", lines), study, intervals(study))
+    assert problems(ei.value) == [
+        (1, "f02", "feeder_id 'f02' is not a feeder of the study and not TOTAL; did you "
+                   "mean 'F02'?"),
+        (1, "F01", "column 'F01' appears twice in the header (also column 3)"),
+        (1, None, "column 6 has no name in the header; name it after its feeder"),
+        (3, "F01", "mw 'abc' is not a finite number"),
+        (5, "F00", "mw 'inf' is not a finite number"),
+        (4, "timestamp", "second row for 2025-01-01 02:00 (local); the first is on line 3"),
+        (5, "timestamp", "timestamp 2025-01-01 01:30 (local) comes after a row for "
+                         "2025-01-01 02:00; rows must be in time order")]
+
+
+def test_wide_blank_cells_are_gaps_not_errors(tmp_path):
+    study = make_study(tmp_path)
+    ts = intervals(study)
+    lines = ["timestamp,F02,TOTAL"] + [f"2025-01-01T{h:02d}:00:00Z,{'' if h == 5 else h},40"
+                                       for h in range(24)]
+    m = read_metered(write_text(tmp_path / "w.csv", lines), study, ts)
+    row = m.values_mw[2, 1:25]  # 00:00Z = local 01:00 = interval 1
+    assert np.isnan(row[5]) and row[6] == 6.0 and m.has_data.tolist()[2]
+    assert (m.total_mw[1:25] == 40).all()
+    assert m.gap_runs[0].tolist()[:1] == [2]
+
+
+# --------------------------------------------------------------------------------------------
+# the metered array becomes the year
+# --------------------------------------------------------------------------------------------
+def test_build_year_fills_the_read_array_in_place_and_can_be_repeated(tmp_path):
+    study = make_study(tmp_path, gap_fill="interpolate")
+    ts = intervals(study)
+    path, _ = _gappy(tmp_path, study, ts)
+    m = read_metered(path, study, ts)
+    raw = m.values_mw.copy()
+    y1 = build_year(study, m)
+    assert np.shares_memory(y1.net_mw, m.values_mw) and not y1.net_mw.flags.writeable
+    y2 = build_year(study, m)  # the gaps are known from gap_runs
+    assert not np.shares_memory(y2.net_mw, m.values_mw)
+    np.testing.assert_array_equal(y1.net_mw, y2.net_mw)
+    assert y1.flags == y2.flags
+    kept = np.isfinite(raw)
+    np.testing.assert_array_equal(y1.net_mw[kept], raw[kept])
+
+
+# --------------------------------------------------------------------------------------------
+# 5- and 10-minute studies
+# --------------------------------------------------------------------------------------------
+def test_five_minute_study_averages_minutes_and_holds_quarter_hours(tmp_path):
+    study = make_study(tmp_path, interval_minutes=5)
+    ts = intervals(study)
+    assert len(ts) == 105_120  # 365 days × 288
+    m1 = pd.date_range("2025-05-05T08:00Z", periods=60, freq="1min")
+    q = pd.date_range("2025-05-05T08:00Z", periods=4, freq="15min")
+    v1 = np.arange(60, dtype=float)
+    df = pd.concat([long_frame(offset_text(m1), ["F00"], v1[None, :]),
+                    long_frame(offset_text(q), ["F01"], np.array([[1.0, 2.0, 3.0, 4.0]]))])
+    m = read_metered(write_csv(tmp_path / "five.csv", df), study, ts)
+    i = ts.get_loc(pd.Timestamp("2025-05-05T08:00Z"))
+    np.testing.assert_allclose(m.values_mw[0, i:i + 12], v1.reshape(12, 5).mean(axis=1))
+    np.testing.assert_array_equal(m.values_mw[1, i:i + 12], np.repeat([1.0, 2, 3, 4], 3))
+    assert np.isnan(m.values_mw[1, i + 12])  # the last reading covers one step only
+    assert any("readings every 1 min" in n and "averaged into the 5-minute" in n
+               for n in m.notes)
+    assert any("readings every 15 min" in n and "held over" in n for n in m.notes)
+
+
+def test_ten_minute_study_five_minute_readings_off_the_ten_minute_grid_are_fine(tmp_path):
+    study = make_study(tmp_path, interval_minutes=10)
+    ts = intervals(study)
+    five = pd.date_range("2025-02-01T00:05Z", periods=12, freq="5min")  # starts off-grid
+    m = read_metered(write_csv(tmp_path / "ten.csv", long_frame(
+        offset_text(five), ["F02"], np.arange(12.0)[None, :])), study, ts)
+    i = ts.get_loc(pd.Timestamp("2025-02-01T00:00Z"))
+    np.testing.assert_array_equal(m.values_mw[2, i:i + 7],
+                                  [0.0, 1.5, 3.5, 5.5, 7.5, 9.5, 11.0])
+
+
+@hyp_settings(max_examples=80, deadline=None)
+@given(hst.one_of(
+    hst.lists(hst.integers(0, 6), min_size=1, max_size=60),
+    hst.tuples(hst.permutations(list(range(7))), hst.integers(1, 9), hst.integers(0, 6))
+    .map(lambda x: (list(x[0]) * x[1])[x[2]:]).filter(len)))
+def test_grouping_of_a_batch_is_a_stable_partition_by_series(codes):
+    """Whatever shortcut groups the rows (already grouped, time-step order, sort), every
+    series' rows end up together and in file order; checked against a plain Python count."""
+    from allocator.metered.reader import _grouped
+
+    code = np.array(codes, dtype=np.int64)
+    g = _grouped(code)
+    order = list(range(len(code))) if g is None else g.tolist()
+    assert sorted(order) == list(range(len(code)))
+    seen = []
+    for i in order:
+        if not seen or seen[-1] != codes[i]:
+            assert codes[i] not in seen  # one block per series
+            seen.append(codes[i])
+    for k in set(codes):
+        mine = [i for i in order if codes[i] == k]
+        assert mine == sorted(mine)
+
+
+def test_malformed_line_with_bytes_that_are_not_utf8(tmp_path):
+    """pyarrow cannot even quote such a line; the file is reported as not UTF-8, at the byte
+    offset counted here by hand (header 23 bytes, line 2 27 bytes, 22 more)."""
+    study = make_study(tmp_path)
+    p = tmp_path / "latin.csv"
+    p.write_bytes(b"timestamp,feeder_id,mw\n2025-01-01T00:00:00Z,F01,1\n"
+                  b"2025-01-01T01:00:00Z,F\xdc1,1,4\n")
+    with pytest.raises(InputError) as ei:
+        read_metered(p, study, intervals(study))
+    assert problems(ei.value) == [(None, None, "cannot read the file as CSV: 'utf-8' codec "
+                                   "can't decode byte 0xdc in position 72: invalid "
+                                   "continuation byte")]
+
+
+def test_prefetching_hands_on_errors_and_stops_when_left_early():
+    import threading
+    import time
+
+    from allocator.metered.sources import prefetched
+
+    def gen(n, fail_at=None):
+        for i in range(n):
+            if i == fail_at:
+                raise ValueError("bad batch")
+            yield i
+
+    assert list(prefetched(gen(5))) == [0, 1, 2, 3, 4]
+    with pytest.raises(ValueError, match="bad batch"):
+        list(prefetched(gen(5, fail_at=3)))
+    before = threading.active_count()
+    it = prefetched(gen(10**9))
+    assert next(it) == 0
+    it.close()  # the consumer stops early (e.g. an input error in a batch)
+    time.sleep(0.3)
+    assert threading.active_count() <= before
+
+
+def test_reader_leaves_the_unraisable_hook_as_it_was(tmp_path):
+    import sys
+
+    study = make_study(tmp_path)
+    hook = sys.unraisablehook
+    p = write_text(tmp_path / "f.csv", ["timestamp,feeder_id,mw", "2025-01-01T00:00:00Z,F01,1,2"])
+    with pytest.raises(InputError):
+        read_metered(p, study, intervals(study))
+    assert sys.unraisablehook is hook

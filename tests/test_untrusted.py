@@ -264,25 +264,66 @@ def _read_metered(folder: Path):
                                                               s.interval_minutes))
 
 
-def test_metered_size_limit_from_environment(metered_case, monkeypatch):
-    size_mb = (metered_case / "m.csv").stat().st_size / 1048576
+def test_metered_file_size_is_not_limited_but_memory_is(metered_case, monkeypatch):
+    """The old metered size cap is gone (UFLS_MAX_METERED_MB has no effect); what would not fit
+    in memory is refused before anything is allocated, with the numbers."""
     monkeypatch.setenv("UFLS_MAX_METERED_MB", "0.001")
-    assert size_mb > 0.001
+    assert _read_metered(metered_case).n_feeders_with_data == 10
+    monkeypatch.setenv("UFLS_MAX_MEMORY_MB", "100")
     with pytest.raises(InputError) as ei:
         _read_metered(metered_case)
     msg = str(ei.value)
-    assert "above the 0.001 MB limit" in msg and "UFLS_MAX_METERED_MB" in msg
-    monkeypatch.setenv("UFLS_MAX_METERED_MB", "1")
+    # 10 feeders + TOTAL, 8,760 hourly intervals in 2025, 10 bytes a cell, plus 256 MB
+    assert "(11 series × 8,760 intervals × 10 bytes, plus 256 MB for reading)" in msg
+    assert "about 0.25 GB" in msg and "only 0.10 GB is available (UFLS_MAX_MEMORY_MB)" in msg
+    monkeypatch.setenv("UFLS_MAX_MEMORY_MB", "300")
     assert _read_metered(metered_case).n_feeders_with_data == 10
 
 
+def test_memory_available_reads_proc_meminfo():
+    """MemAvailable from /proc/meminfo (Linux proc(5)), compared with the kernel's own file
+    read here independently."""
+    from allocator.memory import available_bytes
+
+    text = Path("/proc/meminfo").read_text() if Path("/proc/meminfo").exists() else ""
+    m = re.search(r"^MemAvailable:\s+(\d+) kB", text, re.M)
+    if not m:
+        pytest.skip("no /proc/meminfo MemAvailable on this system")
+    got, source = available_bytes()
+    if source == "MemAvailable":
+        assert abs(got - int(m.group(1)) * 1024) < 512 * 1024 * 1024  # it moves between reads
+
+
+def test_memory_available_without_proc_meminfo_falls_back(monkeypatch):
+    """Where /proc/meminfo is missing the free physical pages of sysconf(3) are used, here
+    compared with os.sysconf read directly; with nothing known, nothing is refused."""
+    import os
+
+    from allocator import memory
+
+    monkeypatch.setattr(memory, "_meminfo_available", lambda: None)
+    monkeypatch.setattr(memory, "_psutil_available", lambda: None)
+    monkeypatch.delenv("UFLS_MAX_MEMORY_MB", raising=False)
+    try:
+        want = os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    except (ValueError, OSError, AttributeError):
+        want = None
+    got, source = memory.available_bytes()
+    if want is not None and source == "free physical memory":
+        assert abs(got - want) < 512 * 1024 * 1024
+    monkeypatch.setattr(memory, "_sysconf_available", lambda: None)
+    monkeypatch.setattr(memory, "_address_space_left", lambda: None)
+    assert memory.available_bytes() == (None, "unknown")
+    memory.require(10**15, "a petabyte", "x.csv")  # unknown: not refused
+
+
 @pytest.mark.parametrize("value", ["lots", "-1", "0", "inf", "nan"])
-def test_metered_size_limit_not_a_positive_number_is_an_input_error(metered_case,
-                                                                   monkeypatch, value):
-    monkeypatch.setenv("UFLS_MAX_METERED_MB", value)
+def test_memory_limit_not_a_positive_number_is_an_input_error(metered_case, monkeypatch,
+                                                              value):
+    monkeypatch.setenv("UFLS_MAX_MEMORY_MB", value)
     with pytest.raises(InputError) as ei:
         _read_metered(metered_case)
-    assert f"UFLS_MAX_METERED_MB='{value}'" in str(ei.value)
+    assert f"UFLS_MAX_MEMORY_MB='{value}'" in str(ei.value)
 
 
 # --------------------------------------------------------------------------------------------

@@ -602,7 +602,7 @@ def _dst_days(tz: str, yr: int):
     ("Europe/Berlin", date(2025, 3, 30), date(2025, 10, 26)),
     ("America/New_York", date(2025, 3, 9), date(2025, 11, 2)),
 ])
-@pytest.mark.parametrize("interval", [15, 30, 60])
+@pytest.mark.parametrize("interval", [5, 10, 15, 30, 60])
 def test_dst_days_have_23_and_25_hours(tmp_path, tz, spring, autumn, interval):
     assert _dst_days(tz, 2025) == {spring: 23.0, autumn: 25.0}  # Source: IANA tz (zoneinfo)
     y = build_year(_study(tmp_path, settings={"timezone": tz, "interval_minutes": interval,
@@ -623,7 +623,8 @@ def test_dst_days_have_23_and_25_hours(tmp_path, tz, spring, autumn, interval):
                                                                             tz=tz)
 
 
-@pytest.mark.parametrize("interval,n", [(15, 35040), (30, 17520), (60, 8760)])
+@pytest.mark.parametrize("interval,n", [(5, 105120), (10, 52560), (15, 35040), (30, 17520),
+                                        (60, 8760)])
 def test_no_dst_zone_and_year_length(tmp_path, interval, n):
     # Japan has no DST (IANA tz database, Asia/Tokyo)
     assert _dst_days("Asia/Tokyo", 2025) == {}
@@ -690,6 +691,45 @@ def test_hourly_profile_held_at_quarter_hours(tmp_path):
     # the four quarter-hours of an ordinary hour are equal
     q = y.net_mw[1][:96].reshape(24, 4)
     assert (q == q[:, :1]).all()
+
+
+def test_five_minute_profile_averaged_into_quarter_hours(tmp_path):
+    y = build_year(_study(tmp_path, settings={"interval_minutes": 15},
+                          profiles=flat_profiles(value=_shape, step_minutes=5)))
+    f = base_feeders()[0]
+    np.testing.assert_allclose(y.net_mw[0], _expected_gross(y, f["peak_mw"], f["profile"], 5,
+                                                            15), rtol=1e-12)
+
+
+@pytest.mark.parametrize("interval", [5, 10])
+def test_hourly_and_quarter_hour_profiles_held_at_5_and_10_minutes(tmp_path, interval):
+    for step in (60, 15 if interval == 5 else 30):
+        y = build_year(_study(tmp_path, name=f"s{step}.xlsx",
+                              settings={"interval_minutes": interval},
+                              profiles=flat_profiles(value=_shape, step_minutes=step)))
+        f = base_feeders()[1]
+        np.testing.assert_allclose(y.net_mw[1], _expected_gross(y, f["peak_mw"], f["profile"],
+                                                                step, interval), rtol=1e-12)
+        k = step // interval  # intervals per profile step: all equal on an ordinary day
+        block = y.net_mw[1][: 1440 // interval].reshape(-1, k)
+        assert (block == block[:, :1]).all()
+
+
+@pytest.mark.parametrize("interval,n_sub", [(5, 1), (10, 2)])
+def test_pv_at_5_and_10_minutes_against_pvlib(interval, n_sub):
+    """Per-unit PV is the mean of Haurwitz clear-sky GHI / 1000 W/m² at 5-minute sub-sample
+    mid-points, computed here with pvlib directly (NREL SPA position, Haurwitz model)."""
+    import pvlib
+
+    starts = pd.date_range("2025-06-21 10:00", periods=12, freq=f"{interval}min", tz="UTC")
+    got = clearsky_pv_pu(starts, interval, 48.1, 11.6)
+    mids = pd.DatetimeIndex([t + pd.Timedelta(minutes=2.5 + 5 * j) for t in starts
+                             for j in range(n_sub)])
+    pos = pvlib.solarposition.get_solarposition(mids, 48.1, 11.6, method="nrel_numpy")
+    ghi = pvlib.clearsky.haurwitz(pos["apparent_zenith"])["ghi"].to_numpy()
+    want = ghi.reshape(len(starts), n_sub).mean(axis=1) / 1000.0
+    np.testing.assert_allclose(got, want, rtol=1e-9)
+    assert 0.5 < got.min()  # a June late morning in Bavaria: well lit (sanity, no source)
 
 
 def test_net_is_gross_minus_derated_pv(tmp_path):

@@ -192,6 +192,14 @@ def write_m(folder: Path, rows=None, header=("timestamp", "feeder_id", "mw"), na
     return std_argv("--metered", name)
 
 
+def wide_rows(hours: int = 48) -> list[list[str]]:
+    """The readings of metered_rows() in the wide layout: timestamp, then one column per
+    feeder (header: timestamp,F00,...,F09)."""
+    long = metered_rows(hours)
+    return [[long[10 * t][0]] + [long[10 * t + i][2] for i in range(10)]
+            for t in range(hours)]
+
+
 def naive_day(day: str, hours: list[str]) -> list[list[str]]:
     """Local wall-clock readings without offset, for every feeder, at the given times."""
     return [[f"{day} {h}", f, "1.0"] for h in hours for f in FIDS]
@@ -667,11 +675,11 @@ _settings_case("settings_unknown_timezone", "timezone 'Europe/Vienn' (typo)", "t
 _settings_case("settings_timezone_utc_offset", "timezone 'UTC+1' (an offset, not a zone)",
                "timezone", "UTC+1", "unknown time zone 'UTC+1'")
 _settings_case("settings_interval_7", "interval_minutes 7", "interval_minutes", 7,
-               "expected 15, 30 or 60, found 7")
+               "expected 5, 10, 15, 30 or 60, found 7")
 _settings_case("settings_interval_7_via_plan", "interval_minutes 7, refused by plan too",
-               "interval_minutes", 7, "expected 15, 30 or 60, found 7", command="plan")
+               "interval_minutes", 7, "expected 5, 10, 15, 30 or 60, found 7", command="plan")
 _settings_case("settings_interval_as_text", "interval_minutes 'hourly'", "interval_minutes",
-               "hourly", "expected 15, 30 or 60, found text 'hourly'")
+               "hourly", "expected 5, 10, 15, 30 or 60, found text 'hourly'")
 _settings_case("settings_nominal_hz_55", "nominal_hz 55", "nominal_hz", 55,
                "expected 50 or 60, found 55")
 _settings_case("settings_year_fraction", "year 2025.5", "year", 2025.5,
@@ -741,11 +749,11 @@ def _(d):
       Expect(W, "settings", SETTING_ROW["nominal_hz"], "value",
              "nominal_hz: expected 50 or 60, found 0"),
       Expect(W, "settings", SETTING_ROW["interval_minutes"], "value",
-             "interval_minutes: expected 15, 30 or 60, found 5"),
+             "interval_minutes: expected 5, 10, 15, 30 or 60, found 20"),
       Expect(W, "settings", SETTING_ROW["longitude"], "value",
              "longitude: expected longitude in degrees ≥ -180, found -200"))
 def _(d):
-    write_wb(d, settings={"timezone": "CEST", "nominal_hz": 0, "interval_minutes": 5,
+    write_wb(d, settings={"timezone": "CEST", "nominal_hz": 0, "interval_minutes": 20,
                           "longitude": -200})
     return std_argv()
 
@@ -800,20 +808,59 @@ def _(d):
     return std_argv("--metered", "m.parquet")
 
 
-@case("metered_over_size_limit", "metered",
-      "the file is larger than UFLS_MAX_METERED_MB (set to 0.001 MB here)",
-      Expect(M, None, None, None, "above the 0.001 MB limit for metered files; set the "
-             "environment variable UFLS_MAX_METERED_MB"),
-      env={"UFLS_MAX_METERED_MB": "0.001"})
+@case("metered_would_not_fit_in_memory", "metered",
+      "the arrays for 11 series × 8,760 intervals would not fit in the memory allowed "
+      "(UFLS_MAX_METERED_MB is gone; UFLS_MAX_MEMORY_MB set to 1 MB here)",
+      Expect(M, None, None, None, "the metered data (11 series × 8,760 intervals × 10 bytes, "
+             "plus 256 MB for reading) would need about 0.25 GB of memory, but only 0.00 GB "
+             "is available (UFLS_MAX_MEMORY_MB)"),
+      env={"UFLS_MAX_MEMORY_MB": "1"})
 def _(d):
     return write_m(d)
 
 
-@case("metered_size_limit_not_a_number", "metered", "UFLS_MAX_METERED_MB='lots'",
-      Expect(M, None, None, None, "UFLS_MAX_METERED_MB='lots' is not a"),
-      env={"UFLS_MAX_METERED_MB": "lots"})
+@case("metered_memory_limit_not_a_number", "metered", "UFLS_MAX_MEMORY_MB='lots'",
+      Expect(M, None, None, None, "UFLS_MAX_MEMORY_MB='lots' is not a positive number of "
+             "megabytes"),
+      env={"UFLS_MAX_MEMORY_MB": "lots"})
 def _(d):
     return write_m(d)
+
+
+@case("metered_line_with_an_extra_field", "metered",
+      "one line has four fields under a three-column header (it used to stop the whole read)",
+      Expect(M, None, ml(3, 2), None, "4 fields on this line, the header has 3"))
+def _(d):
+    rows = metered_rows()
+    rows[ml(3, 2) - 2] = rows[ml(3, 2) - 2] + ["x"]
+    return write_m(d, rows)
+
+
+@case("metered_wide_unknown_column", "metered",
+      "a wide file (timestamp and one column per feeder) with a column F99 not in the study",
+      Expect(M, None, 1, "F99", "feeder_id 'F99' is not a feeder of the study and not TOTAL"))
+def _(d):
+    return write_m(d, wide_rows(), header=["timestamp"] + [
+        "F99" if f == "F03" else f for f in FIDS])
+
+
+@case("metered_wide_text_value", "metered",
+      "a wide file with 'n/a' in F05's column on row 9",
+      Expect(M, None, 9, "F05", "mw 'n/a' is not a finite number"))
+def _(d):
+    rows = wide_rows()
+    rows[9 - 2][1 + 5] = "n/a"
+    return write_m(d, rows, header=["timestamp"] + FIDS)
+
+
+@case("metered_wide_row_twice", "metered",
+      "a wide file with the row for 05:00 written twice",
+      Expect(M, None, 8, "timestamp", "second row for 2025-01-01 05:00 (local); the first is "
+             "on line 7"))
+def _(d):
+    rows = wide_rows()
+    rows.insert(6, list(rows[5]))
+    return write_m(d, rows, header=["timestamp"] + FIDS)
 
 
 @case("metered_missing_column_mw", "metered", "the value column is called 'value'",
