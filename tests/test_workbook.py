@@ -339,7 +339,7 @@ def test_every_settings_value_message_starts_with_its_key(tmp_path):
     for p in values:
         assert p.message.startswith(f"{key_of_row[p.row]}: "), str(p)
     interval = next(p for p in values if key_of_row[p.row] == "interval_minutes")
-    assert interval.message == "interval_minutes: expected 15, 30 or 60, found 7"
+    assert interval.message == "interval_minutes: expected 5, 10, 15, 30 or 60, found 7"
 
 
 def test_formula_check_reads_the_workbook_again_only_when_a_required_cell_is_blank(
