@@ -505,7 +505,9 @@ def _demo_verdicts(console, before, after, fb, fa) -> None:
                 ["block", "band %", "current lowest %", "planned lowest %",
                  "current highest %", "planned highest %", "current", "planned"], rows,
                 right={1, 2, 3, 4, 5})
-    v = lambda c: "[green]COMPLIANT[/green]" if c.compliant else "[red]NOT COMPLIANT[/red]"
+    from .console import _verdict_words
+
+    v = lambda c: _verdict_words(c.compliant, headline=True)  # noqa: E731
     console.print(f"Verdict before: {v(before)}   after: {v(after)}   (scenarios "
                   f"{', '.join(after.names)})")
     key = lambda r: (r.get("scenario", ""), r["interval"])  # noqa: E731
@@ -542,7 +544,7 @@ def build_parser() -> argparse.ArgumentParser:
     v.set_defaults(func=cmd_validate)
 
     c = sub.add_parser("check", parents=[common], help="armed load per block, every interval",
-                       description="Check an allocation: armed MW and %% of netted demand per "
+                       description="Check an allocation: armed MW and % of netted demand per "
                                    "block in every interval, compliance, shortfall windows, "
                                    "exporting feeders and the annual statement.")
     c.add_argument("workbook", help="study workbook (.xlsx)")

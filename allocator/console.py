@@ -11,6 +11,7 @@ from rich.markup import escape
 from rich.table import Table
 from rich.text import Text
 
+from . import vocab
 from .check import Check, annual_statement
 from .domain import Study
 
@@ -98,21 +99,22 @@ def study_overview(console: Console, study: Study) -> None:
 def warnings(console: Console, items: list[str] | tuple[str, ...], limit: int = 15) -> None:
     if not items:
         return
-    console.print(f"[yellow]{len(items)} warning(s):[/yellow]")
+    console.print(f"[yellow]{vocab.count(len(items), 'warning')}:[/yellow]")
     for w in list(items)[:limit]:
         console.print(f"  [yellow]![/yellow] {escape(str(w))}")
     if len(items) > limit:
-        console.print(f"  … and {len(items) - limit} more")
+        console.print(f"  and {vocab.count(len(items) - limit, 'more warning')}")
 
 
 def _side_words(v) -> str:
-    """in band / below band / above band / below and above band (one vocabulary)."""
-    if v.compliant:
-        return "[green]in band[/green]"
-    low, high = v.min_share_pct < v.min_pct, v.max_share_pct > v.max_pct
-    word = ("below and above band" if low and high else "below band" if low
-            else "above band" if high else "out of band")
-    return f"[red]{word}[/red]"
+    """The block's status word (allocator.vocab), coloured."""
+    colour = "green" if v.compliant else "red"
+    return f"[{colour}]{v.status}[/{colour}]"
+
+
+def _verdict_words(ok: bool, headline: bool = False) -> str:
+    word = vocab.headline(ok) if headline else vocab.compliance_word(ok)
+    return f"[green]{word}[/green]" if ok else f"[red]{word}[/red]"
 
 
 def verdict_table(console: Console, checks, title: str = "Armed load per block") -> None:
@@ -122,19 +124,31 @@ def verdict_table(console: Console, checks, title: str = "Armed load per block")
     from .export import as_set
 
     cs = as_set(checks)
-    rows = [(escape(v.block), f"{v.pickup_hz:.2f}", f"{v.min_pct:g}–{v.max_pct:g}",
-             f"{v.min_share_pct:.1f}\n{escape(v.min_share_scenario)}",
-             f"{v.max_share_pct:.1f}\n{escape(v.max_share_scenario)}",
-             f"{v.headroom_to_min_pp:+.2f}", f"{v.headroom_to_max_pp:+.2f}", _side_words(v))
-            for v in cs.verdicts]
-    print_table(console, f"{title} — rule {cs.rule}, worst over every scenario",
-                ["block", "Hz", "band %", "lowest % in", "highest % in", "room to min pp",
-                 "room to max pp", "verdict"], rows, right={1, 2, 5, 6})
+    s = cs.study.settings
+    pct = s.compliance_rule == "percentile"
+    rows = []
+    for v in cs.verdicts:
+        rows.append((escape(v.block), f"{v.pickup_hz:.2f}", f"{v.min_pct:g}–{v.max_pct:g}",
+                     f"{v.min_share_pct:.1f}\n{escape(v.min_share_scenario)}",
+                     f"{v.max_share_pct:.1f}\n{escape(v.max_share_scenario)}")
+                    + ((f"{v.rule_low_share_pct:.1f}", f"{v.rule_high_share_pct:.1f}")
+                       if pct else ())
+                    + (f"{v.headroom_to_min_pp:+.2f}", f"{v.headroom_to_max_pp:+.2f}",
+                       _side_words(v)))
+    heads = ["block", "Hz", "band %", "lowest % in", "highest % in"]
+    if pct:  # the two statistics the rule judges, P and 100 - P
+        p = s.compliance_percentile
+        heads += [f"P{p:g} %", f"P{100 - p:g} %"]
+    heads += ["room to min pp", "room to max pp", "status"]
+    n = len(heads)
+    print_table(console, f"{title} — rule {cs.rule}, worst over every scenario", heads, rows,
+                right={1, 2, n - 3, n - 2} | ({5, 6} if pct else set()))
     scenario_table(console, cs)
-    v = "[green]COMPLIANT[/green]" if cs.compliant else "[red]NOT COMPLIANT[/red]"
+    v = _verdict_words(cs.compliant, headline=True)
     bad = cs.failing_scenarios
-    console.print(f"Overall: {v} in {len(cs.checks) - len(bad)} of {len(cs.checks)} "
-                  f"scenario(s); worst violation {cs.worst_violation_pp:.2f} pp"
+    console.print(f"Overall: {v} (compliant in {len(cs.checks) - len(bad)} of "
+                  f"{vocab.count(len(cs.checks), 'scenario')}); worst violation "
+                  f"{cs.worst_violation_pp:.2f} pp"
                   + (f" (not compliant in {escape(', '.join(bad))})" if bad else ""))
 
 
@@ -151,8 +165,8 @@ def scenario_table(console: Console, cs) -> None:
         bad = [s.block for s in c.stats if not s.compliant]
         rows.append((escape(c.scenario), escape(pv), str(c.year.calendar_year),
                      f"{100 * c.all_in_band_fraction:.1f}", f"{c.worst_violation_pp:.2f}",
-                     "[green]compliant[/green]" if c.compliant else
-                     f"[red]not compliant[/red]: {escape(', '.join(bad))}"))
+                     _verdict_words(c.compliant)
+                     + (f": {escape(', '.join(bad))}" if bad else "")))
     print_table(console, "Scenarios judged", ["scenario", "PV", "year",
                                               "all blocks in band % of intervals",
                                               "worst pp", "verdict"], rows, right={2, 3, 4})
@@ -182,10 +196,10 @@ def worst_windows(console: Console, check, n: int = 5) -> None:
     if w.empty:
         console.print("No interval outside any block's band in any scenario.")
         return
-    rows = [(str(r.rank), escape(r.scenario), escape(r.block),
-             "below band" if r.kind == "below_min" else "above band", r.start_local,
+    rows = [(str(r.rank), f"{escape(r.block)}\n{escape(r.scenario)}", r.status, r.start_local,
              f"{r.duration_h:g}", f"{r.worst_share_pct:.1f}", f"{r.energy_mwh:.1f}")
             for r in w.head(n).itertuples()]
-    print_table(console, f"Worst windows outside the band ({min(n, len(w))} of {len(w)})",
-                ["#", "scenario", "block", "kind", "start (local)", "hours", "worst %",
-                 "MWh outside"], rows, right={0, 5, 6, 7})
+    print_table(console, f"Worst windows outside the band ({min(n, len(w))} of "
+                f"{vocab.count(len(w), 'window')})",
+                ["#", "block in scenario", "status", "start (local)", "hours", "worst %",
+                 "MWh outside"], rows, right={0, 4, 5, 6})

@@ -13,7 +13,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..check import Check, ScenarioChecks, contribution_mw
+from .. import vocab
+from ..check import Check, ScenarioChecks, all_warnings, contribution_mw
 from ..domain import UNARMED
 
 #: shown in the workbook summary and the HTML page, in this order
@@ -33,7 +34,8 @@ CAUTIONS: tuple[str, ...] = (
     "procedures.",
 )
 
-KIND_WORDS = {"below_min": "below min", "above_max": "above max"}
+#: a window's machine kind → the word people read (one vocabulary: allocator.vocab)
+KIND_WORDS = vocab.WINDOW_KINDS
 UNARMED_WORD = "unarmed"
 
 #: the summary.json rounding (allocator.safeio.write_json): 9 decimals, non-finite → empty
@@ -61,6 +63,15 @@ def rule_words(check: Check) -> str:
     return check.rule
 
 
+def rule_percentiles(settings) -> tuple[str, str] | None:
+    """``("P2", "P98")`` for the rule ``percentile:2`` (the two statistics it judges);
+    None for the other rules."""
+    if settings.compliance_rule != "percentile":
+        return None
+    p = settings.compliance_percentile
+    return f"P{p:g}", f"P{100 - p:g}"
+
+
 def verdict_words(check: Check) -> str:
     """The overall verdict in one plain sentence."""
     bad = [s for s in check.stats if not s.compliant]
@@ -71,11 +82,15 @@ def verdict_words(check: Check) -> str:
     for s in bad:
         bits = []
         if s.intervals_below_min:
-            bits.append(f"{s.intervals_below_min} intervals below {s.min_pct:g} %")
+            bits.append(f"{vocab.count(s.intervals_below_min, 'interval')} below "
+                        f"{s.min_pct:g} %")
         if s.intervals_above_max:
-            bits.append(f"{s.intervals_above_max} intervals above {s.max_pct:g} %")
-        parts.append(f"{s.block} ({', '.join(bits) or 'outside its band'})")
-    return (f"Not compliant: {len(bad)} of {len(check.stats)} blocks fall outside their band "
+            bits.append(f"{vocab.count(s.intervals_above_max, 'interval')} above "
+                        f"{s.max_pct:g} %")
+        parts.append(f"{s.block} {s.status} ({', '.join(bits) or 'under the rule'})")
+    verb = "falls" if len(bad) == 1 else "fall"
+    return (f"Not compliant: {len(bad)} of {vocab.count(len(check.stats), 'block')} {verb} "
+            f"outside {'its' if len(bad) == 1 else 'their'} band "
             f"under the rule '{check.rule}': {'; '.join(parts)}. "
             f"Worst distance outside a band: {check.worst_violation_pp:.2f} percentage points.")
 
@@ -92,14 +107,16 @@ def verdict_words_set(checks: ScenarioChecks) -> str:
     parts = []
     for v in checks.verdicts:
         if not v.compliant:
-            parts.append(f"{v.block} in {', '.join(v.failing_scenarios)}")
-    return (f"Not compliant in {len(bad)} of {len(checks.checks)} scenarios "
+            parts.append(f"{v.block} {v.status} in {', '.join(v.failing_scenarios)}")
+    return (f"Not compliant in {len(bad)} of {vocab.count(len(checks.checks), 'scenario')} "
             f"({', '.join(bad)}): {'; '.join(parts)}. Worst distance outside a band: "
             f"{checks.worst_violation_pp:.2f} percentage points.")
 
 
-def block_verdict(compliant: bool) -> str:
-    return "in band" if compliant else "OUT OF BAND"
+def block_verdict(v) -> str:
+    """A block's status word (in band / below band / above band / below and above band)
+    from a BlockStats or BlockVerdict: the one vocabulary of allocator.vocab."""
+    return v.status
 
 
 def block_name(check: Check, idx: int) -> str:
@@ -114,12 +131,16 @@ class PrioritySummary:
     def words(self, policy: str) -> str:
         if self.total == 0:
             return "The workbook marks no feeder as a priority site."
+        marked = (f"{vocab.count(self.total, 'feeder')} "
+                  f"{'is' if self.total == 1 else 'are'} marked as "
+                  f"{'a priority site' if self.total == 1 else 'priority sites'}")
         if not self.armed:
-            return (f"{self.total} feeders are marked as priority sites; none of them is armed "
+            return (f"{marked}; {'it is not' if self.total == 1 else 'none of them is'} armed "
                     f"in this allocation (priority policy '{policy}').")
         shown = ", ".join(self.armed[:10]) + (" ..." if len(self.armed) > 10 else "")
-        return (f"{self.total} feeders are marked as priority sites; {len(self.armed)} of them "
-                f"are armed in this allocation (priority policy '{policy}'): {shown}. "
+        n = len(self.armed)
+        return (f"{marked}; {n} of them {'is' if n == 1 else 'are'} armed in this "
+                f"allocation (priority policy '{policy}'): {shown}. "
                 "Confirm this is allowed by your local rules.")
 
 
@@ -268,10 +289,8 @@ def relay_changes(check: Check, previous_idx: np.ndarray | None) -> pd.DataFrame
 
 
 def windows_table(check: Check | ScenarioChecks) -> pd.DataFrame:
-    w = check.windows().drop(columns=["_start"], errors="ignore").copy()
-    if not w.empty:
-        w["kind"] = w["kind"].map(lambda k: KIND_WORDS.get(k, k))
-    return w
+    """The windows outside a band for the reports (``status`` holds the words)."""
+    return check.windows().drop(columns=["_start"], errors="ignore").copy()
 
 
 def assumptions(check: Check) -> list[tuple[str, str]]:
@@ -406,21 +425,6 @@ def plan_text(plan_info: dict | None) -> PlanText:
             details.append((str(k), _fmt(v)))
     return PlanText(str(plan_info.get("status", "")), key, details[:80],
                     _lines(plan_info.get("explanation")), _lines(plan_info.get("events")))
-
-
-def all_warnings(check: Check | ScenarioChecks) -> list[str]:
-    checks = check.checks if isinstance(check, ScenarioChecks) else (check,)
-    out = list(check.study.warnings) + list(check.warnings)
-    for c in checks:
-        out += list(c.year.notes)
-        out += [f"feeder {fl.feeder_id}: {fl.flag} ({fl.detail})" for fl in c.year.flags]
-    seen = set()
-    uniq = []
-    for w in out:
-        if w not in seen:
-            seen.add(w)
-            uniq.append(w)
-    return uniq
 
 
 def class_breakdown(check: Check, fc: FeederContrib) -> dict[str, object]:

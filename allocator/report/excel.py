@@ -19,7 +19,7 @@ import openpyxl
 from openpyxl.formatting.rule import CellIsRule
 from openpyxl.styles import Alignment, Font, PatternFill
 
-from .. import __version__
+from .. import __version__, vocab
 from ..check import Check, ScenarioChecks, by_substation, exporting_feeders, summary_dict
 from ..export import stacked
 from ..timefmt import offset_hours
@@ -53,6 +53,7 @@ BLOCK_COLUMNS: tuple[tuple[str, str, str, str | None], ...] = (
     ("p5_share_pct", "P5 share %", "num", "0.00"),
     ("mean_share_pct", "mean share %", "num", "0.00"),
     ("p95_share_pct", "P95 share %", "num", "0.00"),
+    ("p99_share_pct", "P99 share %", "num", "0.00"),
     ("max_share_pct", "highest share %", "num", "0.00"),
     ("intervals_below_min", "intervals below min", "int", F_INT),
     ("intervals_above_max", "intervals above max", "int", F_INT),
@@ -61,9 +62,10 @@ BLOCK_COLUMNS: tuple[tuple[str, str, str, str | None], ...] = (
     ("worst_violation_pp", "worst distance outside band pp", "num", F_PP),
     ("min_share_local_time", "time of lowest share (local)", "text", None),
     ("compliant", "compliant", "bool", None),
+    ("status", "status", "text", None),
 )
 SHARE_KEYS = ("min_share_pct", "p1_share_pct", "p5_share_pct", "mean_share_pct",
-              "p95_share_pct", "max_share_pct")
+              "p95_share_pct", "p99_share_pct", "max_share_pct")
 
 SHEETS = {
     "summary": "verdicts, plan status, worst windows, what the fills mean, cautions",
@@ -110,6 +112,12 @@ def _block_cols(checks: list[Check]) -> list[Col]:
         else:
             vals = [r[key] for _, r in summ]
         cols.append(Col(header, vals, kind, fmt))
+    rp = content.rule_percentiles(checks[0].study.settings) if checks else None
+    if rp is not None and rp[0] not in ("P1", "P5"):
+        for key, name in (("rule_low_share_pct", rp[0]), ("rule_high_share_pct", rp[1])):
+            vals = [content.json_number(r[key]) for _, r in summ]
+            cols.append(Col(f"{name} share % (the rule's)", [np.nan if v is None else v
+                                                              for v in vals], "num", "0.00"))
     for key, header in (("headroom_to_min_pp", "room above band min pp"),
                         ("headroom_to_max_pp", "room below band max pp")):
         vals = [content.json_number(getattr(c.stats[i % len(c.blocks)], key))
@@ -140,6 +148,7 @@ def _blocks_sheet(wb, cs: ScenarioChecks, before: ScenarioChecks | None) -> Tabl
     lo = t.col_letter("band min %")
     hi = t.col_letter("band max %")
     share_headers = [h for k, h, _, _ in BLOCK_COLUMNS if k in SHARE_KEYS]
+    share_headers += [c.header for c in cols if c.header.endswith("share % (the rule's)")]
     if before is not None:
         share_headers += ["current allocation: lowest share %",
                           "current allocation: mean share %"]
@@ -157,12 +166,12 @@ def _scenarios_sheet(wb, cs: ScenarioChecks) -> Table:
             Col("calendar year", [c.year.calendar_year for c in cs.checks], "int", F_INT),
             Col("data source", [c.year.source for c in cs.checks], "text"),
             Col("intervals", [c.year.n_intervals for c in cs.checks], "int", F_INT),
-            Col("compliant", [c.compliant for c in cs.checks], "bool"),
+            Col("verdict", [vocab.compliance_word(c.compliant) for c in cs.checks], "text"),
             Col("worst distance outside band pp", [c.worst_violation_pp for c in cs.checks],
                 "num", F_PP),
             Col("all blocks in band % of intervals",
                 [100.0 * c.all_in_band_fraction for c in cs.checks], "num", F_PCT),
-            Col("blocks out of band", [", ".join(s.block for s in c.stats if not s.compliant)
+            Col("blocks not compliant", [", ".join(s.block for s in c.stats if not s.compliant)
                                        for c in cs.checks], "text")]
     return table_sheet(wb, "scenarios", cols, freeze="B2")
 
@@ -236,7 +245,8 @@ def _windows_sheet(wb, check: ScenarioChecks) -> Table:
     w = content.windows_table(check)
     spec = [("rank", "rank", "int", F_INT), ("scenario", "scenario", "text", None),
             ("block", "block", "text", None),
-            ("kind", "kind", "text", None), ("start_local", "start (local)", "text", None),
+            ("status", "status", "text", None),
+            ("start_local", "start (local)", "text", None),
             ("end_local", "end (local)", "text", None), ("duration_h", "duration h", "num", F_H),
             ("intervals", "intervals", "int", F_INT),
             ("worst_share_pct", "worst share %", "num", "0.00"),
@@ -333,13 +343,13 @@ def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
     from ..check import verdict_covers
 
     pair("allocation checked", what)
-    pair("overall verdict", "COMPLIANT" if cs.compliant else "NOT COMPLIANT", bold=True)
+    pair("overall verdict", vocab.headline(cs.compliant), bold=True)
     put_text(ws, r, 1, content.verdict_words_set(cs))
     r += 1
     put_text(ws, r, 1, verdict_covers(cs))
     r += 1
     if before is not None:
-        pair("current allocation", "COMPLIANT" if before.compliant else "NOT COMPLIANT")
+        pair("current allocation", vocab.headline(before.compliant))
         put_text(ws, r, 1, "Current allocation: " + content.verdict_words_set(before))
         r += 1
     pair("compliance rule", check.rule)
@@ -377,9 +387,9 @@ def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
     r += 1
     heads = ["block", "pickup Hz", "band min %", "band max %", "lowest share %",
              "scenario of lowest", "highest share %", "scenario of highest",
-             "room above min pp", "room below max pp", "verdict"]
+             "room above min pp", "room below max pp", "status"]
     if before is not None:
-        heads += ["current: lowest share %", "current: verdict"]
+        heads += ["current: lowest share %", "current: status"]
     for j, h in enumerate(heads, 1):
         c = put_text(ws, r, j, h)
         c.font, c.alignment = BOLD, WRAP
@@ -390,12 +400,12 @@ def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
         vals = [v.block, v.pickup_hz, v.min_pct, v.max_pct, v.min_share_pct,
                 v.min_share_scenario, v.max_share_pct, v.max_share_scenario,
                 v.headroom_to_min_pp, v.headroom_to_max_pp,
-                content.block_verdict(v.compliant)
+                v.status
                 + (f" ({', '.join(v.failing_scenarios)})" if v.failing_scenarios else "")]
         fmts = [None, "0.000", "0.0", "0.0", "0.00", None, "0.00", None, "0.00", "0.00", None]
         if before is not None:
             b = before.verdicts[k]
-            vals += [b.min_share_pct, content.block_verdict(b.compliant)]
+            vals += [b.min_share_pct, b.status]
             fmts += ["0.00", None]
         for j, (val, f) in enumerate(zip(vals, fmts), 1):
             put(ws, r, j, val, f)
@@ -413,15 +423,17 @@ def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
         r += 1
     else:
         put_text(ws, r, 1, f"{len(w)} windows in all; the 10 with the most MWh outside the band "
-                           "(all of them on the 'windows' sheet):")
+                           "(all of them on the 'windows' sheet):" if len(w) > 10 else
+                 f"{vocab.count(len(w), 'window').capitalize()} in all (also on the 'windows' "
+                 "sheet):")
         r += 1
-        heads = ["rank", "scenario", "block", "kind", "start (local)", "end (local)",
+        heads = ["rank", "scenario", "block", "status", "start (local)", "end (local)",
                  "duration h", "worst share %", "MWh outside band"]
         for j, h in enumerate(heads, 1):
             put_text(ws, r, j, h).font = BOLD
         r += 1
         for row in w.head(10).itertuples():
-            vals = [row.rank, row.scenario, row.block, row.kind, row.start_local,
+            vals = [row.rank, row.scenario, row.block, row.status, row.start_local,
                     row.end_local, row.duration_h, row.worst_share_pct, row.energy_mwh]
             fmts = ["0", None, None, None, None, None, "0.00", "0.00", "0.0"]
             for j, (v, f) in enumerate(zip(vals, fmts), 1):

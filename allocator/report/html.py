@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
+from .. import __version__, vocab
 from ..check import Check, ScenarioChecks, annual_statement, exporting_feeders
 from ..export import as_set, stacked
 from . import content
@@ -116,7 +116,7 @@ def _verdict_box(cs: ScenarioChecks, label: str) -> str:
     from ..check import verdict_covers
 
     ok = cs.compliant
-    word = "COMPLIANT" if ok else "NOT COMPLIANT"
+    word = vocab.headline(ok)
     return (f'<div class="verdict {"ok" if ok else "bad"}"><div class="small">{esc(label)}'
             f'</div><div class="word">{word}</div><p>{esc(content.verdict_words_set(cs))}</p>'
             f'<p class="small">{esc(verdict_covers(cs))}</p></div>')
@@ -134,7 +134,8 @@ def _scenario_table(cs: ScenarioChecks) -> str:
                     f"{_td(c.year.calendar_year, 'd')}{_td(100 * c.all_in_band_fraction, '.1f')}"
                     f"{_td(c.worst_violation_pp, '.2f')}"
                     f'<td class="{"good" if c.compliant else "bad"}">'
-                    f'{"compliant" if c.compliant else "not compliant: " + esc(", ".join(bad))}'
+                    f'{vocab.compliance_word(c.compliant)}'
+                    f'{": " + esc(", ".join(bad)) if bad else ""}'
                     "</td></tr>")
     return _table(heads, rows)
 
@@ -151,11 +152,14 @@ def _settings_table(check: Check) -> str:
 
 
 def _block_table(cs: ScenarioChecks, before: ScenarioChecks | None) -> str:
-    heads = ["scenario", "block", "band %", "lowest %", "P5 %", "mean %", "P95 %", "highest %",
-             "room above min pp", "room below max pp", "intervals below min",
-             "intervals above max", "shortfall MWh", "verdict"]
+    rp = content.rule_percentiles(cs.study.settings)
+    extra = rp is not None and rp[0] != "P5"
+    heads = ["scenario", "block", "band %", "lowest %", "P5 %", "mean %", "P95 %", "highest %"]
+    heads += [f"{rp[0]} % (the rule's)", f"{rp[1]} % (the rule's)"] if extra else []
+    heads += ["room above min pp", "room below max pp", "intervals below min",
+              "intervals above max", "shortfall MWh", "status"]
     if before is not None:
-        heads += ["current: lowest %", "current: intervals below min", "current: verdict"]
+        heads += ["current: lowest %", "current: intervals below min", "current: status"]
     prev = {c.scenario: c for c in before.checks} if before is not None else {}
     rows = []
     for c in cs.checks:
@@ -163,20 +167,22 @@ def _block_table(cs: ScenarioChecks, before: ScenarioChecks | None) -> str:
             lo, hi = s.min_pct, s.max_pct
             cells = [f"<td>{esc(c.scenario)}</td><td>{esc(s.block)}</td>",
                      f'<td class="n">{_n(lo, "g")}-{_n(hi, "g")}</td>']
-            for v in (s.min_share_pct, s.p5_share_pct, s.mean_share_pct, s.p95_share_pct,
-                      s.max_share_pct):
+            shown = [s.min_share_pct, s.p5_share_pct, s.mean_share_pct, s.p95_share_pct,
+                     s.max_share_pct]
+            shown += [s.rule_low_share_pct, s.rule_high_share_pct] if extra else []
+            for v in shown:
                 cells.append(_td(v, ".2f", _band_cls(v, lo, hi)))
             cells += [_td(s.headroom_to_min_pp, "+.2f"), _td(s.headroom_to_max_pp, "+.2f"),
                       _td(s.intervals_below_min, "d"), _td(s.intervals_above_max, "d"),
                       _td(s.shortfall_mwh, ".1f"),
                       f'<td class="{"good" if s.compliant else "bad"}">'
-                      f'{content.block_verdict(s.compliant)}</td>']
+                      f'{esc(s.status)}</td>']
             if c.scenario in prev:
                 bs = prev[c.scenario].stats[k]
                 cells += [_td(bs.min_share_pct, ".2f", _band_cls(bs.min_share_pct, lo, hi)),
                           _td(bs.intervals_below_min, "d"),
                           f'<td class="{"good" if bs.compliant else "bad"}">'
-                          f'{content.block_verdict(bs.compliant)}</td>']
+                          f'{esc(bs.status)}</td>']
             elif before is not None:
                 cells += ["<td></td>"] * 3
             rows.append("<tr>" + "".join(cells) + "</tr>")
@@ -191,20 +197,20 @@ def _windows(check: ScenarioChecks) -> str:
     w = content.windows_table(check)
     if w.empty:
         return "<p>No interval lies outside any block's band in any scenario.</p>"
-    heads = ["rank", "scenario", "block", "kind", "start (local)", "end (local)", "hours",
+    heads = ["rank", "scenario", "block", "status", "start (local)", "end (local)", "hours",
              "worst share %", "band limit %", "MWh outside band"]
     rows = []
     for r in w.head(WINDOWS_SHOWN).itertuples():
-        cls = "below" if r.kind == "below min" else "above"
+        cls = "below" if r.kind == "below_min" else "above"
         rows.append(f"<tr>{_td(r.rank, 'd')}<td>{esc(r.scenario)}</td><td>{esc(r.block)}</td>"
-                    f"<td>{esc(r.kind)}</td>"
+                    f"<td>{esc(r.status)}</td>"
                     f"<td>{esc(r.start_local)}</td><td>{esc(r.end_local)}</td>"
                     f"{_td(r.duration_h, 'g')}{_td(r.worst_share_pct, '.2f', cls)}"
                     f"{_td(r.band_pct, 'g')}{_td(r.energy_mwh, '.1f')}</tr>")
     more = (f'<p class="small">{len(w)} windows in all; the {WINDOWS_SHOWN} with the most MWh '
             "outside the band are listed. The full list is on the workbook's windows sheet."
             "</p>" if len(w) > WINDOWS_SHOWN else
-            f'<p class="small">{len(w)} windows in all.</p>')
+            f'<p class="small">{vocab.count(len(w), "window")} in all.</p>')
     return _table(heads, rows) + more
 
 
@@ -225,7 +231,8 @@ def _relay_changes(check: Check, previous_idx) -> str:
                     f"{_td(r.delay_s, '.3f')}{_td(r.rocof_hz_per_s, '.2f')}"
                     f"<td>{esc(r.priority)}</td></tr>")
     n_sub = df["substation"].nunique()
-    return (f"<p>{len(df)} feeders at {n_sub} substations change block. Sorted by substation, "
+    return (f"<p>{vocab.count(len(df), 'feeder')} at {vocab.count(n_sub, 'substation')} "
+            f"{'changes' if len(df) == 1 else 'change'} block. Sorted by substation, "
             "then feeder. 'disarm' means the feeder's UFLS trip is taken out of the scheme."
             "</p>" + _table(heads, rows))
 
@@ -244,7 +251,8 @@ def _exports(check: ScenarioChecks, limit: int = 15) -> str:
                     f"{_td(r.exporting_hours, 'g')}{_td(r.most_export_mw, '.2f')}"
                     f"<td>{esc(r.most_export_local_time)}</td>"
                     f"{_td(r.negative_contribution_mwh, '.1f')}</tr>")
-    note = (f"<p>{len(df)} (scenario, armed feeder) pairs export at some interval (PV above "
+    note = (f"<p>{vocab.count(len(df), '(scenario, armed feeder) pair')} "
+            f"{'exports' if len(df) == 1 else 'export'} at some interval (PV above "
             "load). On a standard "
             "relay an exporting feeder lowers its block's share: tripping it would raise the "
             "system's net load. A direction-blocked relay does not trip it while it exports."
@@ -398,7 +406,9 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
     parts.append(_scenario_table(cs))
     if previous_idx is not None:
         n = int(np.sum(np.asarray(previous_idx) != check.block_idx))
-        parts.append(f"<p>{n} feeders change block compared with the current allocation.</p>")
+        parts.append(f"<p>{vocab.count(n, 'feeder').capitalize()} "
+                     f"{'changes' if n == 1 else 'change'} block compared with the current "
+                     "allocation.</p>")
     parts.append(f"<p>{esc(content.priority_summary(check).words(s.priority_policy))}</p>")
     parts.append(_plan(plan_info))
     parts.append("<h3>Per block</h3>")
