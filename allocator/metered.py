@@ -45,6 +45,7 @@ import pandas as pd
 
 from .domain import Study
 from .errors import Collector, InputError, Problem
+from .timefmt import iso_local
 from .year import FeederFlag
 
 DEFAULT_MAX_METERED_MB = 500
@@ -64,7 +65,6 @@ _NS_PER_MIN = 60 * 10**9
 _NS_PER_H = 60 * _NS_PER_MIN
 _NS_PER_DAY = 24 * _NS_PER_H
 _NAT = np.iinfo(np.int64).min
-_LOCAL_FMT = "%Y-%m-%d %H:%M"
 # a time of day followed by a UTC offset or Z at the end of the string
 _OFFSET_RE = r"\d{2}:\d{2}(?::\d{2}(?:[.,]\d+)?)?\s*(?:[Zz]|[+-]\d{2}(?::?\d{2})?)$"
 _EXAMPLE = "e.g. 2025-03-30T03:00:00+02:00, 2025-03-30T01:00:00Z or local 2025-03-30 03:00"
@@ -116,9 +116,10 @@ def _ns(idx: pd.DatetimeIndex) -> np.ndarray:
 
 
 def _local_text(t_ns: np.ndarray, tz: str) -> np.ndarray:
-    """Local wall-clock text of UTC nanosecond instants."""
+    """ISO 8601 local time with its UTC offset of UTC nanosecond instants (the one time
+    format of every output, :func:`allocator.timefmt.iso_local`)."""
     idx = pd.DatetimeIndex(np.asarray(t_ns, dtype="datetime64[ns]")).tz_localize("UTC")
-    return np.asarray(idx.tz_convert(tz).strftime(_LOCAL_FMT), dtype=object)
+    return np.asarray(iso_local(idx, tz), dtype=object)
 
 
 def _fmt_minutes(ns: float) -> str:
@@ -749,10 +750,10 @@ def merge_metered(study: Study, metered: MeteredData, timestamps_utc: pd.Datetim
         lo = -(RANGE_FACTOR * f.pv_mw + RANGE_MARGIN_MW)
         flags.append((i, 3, FeederFlag(
             fids[i], "out_of_range",
-            f"{nh[i] + nl[i]} of {n_read[i]} readings outside {lo:g} … {hi:g} MW "
+            f"{nh[i] + nl[i]} of {n_read[i]} readings outside {lo:g} to {hi:g} MW "
             f"(1.5 × pv_mw {f.pv_mw:g} export, 1.5 × peak_mw {f.peak_mw:g} load, "
             f"+0.1 MW margin): {nh[i]} above, {nl[i]} below; readings range "
-            f"{mn[i]:g} … {mx[i]:g} MW")))
+            f"{mn[i]:g} to {mx[i]:g} MW")))
     none = np.flatnonzero(~has)
     for i in none:
         flags.append((i, 4, FeederFlag(

@@ -16,6 +16,7 @@ The study data (feeders, shapes, blocks) is invented test data.
 
 from __future__ import annotations
 
+import datetime
 import html
 import json
 import os
@@ -172,8 +173,10 @@ def test_workbook_sheets_and_headers(case):
     chk = case["check"]
     wb = openpyxl.load_workbook(case["out"] / "report.xlsx")
     assert wb.sheetnames == SHEETS
-    assert [c.value for c in wb["blocks"][1]][:len(BLOCK_COLUMNS) + 1] == \
-        ["scenario"] + [h for _, h, _, _ in BLOCK_COLUMNS]
+    want = ["scenario"]
+    for _, h, kind, _ in BLOCK_COLUMNS:  # a local time: date cell plus its offset column
+        want += [f"{h} (local)", f"{h} UTC offset h"] if kind == "time" else [h]
+    assert [c.value for c in wb["blocks"][1]][:len(want)] == want
     head = [c.value for c in wb["feeders"][1]]
     for h in ("feeder", "substation", "zone", "profile (feeder class)", "relay",
               "priority site", "block", "pickup Hz", "time delay s", "RoCoF setting Hz/s",
@@ -241,6 +244,13 @@ def test_blocks_sheet_equals_summary_json(case):
         values = {h: c.value for h, c in zip(head, ws[i + 2])}
         for key, header, kind, _ in BLOCK_COLUMNS:
             if key not in jrow:
+                continue
+            if kind == "time":
+                # ISO 8601 text in JSON (read with datetime.fromisoformat); in the xlsx a
+                # zone-less date cell (ECMA-376 serial date) and the offset beside it
+                t = datetime.datetime.fromisoformat(jrow[key])
+                assert values[f"{header} (local)"] == t.replace(tzinfo=None)
+                assert values[f"{header} UTC offset h"] == t.utcoffset().total_seconds() / 3600
                 continue
             v = values[header]
             if kind == "bool":

@@ -22,7 +22,7 @@ from openpyxl.styles import Alignment, Font, PatternFill
 from .. import __version__, vocab
 from ..check import Check, ScenarioChecks, by_substation, exporting_feeders, summary_dict
 from ..export import stacked
-from ..timefmt import offset_hours
+from ..timefmt import offset_hours, split_iso
 from . import content, palette
 from .xlsxtable import Col, Table, put, put_text, save, table_sheet
 
@@ -37,7 +37,9 @@ BOLD = Font(bold=True)
 WRAP = Alignment(wrap_text=True, vertical="top")
 
 #: blocks sheet: (summary.json key, header, kind, number format); the statistics are written
-#: with the summary.json values (same rounding), so the two files show the same numbers
+#: with the summary.json values (same rounding), so the two files show the same numbers.
+#: Kind "time": an ISO 8601 local time, written as a date cell "<header> (local)" and its
+#: "<header> UTC offset h" column (see time_cols)
 BLOCK_COLUMNS: tuple[tuple[str, str, str, str | None], ...] = (
     ("block", "block", "text", None),
     ("order", "order", "int", F_INT),
@@ -60,7 +62,7 @@ BLOCK_COLUMNS: tuple[tuple[str, str, str, str | None], ...] = (
     ("shortfall_mwh", "shortfall MWh", "num", F_MWH),
     ("excess_mwh", "excess MWh", "num", F_MWH),
     ("worst_violation_pp", "worst distance outside band pp", "num", F_PP),
-    ("min_share_local_time", "time of lowest share (local)", "text", None),
+    ("min_share_local_time", "time of lowest share", "time", None),
     ("compliant", "compliant", "bool", None),
     ("status", "status", "text", None),
 )
@@ -81,6 +83,19 @@ SHEETS = {
     "exports": "armed feeders that export at some interval",
     "substations": "mean armed MW per substation, zone and block",
 }
+
+
+F_DATE, F_OFFSET = "yyyy-mm-dd hh:mm", "+0.00;-0.00"
+
+
+def time_cols(header: str, texts) -> list[Col]:
+    """An ISO 8601 local time (``2025-06-02T03:00+02:00``) as two columns: a real date cell
+    of the local wall-clock time, ``<header> (local)``, and ``<header> UTC offset h``.
+    SpreadsheetML date cells are serial day numbers without a zone (ECMA-376 Part 1,
+    §18.17.4), so the offset needs its own column; local − offset = UTC."""
+    wall, off = split_iso(texts)
+    return [Col(f"{header} (local)", wall, "date", F_DATE, 17),
+            Col(f"{header} UTC offset h", off, "num", F_OFFSET, 8)]
 
 
 def _cf_band(ws, rng: str, lo: str, hi: str) -> None:
@@ -111,7 +126,7 @@ def _block_cols(checks: list[Check]) -> list[Col]:
             vals = [np.nan if v is None else v for v in vals]
         else:
             vals = [r[key] for _, r in summ]
-        cols.append(Col(header, vals, kind, fmt))
+        cols += time_cols(header, vals) if kind == "time" else [Col(header, vals, kind, fmt)]
     rp = content.rule_percentiles(checks[0].study.settings) if checks else None
     if rp is not None and rp[0] not in ("P1", "P5"):
         for key, name in (("rule_low_share_pct", rp[0]), ("rule_high_share_pct", rp[1])):
@@ -226,9 +241,9 @@ def _intervals_sheet(wb, cs: ScenarioChecks) -> Table:
     cols = [Col("scenario", [c.scenario for c in checks for _ in range(c.year.n_intervals)],
                 "text", None, 10),
             Col(f"local time ({tz})", cat(lambda c: c.year.local_times.tz_localize(None)
-                                          .to_numpy()), "date", "yyyy-mm-dd hh:mm", 17),
+                                          .to_numpy()), "date", F_DATE, 17),
             Col("UTC offset h", cat(lambda c: offset_hours(c.year.local_times)), "num",
-                "+0.00;-0.00", 8),
+                F_OFFSET, 8),
             Col("UTC time", cat(lambda c: c.year.timestamps_utc.tz_localize(None).to_numpy()),
                 "date", "yyyy-mm-dd hh:mm", 17),
             Col("netted demand MW", cat(lambda c: c.year.demand_mw), "num", F_MW, 11)]
@@ -243,23 +258,23 @@ def _intervals_sheet(wb, cs: ScenarioChecks) -> Table:
 
 def _windows_sheet(wb, check: ScenarioChecks) -> Table:
     w = content.windows_table(check)
-    spec = [("rank", "rank", "int", F_INT), ("scenario", "scenario", "text", None),
-            ("block", "block", "text", None),
-            ("status", "status", "text", None),
-            ("start_local", "start (local)", "text", None),
-            ("end_local", "end (local)", "text", None), ("duration_h", "duration h", "num", F_H),
-            ("intervals", "intervals", "int", F_INT),
-            ("worst_share_pct", "worst share %", "num", "0.00"),
-            ("band_pct", "band limit %", "num", F_PCT),
-            ("energy_mwh", "MWh outside band", "num", F_MWH)]
     if w.empty:
-        cols = [Col(h, ["No interval lies outside any block's band."] if j == 0 else
-                    ([None] if kind == "text" else [np.nan]), "text" if j == 0 else kind, fmt,
-                    width=20 if j == 0 else None)
-                for j, (k, h, kind, fmt) in enumerate(spec)]
+        heads = ["rank", "scenario", "block", "status", "start (local)", "end (local)",
+                 "duration h", "MWh outside band"]
+        cols = [Col(h, ["No interval lies outside any block's band."] if j == 0 else [None],
+                    "text", None, width=20 if j == 0 else None) for j, h in enumerate(heads)]
         return table_sheet(wb, "windows", cols, autofilter=False)
-    cols = [Col(h, w[k].tolist() if kind == "text" else w[k].to_numpy(dtype=float), kind, fmt)
-            for k, h, kind, fmt in spec]
+    num = lambda k: w[k].to_numpy(dtype=float)  # noqa: E731
+    cols = ([Col("rank", num("rank"), "int", F_INT), Col("scenario", w["scenario"].tolist(),
+                                                         "text"),
+             Col("block", w["block"].tolist(), "text"), Col("status", w["status"].tolist(),
+                                                            "text")]
+            + time_cols("start", w["start_local"]) + time_cols("end", w["end_local"])
+            + [Col("duration h", num("duration_h"), "num", F_H),
+               Col("intervals", num("intervals"), "int", F_INT),
+               Col("worst share %", num("worst_share_pct"), "num", "0.00"),
+               Col("band limit %", num("band_pct"), "num", F_PCT),
+               Col("MWh outside band", num("energy_mwh"), "num", F_MWH)])
     t = table_sheet(wb, "windows", cols)
     # worst share: orange for below-min windows, blue for above-max ones
     rng = t.data_range("worst share %")
@@ -273,22 +288,23 @@ def _windows_sheet(wb, check: ScenarioChecks) -> Table:
 
 def _exports_sheet(wb, check: ScenarioChecks) -> Table:
     df = stacked(check, exporting_feeders)
-    spec = [("scenario", "scenario", "text", None),
-            ("feeder_id", "feeder", "text", None), ("substation", "substation", "text", None),
-            ("block", "block", "text", None), ("relay", "relay", "text", None),
-            ("exporting_intervals", "exporting intervals", "int", F_INT),
-            ("exporting_hours", "exporting hours h", "num", F_H),
-            ("most_export_mw", "largest export MW", "num", F_MW),
-            ("most_export_local_time", "time of largest export (local)", "text", None),
-            ("negative_contribution_mwh", "negative contribution MWh", "num", F_MWH)]
     if df.empty or "substation" not in df.columns:
-        cols = [Col(h, ["No armed feeder exports at any interval."] if j == 0 else
-                    ([None] if kind == "text" else [np.nan]), "text" if j == 0 else kind, fmt,
-                    width=20 if j == 0 else None)
-                for j, (k, h, kind, fmt) in enumerate(spec)]
+        heads = ["scenario", "feeder", "substation", "block", "relay", "exporting intervals",
+                 "time of largest export (local)"]
+        cols = [Col(h, ["No armed feeder exports at any interval."] if j == 0 else [None],
+                    "text", None, width=20 if j == 0 else None) for j, h in enumerate(heads)]
         return table_sheet(wb, "exports", cols, autofilter=False)
-    cols = [Col(h, df[k].tolist() if kind == "text" else df[k].to_numpy(dtype=float), kind, fmt)
-            for k, h, kind, fmt in spec]
+    num = lambda k: df[k].to_numpy(dtype=float)  # noqa: E731
+    text = lambda k: df[k].tolist()  # noqa: E731
+    cols = ([Col("scenario", text("scenario"), "text"), Col("feeder", text("feeder_id"), "text"),
+             Col("substation", text("substation"), "text"), Col("block", text("block"), "text"),
+             Col("relay", text("relay"), "text"),
+             Col("exporting intervals", num("exporting_intervals"), "int", F_INT),
+             Col("exporting hours h", num("exporting_hours"), "num", F_H),
+             Col("largest export MW", num("most_export_mw"), "num", F_MW)]
+            + time_cols("time of largest export", df["most_export_local_time"])
+            + [Col("negative contribution MWh", num("negative_contribution_mwh"), "num",
+                   F_MWH)])
     return table_sheet(wb, "exports", cols, freeze="B2")
 
 
@@ -315,8 +331,8 @@ def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
     check = cs.checks[0]
     s = check.study.settings
     ws.column_dimensions["A"].width = 34
-    for col in "BCDEFGHIJK":
-        ws.column_dimensions[col].width = 14
+    for col in "BCDEFGHIJKLM":
+        ws.column_dimensions[col].width = 17  # a yyyy-mm-dd hh:mm date cell needs ~17
     r = 1
     put_text(ws, r, 1, "UFLS armed-load report").font = TITLE_FONT
     r += 1
@@ -427,15 +443,21 @@ def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
                  f"{vocab.count(len(w), 'window').capitalize()} in all (also on the 'windows' "
                  "sheet):")
         r += 1
-        heads = ["rank", "scenario", "block", "status", "start (local)", "end (local)",
-                 "duration h", "worst share %", "MWh outside band"]
+        heads = ["rank", "scenario", "block", "status", "start (local)", "start UTC offset h",
+                 "end (local)", "end UTC offset h", "duration h", "worst share %",
+                 "MWh outside band"]
         for j, h in enumerate(heads, 1):
-            put_text(ws, r, j, h).font = BOLD
+            c = put_text(ws, r, j, h)
+            c.font, c.alignment = BOLD, WRAP
         r += 1
-        for row in w.head(10).itertuples():
-            vals = [row.rank, row.scenario, row.block, row.status, row.start_local,
-                    row.end_local, row.duration_h, row.worst_share_pct, row.energy_mwh]
-            fmts = ["0", None, None, None, None, None, "0.00", "0.00", "0.0"]
+        top = w.head(10)
+        (t0, o0), (t1, o1) = split_iso(top["start_local"]), split_iso(top["end_local"])
+        for k, row in enumerate(top.itertuples()):
+            # date cells are zone-less serial numbers (ECMA-376), hence the offset columns
+            vals = [row.rank, row.scenario, row.block, row.status, t0[k], o0[k], t1[k], o1[k],
+                    row.duration_h, row.worst_share_pct, row.energy_mwh]
+            fmts = ["0", None, None, None, F_DATE, F_OFFSET, F_DATE, F_OFFSET, "0.00", "0.00",
+                    "0.0"]
             for j, (v, f) in enumerate(zip(vals, fmts), 1):
                 put(ws, r, j, v, f)
             r += 1

@@ -38,6 +38,7 @@ from .. import vocab
 from ..check import Check, ScenarioChecks
 from ..domain import DAY_TYPES
 from ..safeio import safe_filename
+from ..timefmt import iso_local
 from . import content, palette
 
 DPI = 150
@@ -184,7 +185,7 @@ def share_map(check: Check, j: int) -> tuple[Figure, str, str]:
     ax.set_ylim(0, 24)
     ax.set_yticks(range(0, 25, 3))
     ax.set_yticklabels([f"{h:02d}:00" for h in range(0, 25, 3)])
-    ax.set_xlabel("date")
+    ax.set_xlabel(f"date ({check.year.calendar_year})")
     ax.set_ylabel(f"local time of day (h, {check.year.timezone})")
     cb = fig.colorbar(im, ax=ax, extend="both", pad=0.01, fraction=0.04)
     cb.set_label("share of netted demand armed (%)")
@@ -412,8 +413,8 @@ def feeder_classes(check: Check, fc: content.FeederContrib) -> tuple[Figure, str
         ax.set_xticks(x)
         if kp == "at_pos":
             lt = check.year.local_times
-            ax.set_xticklabels([f"{nm}\n{lt[int(cb['t_min'][j])]:%d %b %H:%M}"
-                                for j, nm in enumerate(names)])
+            ax.set_xticklabels([f"{nm}\n{iso_local(lt[int(cb['t_min'][j])])}"
+                                for j, nm in enumerate(names)], fontsize=7)
             ax.set_xlabel("block and the local time of its lowest share")
         else:
             ax.set_xticklabels(names)
@@ -472,7 +473,9 @@ def worst_windows(cs: ScenarioChecks) -> tuple[Figure, str, str]:
     ax = fig.add_subplot()
     year = cs.study.settings.year
     _month_axis(ax, year)
-    ax.set_xlabel("date")
+    ax.set_xlabel(f"date (months of {year}; windows of other calendar years at the same "
+                  "date and time)" if len({c.year.calendar_year for c in cs.checks}) > 1
+                  else f"date ({year})")
     if n == 0:
         ax.set_yticks([])
         ax.text(0.5, 0.5, "No interval lies outside any block's band.", transform=ax.transAxes,
@@ -490,10 +493,10 @@ def worst_windows(cs: ScenarioChecks) -> tuple[Figure, str, str]:
             ax.plot([x0, x1], [yv, yv], color=color, lw=6, solid_capstyle="butt")
             ax.plot([(x0 + x1) / 2], [yv], ls="none", color=color, mec=palette.INK, mew=0.6,
                     marker="v" if below else "^", ms=8)
-            kind = r.status
-            end = f"{t1:%H:%M}" if t1.normalize() == t0.normalize() or t1 == \
-                t0.normalize() + pd.Timedelta(days=1) else f"{t1:%a %d %b %H:%M}"
-            labels.append(f"#{r.rank} {r.scenario} {r.block} {kind}: {t0:%a %d %b %H:%M}-"
+            # the window's own ISO 8601 local times (its scenario's year, with the offset)
+            start, end = r.start_local, r.end_local
+            end = end[11:] if end[:10] == start[:10] else end
+            labels.append(f"#{r.rank} {r.scenario} {r.block} {r.status}: {start} to "
                           f"{end}, {r.duration_h:g} h, {r.energy_mwh:.1f} MWh")
         # every window, as a rug under the ranked rows
         all_x = mdates.date2num(_window_times(cs, w, year)[0])

@@ -285,7 +285,7 @@ def _slow_fill(table: Table) -> None:
                 else:
                     cell.value = None
             elif c.kind == "date":
-                cell.value = v
+                cell.value = None if pd.isna(v) else v
             else:
                 f = float(v) if v is not None else math.nan
                 cell.value = (int(f) if c.kind == "int" else f) if math.isfinite(f) else None
