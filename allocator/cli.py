@@ -15,7 +15,7 @@ import time
 import traceback
 from pathlib import Path
 
-from . import __version__
+from . import __version__, vocab
 from .errors import InputError
 from .safeio import OutputClashError
 
@@ -32,7 +32,7 @@ def _load(workbook: str, metered: str | None, console, quiet: bool,
     from .scenarios import build_years
     from .workbook import read_study
 
-    with console.status("reading workbook", spinner="dots") if not quiet else _null():
+    with _status(console, "reading workbook", quiet):
         study = read_study(workbook)
     met = None
     if metered:
@@ -40,11 +40,11 @@ def _load(workbook: str, metered: str | None, console, quiet: bool,
         from .year import study_intervals
 
         s = study.settings
-        with console.status("reading metered data") if not quiet else _null():
+        with _status(console, "reading metered data", quiet):
             met = read_metered(metered, study,
                                study_intervals(s.year, s.timezone, s.interval_minutes))
     names = [n.strip() for n in scenarios.split(",") if n.strip()] if scenarios else None
-    with console.status("building the scenarios' years of net load") if not quiet else _null():
+    with _status(console, "building the scenarios' years of net load", quiet):
         years = build_years(study, met, names)
     return study, years
 
@@ -62,6 +62,14 @@ class _null:
 
     def __exit__(self, *a):
         return False
+
+
+def _status(console, text: str, quiet: bool):
+    """A spinner while ``text`` runs, on a terminal only: piped output (a file, a log, a
+    pipe) gets no animation and no control characters."""
+    if quiet or not console.is_terminal:
+        return _null()
+    return console.status(text)
 
 
 def _default_out(workbook: str, leaf: str) -> Path:
@@ -189,20 +197,20 @@ def _plan_into(args, console, study, years, out_tmp: Path, quiet: bool):
     tl = args.time_limit if getattr(args, "time_limit", None) else study.settings.solver_time_limit_s
     mc = args.max_changes if getattr(args, "max_changes", None) is not None \
         else study.settings.max_changes
+    live = not quiet and console.is_terminal  # no spinner in piped output
     with Progress(SpinnerColumn(), TextColumn("{task.description}"), TimeElapsedColumn(),
-                  console=console, disable=quiet, transient=False) as prog:
+                  console=console, disable=not live, transient=True) as prog:
         task = prog.add_task("planning: heuristic start", total=None)
 
         def cb(level, round, intervals, worst, status):
-            w = "…" if worst != worst else f"{100 * worst:.2f} % of target"
-            prog.update(task, description=f"planning: {level}, round {round}, "
-                        f"{intervals} intervals held, worst violation {w} [{status}]")
+            w = "" if worst != worst else f", worst {100 * worst:.2f} % of target"
+            prog.update(task, description=f"planning: {level} round {round}, "
+                        f"{intervals} intervals{w}")
         outcome = plan_allocation(study, years, solver=getattr(args, "solver", "highs"),
                                   time_limit_s=tl, max_changes=mc,
                                   seed=getattr(args, "seed", 0), progress=cb,
                                   objective=getattr(args, "objective", None),
                                   margin_pp=getattr(args, "margin", None))
-        prog.update(task, description=f"planning done: {outcome.status}")
     chk = run_checks(study, years, outcome.block_idx)
     rows = assignment_rows(study, outcome.block_idx, previous=study.current_assignment)
     write_csv(pd.DataFrame(rows, columns=["feeder_id", "block", "previous_block", "changed"]),
@@ -215,24 +223,24 @@ def _plan_into(args, console, study, years, out_tmp: Path, quiet: bool):
 
 
 def _print_plan(console, outcome, chk, info) -> None:
-    from .console import verdict_table, worst_windows
+    """The planned allocation's verdict table and worst windows, then the plan's facts with
+    labels and units (the same facts the reports show), why it looks as it does and the
+    planner's notes."""
+    from rich.markup import escape
+
+    from .console import print_pairs, verdict_table, worst_windows
+    from .report.content import plan_text
 
     verdict_table(console, chk, "Planned allocation")
     worst_windows(console, chk)
+    pt = plan_text(info)
     colour = "green" if outcome.status == "in_band" else "red"
-    words = {"in_band": "every block in band in every interval of every scenario",
-             "out_of_band": "not every block can be held in band"}
-    console.print(f"Plan: [{colour}]{words.get(outcome.status, outcome.status)}[/{colour}]; "
-                  f"{outcome.relays_changed} relay(s) change setting "
-                  f"({outcome.feeders_changed} feeder(s)); worst violation "
-                  f"{info['worst_violation_pp']:.2f} pp; {outcome.seconds:.1f} s "
-                  f"({outcome.rounds} rounds, {outcome.solver_version}).")
-    for lv in outcome.levels:
-        console.print(f"  {lv['level']}: {lv['claim']}")
-    for line in outcome.explanation:
-        console.print(f"  [bold]why:[/bold] {line}")
-    for line in outcome.events:
-        console.print(f"  [dim]note:[/dim] {line}")
+    print_pairs(console, "Plan", [(k, f"[{colour}]{escape(v)}[/{colour}]" if k == "result"
+                                   else escape(v)) for k, v in pt.key])
+    for line in pt.explanation:
+        console.print(f"  [bold]why:[/bold] {escape(line)}")
+    for line in pt.notes:
+        console.print(f"  [dim]note:[/dim] {escape(line)}")
 
 
 def cmd_plan(args, console) -> int:
@@ -268,7 +276,7 @@ def _frequency_into(study, checks, out_tmp: Path, at, quiet, console):
 
     cs = as_set(checks)
     studies, tables, summary = [], [], None
-    with console.status("frequency indication") if not quiet else _null():
+    with _status(console, "frequency indication", quiet):
         for c in cs.checks:
             fs = run_frequency_study(c, at if c.year.calendar_year == study.settings.year
                                      else None)
@@ -323,48 +331,27 @@ def _critical_trace_png(studies) -> bytes:
 
 
 def _print_frequency(console, summary: dict) -> None:
-    """The frequency indication per examined interval, cutting no number at any width.
+    """The frequency indication per examined interval and scenario, cutting no number at any
+    width (:func:`allocator.console.print_table`): each row's labels, scenario and ISO 8601
+    local time stacked in the first column."""
+    from rich.markup import escape
 
-    A table when it fits (80 columns do): each interval's labels and its ISO 8601 local time
-    stacked in the first column, every column fixed at least as wide as its longest value,
-    headers wrapping into the width left.  Narrower consoles get one block of lines per
-    interval.  (rich's own shrinking would cut values with "…", so widths are set here.)
-    """
-    from rich.table import Table
+    from .console import print_table
 
     title = ("Frequency indication: largest generation loss kept within "
              f"{summary['floor_hz']:g}–{summary['ceiling_hz']:g} Hz")
-    heads = ("interval and local time", "demand MW", "armed %",
-             "largest loss kept within limits %", "that loss MW")
+    heads = ["interval, scenario and local time", "demand MW", "armed %",
+             "largest loss kept within limits %", "that loss MW"]
     rows = []
     for r in summary["intervals"]:
         lc = r["largest_covered_pct"]
-        rows.append(("\n".join(r["interval"].split("+")) + "\n" + r["local_time"],
+        rows.append((escape("\n".join(r["interval"].split("+")) + "\n"
+                            + (r.get("scenario") or "") + "\n" + r["local_time"]),
                      f"{r['demand_mw']:.0f}", f"{r['total_armed_pct']:.1f}",
                      "none" if lc is None else f"{lc:g}",
-                     "—" if lc is None else f"{r['largest_covered_mw']:.0f}"))
-    widths = [max([len(w) for w in h.split()] + [len(x) for row in rows
-                                                  for x in row[j].split("\n")])
-              for j, h in enumerate(heads)]
-    spare = console.width - (sum(widths) + 3 * len(heads) + 1)  # borders and padding
-    if spare < 0:
-        console.print(title)
-        for row in rows:
-            console.print(row[0].replace("\n", " "), highlight=False)
-            for h, v in zip(heads[1:], row[1:]):
-                console.print(f"  {h}: {v}", highlight=False)
-    else:
-        for j in sorted(range(len(heads)), key=lambda j: len(heads[j]) - widths[j]):
-            grow = min(spare, max(0, len(heads[j]) - widths[j]))  # short headers whole first
-            widths[j] += grow
-            spare -= grow
-        t = Table(title=title, title_justify="left")
-        for j, h in enumerate(heads):
-            t.add_column(h, justify="left" if j == 0 else "right", width=widths[j])
-        for row in rows:
-            t.add_row(*row)
-        console.print(t)
-    console.print("[dim]" + summary["cautions"][0] + "[/dim]")
+                     "none" if lc is None else f"{r['largest_covered_mw']:.0f}"))
+    print_table(console, title, heads, rows, right={1, 2, 3, 4})
+    console.print("[dim]" + escape(summary["cautions"][0]) + "[/dim]")
 
 
 def cmd_frequency(args, console) -> int:
@@ -417,11 +404,11 @@ def cmd_demo(args, console) -> int:
             summary = year_summary(study, years[0])
             write_csv(summary, tmp / "year_summary.csv")
         for y in years:
+            n_exp = int(((y.net_mw < 0).any(axis=1)).sum())
             console.print(f"Scenario {y.scenario}: {y.n_intervals} intervals × "
                           f"{len(study.feeders)} feeders; demand {y.demand_mw.min():.0f}–"
-                          f"{y.demand_mw.max():.0f} MW; "
-                          f"{int(((y.net_mw < 0).any(axis=1)).sum())} feeders export at "
-                          "some interval.")
+                          f"{y.demand_mw.max():.0f} MW; {vocab.count(n_exp, 'feeder')} "
+                          f"{'exports' if n_exp == 1 else 'export'} at some interval.")
         with step("check the current allocation"):
             cur, cur_warns = current_assignment(study)
             before = run_checks(study, years, cur, cur_warns)
@@ -477,15 +464,14 @@ class _Stage:
 
     def __enter__(self):
         self.t0 = time.perf_counter()
-        if not self.p.quiet:
-            self.status = self.p.console.status(
-                f"[{self.p.n}/{len(self.p.names)}] {self.name}")
-            self.status.__enter__()
+        self.status = _status(self.p.console, f"[{self.p.n}/{len(self.p.names)}] "
+                              f"{self.name}", self.p.quiet)
+        self.status.__enter__()
         return self
 
     def __exit__(self, *exc):
+        self.status.__exit__(*exc)
         if not self.p.quiet:
-            self.status.__exit__(*exc)
             if exc[0] is None:
                 self.p.console.print(f"[green]✓[/green] [{self.p.n}/{len(self.p.names)}] "
                                      f"{self.name} ({time.perf_counter() - self.t0:.1f} s)")

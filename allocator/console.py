@@ -75,33 +75,58 @@ def print_table(console: Console, title: str, heads: list[str], rows: list[tuple
     console.print(t)
 
 
+def print_pairs(console: Console, title: str | None, pairs: list[tuple[str, str]]) -> None:
+    """Labelled values (rich markup), two columns: the labels as wide as the longest, the
+    values wrapping at spaces into the width left; "label: value" lines when even that does
+    not fit.  Nothing is cut."""
+    rows = [(escape(k), v) for k, v in pairs]
+    w = _widths(console.width, ["", ""], rows, set())
+    if title:
+        console.print(title)
+    if w is None:
+        for k, v in rows:
+            console.print(f"{k}: {v}")
+        return
+    t = Table(show_header=False, box=None, padding=(0, 1), pad_edge=False, show_edge=False)
+    t.add_column(style="bold", width=w[0], overflow="fold")
+    t.add_column(width=w[1], overflow="fold")
+    for k, v in rows:
+        t.add_row(k, v)
+    console.print(t)
+
+
 def study_overview(console: Console, study: Study) -> None:
     allowed = study.allowed_matrix()
     armable = allowed.any(axis=1)
     s = study.settings
-    t = Table(title=escape(f"{s.utility} — study year {s.year}"), show_header=False, box=None)
-    t.add_column("what", style="bold")
-    t.add_column("value")
-    t.add_row("feeders", f"{len(study.feeders)} ({int(armable.sum())} armable, "
-              f"{int(study.is_priority.sum())} priority, "
-              f"{int((study.relay_code == 0).sum())} without a UFLS relay)")
-    t.add_row("substations", str(len({f.substation for f in study.feeders})))
-    t.add_row("blocks", escape(", ".join(f"{b.name} {b.pickup_hz:g} Hz {b.target_pct:g} %"
-                                         for b in study.blocks)))
-    t.add_row("total peak", f"{study.peak_mw.sum():.1f} MW")
-    t.add_row("total PV", f"{study.pv_mw.sum():.1f} MW (derate {s.pv_derate:g})")
-    t.add_row("calendar", f"{s.timezone}, {s.interval_minutes}-minute intervals, holidays "
-              f"{s.holiday_country or 'none'}{'-' + s.holiday_subdivision if s.holiday_subdivision else ''}")
-    t.add_row("rule", f"{s.rule_text}; priority sites: {s.priority_policy}")
-    console.print(t)
+    hol = (s.holiday_country or "none") + (f"-{s.holiday_subdivision}"
+                                           if s.holiday_subdivision else "")
+    print_pairs(console, escape(f"{s.utility} — study year {s.year}"), [
+        ("feeders", f"{len(study.feeders)} ({int(armable.sum())} armable, "
+                    f"{int(study.is_priority.sum())} priority, "
+                    f"{int((study.relay_code == 0).sum())} without a UFLS relay)"),
+        ("substations", str(len({f.substation for f in study.feeders}))),
+        ("blocks", escape(", ".join(f"{b.name} {b.pickup_hz:g} Hz {b.target_pct:g} %"
+                                    for b in study.blocks))),
+        ("total peak", f"{study.peak_mw.sum():.1f} MW"),
+        ("total PV", f"{study.pv_mw.sum():.1f} MW (derate {s.pv_derate:g})"),
+        ("calendar", f"{s.timezone}, {s.interval_minutes}-minute intervals, holidays {hol}"),
+        ("scenarios", escape(", ".join(sc.name for sc in study.scenarios))),
+        ("rule", f"{s.rule_text}; priority sites: {s.priority_policy}"),
+    ])
 
 
 def warnings(console: Console, items: list[str] | tuple[str, ...], limit: int = 15) -> None:
+    """The first ``limit`` warnings, each wrapped under its "!" (words never cut)."""
     if not items:
         return
     console.print(f"[yellow]{vocab.count(len(items), 'warning')}:[/yellow]")
+    t = Table.grid(padding=(0, 1))
+    t.add_column(width=3, justify="right", style="yellow")
+    t.add_column(overflow="fold", max_width=max(console.width - 4, 10))
     for w in list(items)[:limit]:
-        console.print(f"  [yellow]![/yellow] {escape(str(w))}")
+        t.add_row("!", escape(str(w)))
+    console.print(t)
     if len(items) > limit:
         console.print(f"  and {vocab.count(len(items) - limit, 'more warning')}")
 
