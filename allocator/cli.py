@@ -20,6 +20,9 @@ from .errors import InputError
 from .safeio import OutputClashError
 
 EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
+#: subfolders of the one output layout (outputs/README.md): a plan's folder holds the
+#: current allocation's check under CURRENT, the demo's frequency files go under FREQUENCY
+CURRENT, FREQUENCY = "current", "frequency"
 
 
 # --------------------------------------------------------------------------------------------
@@ -183,8 +186,8 @@ def plan_json(outcome, chk, args_info: dict) -> dict:
 
 
 def _plan_into(args, console, study, years, out_tmp: Path, quiet: bool):
-    """Plan, write plan.csv / plan.json, check the plan on every scenario into
-    out_tmp/check/."""
+    """Plan, check the plan on every scenario and write plan.csv / plan.json into
+    ``out_tmp``.  Returns (outcome, the plan's ScenarioChecks, the plan.json dict)."""
     from rich.progress import Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
 
     from .assignment import assignment_rows
@@ -192,7 +195,6 @@ def _plan_into(args, console, study, years, out_tmp: Path, quiet: bool):
     from .plan import plan_allocation
     import pandas as pd
     from .safeio import write_csv, write_json
-    from .export import write_check_files
 
     tl = args.time_limit if getattr(args, "time_limit", None) else study.settings.solver_time_limit_s
     mc = args.max_changes if getattr(args, "max_changes", None) is not None \
@@ -218,7 +220,6 @@ def _plan_into(args, console, study, years, out_tmp: Path, quiet: bool):
     info = plan_json(outcome, chk, {"seed": getattr(args, "seed", 0), "time_limit_s": tl,
                                     "max_changes": mc})
     write_json(info, out_tmp / "plan.json")
-    write_check_files(chk, out_tmp / "check")
     return outcome, chk, info
 
 
@@ -244,6 +245,8 @@ def _print_plan(console, outcome, chk, info) -> None:
 
 
 def cmd_plan(args, console) -> int:
+    """plan.csv, plan.json and the planned allocation's check files and reports at the top
+    of the folder, the current allocation's under current/ (the layout of outputs/README)."""
     from .safeio import atomic_dir, check_out_dir
 
     out = Path(args.out) if args.out else _default_out(args.workbook, "plan")
@@ -251,13 +254,17 @@ def cmd_plan(args, console) -> int:
     study, years = _load(args.workbook, args.metered, console, args.quiet, args.scenarios)
     from .assignment import current_assignment
     from .check import run_checks
+    from .export import write_check_files
 
     cur, cur_warns = current_assignment(study)
     before = run_checks(study, years, cur, cur_warns)
     with atomic_dir(out) as tmp:
         outcome, chk, info = _plan_into(args, console, study, years, tmp, args.quiet)
+        write_check_files(chk, tmp)
         _reports(args, chk, tmp, previous_idx=study.current_assignment,
                  plan_info=info, before=before)
+        write_check_files(before, tmp / CURRENT)
+        _reports(args, before, tmp / CURRENT)
     _print_plan(console, outcome, chk, info)
     console.print(f"Wrote {out}/")
     return EXIT_OK
@@ -375,16 +382,10 @@ def _formats(args) -> set[str]:
 
 
 def cmd_demo(args, console) -> int:
-    """validate → check the current allocation → plan → check the plan → frequency → reports."""
-    from .assignment import current_assignment
-    from .check import run_checks
-    from .console import study_overview, verdict_table, warnings, worst_windows
-    from .demo import demo_workbook_path
-    from .export import write_check_files
-    from .safeio import atomic_dir, write_csv
-    from .scenarios import build_years
-    from .workbook import read_study
-    from .year import year_summary
+    """validate → check the current allocation → plan → check the plan → frequency → reports,
+    in the layout of ``plan`` plus frequency/, current/frequency/, year_summary.csv and the
+    demo workbook under input/."""
+    from .safeio import atomic_dir
 
     out = Path(args.out)
     fmts = _formats(args)
@@ -392,58 +393,89 @@ def cmd_demo(args, console) -> int:
               "check the current allocation", "plan a new allocation", "check the plan",
               "frequency indication", "reports"]
     with atomic_dir(out) as tmp:
-        wb = demo_workbook_path(tmp / "input")
-        console.rule(f"demo: {wb.name}")
         step = _Stages(console, stages, args.quiet)
-        with step("validate the workbook"):
-            study = read_study(wb)
-        study_overview(console, study)
-        warnings(console, study.warnings, limit=5)
-        with step("build the scenarios' years of net load"):
-            years = build_years(study)
-            summary = year_summary(study, years[0])
-            write_csv(summary, tmp / "year_summary.csv")
-        for y in years:
-            n_exp = int(((y.net_mw < 0).any(axis=1)).sum())
-            console.print(f"Scenario {y.scenario}: {y.n_intervals} intervals × "
-                          f"{len(study.feeders)} feeders; demand {y.demand_mw.min():.0f}–"
-                          f"{y.demand_mw.max():.0f} MW; {vocab.count(n_exp, 'feeder')} "
-                          f"{'exports' if n_exp == 1 else 'export'} at some interval.")
-        with step("check the current allocation"):
-            cur, cur_warns = current_assignment(study)
-            before = run_checks(study, years, cur, cur_warns)
-            write_check_files(before, tmp / "current")
-        verdict_table(console, before, "Current allocation")
-        worst_windows(console, before, n=3)
+        study, years, before = _demo_inputs(console, step, tmp)
         args.solver = "highs"
         args.max_changes = None
         with step("plan a new allocation"):
             outcome, chk, info = _plan_into(args, console, study, years, tmp, True)
         with step("check the plan"):
+            from .export import write_check_files
+
             write_check_files(chk, tmp)
         _print_plan(console, outcome, chk, info)
         with step("frequency indication"):
-            fs_before, fsum_before = _frequency_into(study, before, tmp / "frequency" /
-                                                     "current", None, True, console)
-            fs_after, fsum_after = _frequency_into(study, chk, tmp / "frequency" / "plan",
-                                                   None, True, console)
+            fs_b, fsum_b = _frequency_into(study, before, tmp / CURRENT / FREQUENCY, None,
+                                           True, console)
+            fs_a, fsum_a = _frequency_into(study, chk, tmp / FREQUENCY, None, True, console)
             if "png" in fmts or "html" in fmts:
-                _write_frequency_figures(fs_after, tmp / "frequency" / "plan" / "figures")
-                _write_frequency_figures(fs_before, tmp / "frequency" / "current" / "figures")
+                _write_frequency_figures(fs_a, tmp / FREQUENCY / "figures")
+                _write_frequency_figures(fs_b, tmp / CURRENT / FREQUENCY / "figures")
         with step("reports"):
             from .report import write_reports
 
-            freq = {"after": fsum_after, "before": fsum_before,
-                    "figure_png": _critical_trace_png(fs_after) if "html" in fmts else None}
+            png = (lambda fs: _critical_trace_png(fs) if "html" in fmts else None)  # noqa: E731
             write_reports(chk, tmp, previous_idx=study.current_assignment, plan_info=info,
-                          before=before, formats=fmts, frequency=freq)
-            write_reports(before, tmp / "current", previous_idx=None, formats=fmts)
-    _demo_verdicts(console, before, chk, fsum_before, fsum_after)
+                          before=before, formats=fmts,
+                          frequency={"after": fsum_a, "before": fsum_b, "figure_png": png(fs_a)})
+            write_reports(before, tmp / CURRENT, previous_idx=None, formats=fmts,
+                          frequency={"after": fsum_b, "before": None, "figure_png": png(fs_b)})
+    _demo_verdicts(console, before, chk, fsum_b, fsum_a)
     for name in ("report.html", "report.xlsx"):
         if (out / name).exists():
             console.print(f"  {name}: {(out / name).resolve()}")
     console.print(f"Wrote {out}/")
     return EXIT_OK
+
+
+def _demo_inputs(console, step, tmp: Path):
+    """The demo's first three stages: the workbook (into tmp/input/ when rebuilt), every
+    scenario's year (year_summary.csv) and the current allocation's check (tmp/current/).
+    Returns (study, years, the current allocation's ScenarioChecks)."""
+    import pandas as pd
+
+    from .assignment import current_assignment
+    from .check import run_checks
+    from .console import study_overview, verdict_table, warnings, worst_windows
+    from .demo import demo_workbook_path
+    from .export import write_check_files
+    from .safeio import write_csv
+    from .scenarios import build_years
+    from .workbook import read_study
+    from .year import year_summary
+
+    wb = demo_workbook_path(tmp / "input")
+    if wb.parent != tmp / "input":  # the workbook the demo used goes with its outputs
+        import shutil
+
+        (tmp / "input").mkdir(exist_ok=True)
+        shutil.copy2(wb, tmp / "input" / wb.name)
+    console.rule(f"demo: {wb.name}")
+    with step("validate the workbook"):
+        study = read_study(wb)
+    study_overview(console, study)
+    warnings(console, study.warnings, limit=5)
+    with step("build the scenarios' years of net load"):
+        years = build_years(study)
+        frames = []
+        for y in years:  # one row per feeder and scenario, the scenario column first
+            f = year_summary(study, y)
+            f.insert(0, "scenario", y.scenario)
+            frames.append(f)
+        write_csv(pd.concat(frames, ignore_index=True), tmp / "year_summary.csv")
+    for y in years:
+        n_exp = int(((y.net_mw < 0).any(axis=1)).sum())
+        console.print(f"Scenario {y.scenario}: {y.n_intervals} intervals × "
+                      f"{len(study.feeders)} feeders; demand {y.demand_mw.min():.0f}–"
+                      f"{y.demand_mw.max():.0f} MW; {vocab.count(n_exp, 'feeder')} "
+                      f"{'exports' if n_exp == 1 else 'export'} at some interval.")
+    with step("check the current allocation"):
+        cur, cur_warns = current_assignment(study)
+        before = run_checks(study, years, cur, cur_warns)
+        write_check_files(before, tmp / CURRENT)
+    verdict_table(console, before, "Current allocation")
+    worst_windows(console, before, n=3)
+    return study, years, before
 
 
 class _Stages:

@@ -3,7 +3,7 @@
 Each run is a fresh interpreter (``python -m allocator``) with a different
 ``PYTHONHASHSEED``, so an output that depended on set or dict-of-str iteration order, on
 memory addresses or on the wall clock would differ.  Compared byte for byte: ``plan.csv``,
-the plan's ``check/summary.json`` and ``check/armed_load.csv``, and every CSV/JSON file of
+the plan's ``summary.json`` and ``armed_load.csv``, and every CSV/JSON file of
 ``check``.  (``plan.json`` holds solve times and is compared without them.)
 
 The 12-feeder study is invented test data.
@@ -69,7 +69,7 @@ def test_plan_outputs_byte_identical(study):
     for out, seed in (("plan_a", "1"), ("plan_b", "4242")):
         _run(study, ["plan", "study.xlsx", "--out", out, "--time-limit", "20",
                      "--format", "none"], seed)
-    names = ["plan.csv", "check/summary.json", "check/armed_load.csv"]
+    names = ["plan.csv", "summary.json", "armed_load.csv", "current/summary.json"]
     a, b = _bytes(study / "plan_a", names), _bytes(study / "plan_b", names)
     for n in names:
         assert a[n], f"{n} is empty"
