@@ -122,10 +122,12 @@ def cmd_check(args, console) -> int:
     from .safeio import atomic_dir
 
     out, study, years, chk, warns = _checked_allocation(args, console, "check")
+    rec = _record(args, study, years)
     with atomic_dir(out) as tmp:
         write_check_files(chk, tmp)
         _reports(args, chk, tmp,
-                 previous_idx=study.current_assignment if args.assignment else None)
+                 previous_idx=study.current_assignment if args.assignment else None, run=rec)
+        _write_run(tmp, rec)
     verdict_table(console, chk)
     worst_windows(console, chk)
     statement_table(console, chk)
@@ -134,12 +136,31 @@ def cmd_check(args, console) -> int:
     return EXIT_OK
 
 
-def _reports(args, chk, out: Path, previous_idx=None, plan_info=None, before=None) -> None:
+def _reports(args, chk, out: Path, previous_idx=None, plan_info=None, before=None,
+             run=None) -> None:
     """Report outputs (report.xlsx, figures/, report.html) - see allocator.report."""
     from .report import parse_formats, write_reports
 
     write_reports(chk, out, previous_idx=previous_idx, plan_info=plan_info, before=before,
-                  formats=parse_formats(getattr(args, "format", None)))
+                  formats=parse_formats(getattr(args, "format", None)), run=run)
+
+
+def _record(args, study, years) -> dict:
+    """The run record of this command (allocator.runrecord): version, time, command line,
+    every input file with its SHA-256."""
+    from .runrecord import run_record
+
+    return run_record(study, years, getattr(args, "argv", None),
+                      metered=getattr(args, "metered", None),
+                      assignment=getattr(args, "assignment", None))
+
+
+def _write_run(folder: Path, rec: dict) -> None:
+    """run.json beside the folder's summary.json (or frequency.json); written last."""
+    from .safeio import write_json
+
+    folder.mkdir(parents=True, exist_ok=True)
+    write_json(rec, folder / "run.json")
 
 
 def plan_json(outcome, chk, args_info: dict) -> dict:
@@ -236,8 +257,9 @@ def _print_plan(console, outcome, chk, info) -> None:
     worst_windows(console, chk)
     pt = plan_text(info)
     colour = "green" if outcome.status == "in_band" else "red"
-    print_pairs(console, "Plan", [(k, f"[{colour}]{escape(v)}[/{colour}]" if k == "result"
-                                   else escape(v)) for k, v in pt.key])
+    print_pairs(console, "Plan", [(f.label, f"[{colour}]{escape(f.text())}[/{colour}]"
+                                   if f.label == "result" else escape(f.text()))
+                                  for f in pt.key])
     for line in pt.explanation:
         console.print(f"  [bold]why:[/bold] {escape(line)}")
     for line in pt.notes:
@@ -258,13 +280,16 @@ def cmd_plan(args, console) -> int:
 
     cur, cur_warns = current_assignment(study)
     before = run_checks(study, years, cur, cur_warns)
+    rec = _record(args, study, years)
     with atomic_dir(out) as tmp:
         outcome, chk, info = _plan_into(args, console, study, years, tmp, args.quiet)
         write_check_files(chk, tmp)
         _reports(args, chk, tmp, previous_idx=study.current_assignment,
-                 plan_info=info, before=before)
+                 plan_info=info, before=before, run=rec)
         write_check_files(before, tmp / CURRENT)
-        _reports(args, before, tmp / CURRENT)
+        _reports(args, before, tmp / CURRENT, run=rec)
+        _write_run(tmp / CURRENT, rec)
+        _write_run(tmp, rec)
     _print_plan(console, outcome, chk, info)
     console.print(f"Wrote {out}/")
     return EXIT_OK
@@ -370,6 +395,7 @@ def cmd_frequency(args, console) -> int:
         fmts = _formats(args)
         if "png" in fmts or "html" in fmts:
             _write_frequency_figures(fs, tmp / "figures")
+        _write_run(tmp, _record(args, study, years))
     _print_frequency(console, summary)
     console.print(f"Wrote {out}/")
     return EXIT_OK
@@ -395,6 +421,7 @@ def cmd_demo(args, console) -> int:
     with atomic_dir(out) as tmp:
         step = _Stages(console, stages, args.quiet)
         study, years, before = _demo_inputs(console, step, tmp)
+        rec = _record(args, study, years)
         args.solver = "highs"
         args.max_changes = None
         with step("plan a new allocation"):
@@ -416,10 +443,12 @@ def cmd_demo(args, console) -> int:
 
             png = (lambda fs: _critical_trace_png(fs) if "html" in fmts else None)  # noqa: E731
             write_reports(chk, tmp, previous_idx=study.current_assignment, plan_info=info,
-                          before=before, formats=fmts,
+                          before=before, formats=fmts, run=rec,
                           frequency={"after": fsum_a, "before": fsum_b, "figure_png": png(fs_a)})
-            write_reports(before, tmp / CURRENT, previous_idx=None, formats=fmts,
+            write_reports(before, tmp / CURRENT, previous_idx=None, formats=fmts, run=rec,
                           frequency={"after": fsum_b, "before": None, "figure_png": png(fs_b)})
+            for folder in (tmp / FREQUENCY, tmp / CURRENT / FREQUENCY, tmp / CURRENT, tmp):
+                _write_run(folder, rec)
     _demo_verdicts(console, before, chk, fsum_b, fsum_a)
     for name in ("report.html", "report.xlsx"):
         if (out / name).exists():
@@ -635,6 +664,7 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    args.argv = list(sys.argv[1:] if argv is None else argv)  # for the run record
     if not getattr(args, "func", None):
         parser.print_help()
         return EXIT_OK

@@ -21,7 +21,7 @@ from allocator.cli import main
 from smallnet import write_small_study
 
 CHECK = {"summary.json", "armed_load.csv", "shortfalls.csv", "exporting_feeders.csv",
-         "by_substation.csv", "low_load.csv", "report.xlsx"}
+         "by_substation.csv", "low_load.csv", "report.xlsx", "run.json"}
 
 
 def _ls(d: Path) -> set[str]:
@@ -73,7 +73,7 @@ def test_demo_folder_is_a_plan_folder_plus_frequency_and_inputs(runs):
     assert _ls(demo / "input") == {"small.xlsx"}
     # the frequency folders hold what the frequency command writes (no figures: xlsx only)
     assert _ls(demo / "frequency") == _ls(runs / "freq") == {"frequency.csv",
-                                                              "frequency.json"}
+                                                              "frequency.json", "run.json"}
     assert _ls(demo / "current" / "frequency") == _ls(runs / "freq")
     assert _blocks(demo / "current") == _blocks(runs / "check")
     # the current allocation's frequency folder is the frequency command's own result

@@ -1,6 +1,7 @@
 """The planner's workbook, ``report.xlsx``.
 
-Sheets: ``summary`` (verdicts, plan, worst windows, fill legend, cautions), ``blocks``
+Sheets: ``summary`` (verdicts, plan facts, worst windows, the run record with the sign-off
+cells, fill legend, cautions), ``blocks``
 (settings and the statistics of summary.json, same values), ``feeders``, ``relay_changes``
 (the field work list), ``intervals`` (the year, one row per interval), ``windows`` (runs
 outside a band), ``exports`` (armed feeders that export) and ``substations``.
@@ -16,12 +17,14 @@ from pathlib import Path
 
 import numpy as np
 import openpyxl
+import pandas as pd
 from openpyxl.formatting.rule import CellIsRule
-from openpyxl.styles import Alignment, Font, PatternFill
+from openpyxl.styles import Alignment, Border, Font, PatternFill, Side
 
 from .. import __version__, vocab
 from ..check import Check, ScenarioChecks, by_substation, exporting_feeders, summary_dict
 from ..export import stacked
+from ..runrecord import SIGN_OFF
 from ..timefmt import offset_hours, split_iso
 from . import content, palette
 from .xlsxtable import Col, Table, put, put_text, save, table_sheet
@@ -326,198 +329,242 @@ def _substations_sheet(wb, check: ScenarioChecks) -> Table:
     return table_sheet(wb, "substations", cols)
 
 
+class _Rows:
+    """Writes the summary sheet top to bottom: ``self.r`` is the next row."""
+
+    def __init__(self, ws):
+        self.ws, self.r = ws, 1
+
+    def text(self, value: object, col: int = 1, font=None):
+        c = put_text(self.ws, self.r, col, value)
+        if font is not None:
+            c.font = font
+        return c
+
+    def line(self, value: object, font=None) -> None:
+        self.text(value, font=font)
+        self.r += 1
+
+    def heading(self, value: str) -> None:
+        self.r += 1
+        self.line(value, H2_FONT)
+
+    def pair(self, label: str, value: object, fmt: str | None = None, bold: bool = False,
+             unit: str = "") -> None:
+        """label | value (a number cell with its format, or text) | unit."""
+        self.text(label, font=BOLD)
+        c = put(self.ws, self.r, 2, value, fmt)
+        if bold:
+            c.font = BOLD
+        if unit:
+            self.text(unit, col=3)
+        self.r += 1
+
+    def fact(self, f: content.Fact, bold: bool = False) -> None:
+        if f.is_number:
+            self.pair(f.label, f.value, f.fmt, bold, f.unit)
+        else:
+            self.pair(f.label, f.text(), bold=bold)
+
+    def header_row(self, heads: list[str]) -> None:
+        for j, h in enumerate(heads, 1):
+            c = self.text(h, col=j, font=BOLD)
+            c.alignment = WRAP
+        self.ws.row_dimensions[self.r].height = 30
+        self.r += 1
+
+    def values(self, vals: list, fmts: list) -> None:
+        for j, (v, f) in enumerate(zip(vals, fmts), 1):
+            put(self.ws, self.r, j, v, f)
+        self.r += 1
+
+
 def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
-                   before: ScenarioChecks | None) -> None:
+                   before: ScenarioChecks | None, run: dict | None = None) -> None:
     check = cs.checks[0]
     s = check.study.settings
     ws.column_dimensions["A"].width = 34
     for col in "BCDEFGHIJKLM":
         ws.column_dimensions[col].width = 17  # a yyyy-mm-dd hh:mm date cell needs ~17
-    r = 1
-    put_text(ws, r, 1, "UFLS armed-load report").font = TITLE_FONT
-    r += 1
-    put_text(ws, r, 1, f"{s.utility} - study year {s.year} - workbook "
-                       f"{content.workbook_name(check)} - ufls-allocator {__version__}")
-    r += 1
-    put_text(ws, r, 1, "Caution: UFLS disconnects customers; protect priority sites as local "
-                       "rules require; results are indicative planning support only; verify "
-                       "relay settings before any field change. See 'Cautions' below.").font = \
-        Font(bold=True, color="8A4B00")
-    r += 2
+    w = _Rows(ws)
+    w.line("UFLS armed-load report", TITLE_FONT)
+    w.line(f"{s.utility} - study year {s.year} - workbook {content.workbook_name(check)} - "
+           f"ufls-allocator {__version__}")
+    w.line("Caution: UFLS disconnects customers; protect priority sites as local rules "
+           "require; results are indicative planning support only; verify relay settings "
+           "before any field change. See 'Cautions' below.", Font(bold=True, color="8A4B00"))
+    w.r += 1
+    _verdict_section(w, cs, previous_idx, plan_info, before)
+    _run_section(w, run)
+    if plan_info:
+        _plan_section(w, plan_info)
+    _block_section(w, cs, before)
+    _windows_section(w, cs)
+    _legend_section(w, check)
+    warns = content.all_warnings(cs)
+    if warns:
+        w.heading(f"Warnings ({len(warns)})")
+        for text in warns[:200]:
+            w.line(text)
+        if len(warns) > 200:
+            w.line(f"... and {len(warns) - 200} more")
+    ws.sheet_view.showGridLines = False
 
-    def pair(label: str, value: object, fmt: str | None = None, bold: bool = False) -> None:
-        nonlocal r
-        put_text(ws, r, 1, label).font = BOLD
-        c = put(ws, r, 2, value, fmt)
-        if bold:
-            c.font = BOLD
-        r += 1
 
-    what = ("a planned allocation" if plan_info else
-            "a proposed assignment" if previous_idx is not None else
-            "the workbook's current allocation")
+def _verdict_section(w: _Rows, cs: ScenarioChecks, previous_idx, plan_info,
+                     before: ScenarioChecks | None) -> None:
     from ..check import verdict_covers
 
-    pair("allocation checked", what)
-    pair("overall verdict", vocab.headline(cs.compliant), bold=True)
-    put_text(ws, r, 1, content.verdict_words_set(cs))
-    r += 1
-    put_text(ws, r, 1, verdict_covers(cs))
-    r += 1
+    check = cs.checks[0]
+    s = check.study.settings
+    w.pair("allocation checked", "a planned allocation" if plan_info else
+           "a proposed assignment" if previous_idx is not None else
+           "the workbook's current allocation")
+    w.pair("overall verdict", vocab.headline(cs.compliant), bold=True)
+    w.line(content.verdict_words_set(cs))
+    w.line(verdict_covers(cs))
     if before is not None:
-        pair("current allocation", vocab.headline(before.compliant))
-        put_text(ws, r, 1, "Current allocation: " + content.verdict_words_set(before))
-        r += 1
-    pair("compliance rule", check.rule)
-    pair("utility", s.utility)
-    pair("study year", s.year)
-    pair("scenarios judged", ", ".join(cs.names))
-    pair("interval length min", check.year.interval_minutes, "0")
-    pair("worst distance outside a band, pp", cs.worst_violation_pp, "0.00")
-    pair("priority sites", content.priority_summary(check).words(s.priority_policy))
-    if plan_info:
-        pt = content.plan_text(plan_info)
-        r += 1
-        put_text(ws, r, 1, "Plan").font = H2_FONT
-        r += 1
-        for k, v in pt.key:
-            pair(k, v, bold=k == "result")
-        for title, lines in (("why", pt.explanation), ("planner notes", pt.notes)):
-            if lines:
-                put_text(ws, r, 1, title).font = BOLD
-                r += 1
-                for line in lines:
-                    put_text(ws, r, 1, line)
-                    r += 1
-        if pt.details:
-            put_text(ws, r, 1, "planner details (plan.json)").font = BOLD
-            r += 1
-        for k, v in pt.details:
-            pair(k, v)
-    if previous_idx is not None:
-        n_changed = int(np.sum(np.asarray(previous_idx) != check.block_idx))
-        pair("feeders whose block changes", n_changed, "0")
+        w.pair("current allocation", vocab.headline(before.compliant))
+        w.line("Current allocation: " + content.verdict_words_set(before))
+    w.pair("compliance rule", check.rule)
+    w.pair("utility", s.utility)
+    w.pair("study year", s.year, "0")
+    w.pair("scenarios judged", ", ".join(cs.names))
+    w.pair("interval length", check.year.interval_minutes, "0", unit="min")
+    w.pair("worst distance outside a band", cs.worst_violation_pp, "0.00", unit="pp")
+    w.pair("priority sites", content.priority_summary(check).words(s.priority_policy))
+    if previous_idx is not None and not plan_info:  # a plan's facts say it themselves
+        w.pair("feeders whose block changes",
+               int(np.sum(np.asarray(previous_idx) != check.block_idx)), "0")
 
-    r += 1
-    put_text(ws, r, 1, "Verdict per block (worst over every scenario)").font = H2_FONT
-    r += 1
+
+def _plan_section(w: _Rows, plan_info: dict) -> None:
+    """The plan's facts with labels, numbers as number cells and their units beside them."""
+    pt = content.plan_text(plan_info)
+    w.heading("Plan")
+    for f in pt.key:
+        w.fact(f, bold=f.label == "result")
+    for title, lines in (("why", pt.explanation), ("planner notes", pt.notes)):
+        if lines:
+            w.line(title, BOLD)
+            for line in lines:
+                w.line(line)
+    if pt.details:
+        w.line("how the planner got there", BOLD)
+        for f in pt.details:
+            w.fact(f)
+
+
+def _block_section(w: _Rows, cs: ScenarioChecks, before: ScenarioChecks | None) -> None:
+    w.heading("Verdict per block (worst over every scenario)")
     heads = ["block", "pickup Hz", "band min %", "band max %", "lowest share %",
              "scenario of lowest", "highest share %", "scenario of highest",
              "room above min pp", "room below max pp", "status"]
     if before is not None:
         heads += ["current: lowest share %", "current: status"]
-    for j, h in enumerate(heads, 1):
-        c = put_text(ws, r, j, h)
-        c.font, c.alignment = BOLD, WRAP
-    ws.row_dimensions[r].height = 30
-    r += 1
-    first = r
+    w.header_row(heads)
+    first = w.r
     for k, v in enumerate(cs.verdicts):
         vals = [v.block, v.pickup_hz, v.min_pct, v.max_pct, v.min_share_pct,
                 v.min_share_scenario, v.max_share_pct, v.max_share_scenario,
                 v.headroom_to_min_pp, v.headroom_to_max_pp,
-                v.status
-                + (f" ({', '.join(v.failing_scenarios)})" if v.failing_scenarios else "")]
+                v.status + (f" ({', '.join(v.failing_scenarios)})" if v.failing_scenarios
+                            else "")]
         fmts = [None, "0.000", "0.0", "0.0", "0.00", None, "0.00", None, "0.00", "0.00", None]
         if before is not None:
             b = before.verdicts[k]
             vals += [b.min_share_pct, b.status]
             fmts += ["0.00", None]
-        for j, (val, f) in enumerate(zip(vals, fmts), 1):
-            put(ws, r, j, val, f)
-        r += 1
-    last = r - 1
+        w.values(vals, fmts)
+    last = w.r - 1
     for col in ("E", "G") + (("L",) if before is not None else ()):
-        _cf_band(ws, f"{col}{first}:{col}{last}", f"$C{first}", f"$D{first}")
+        _cf_band(w.ws, f"{col}{first}:{col}{last}", f"$C{first}", f"$D{first}")
 
-    r += 1
-    put_text(ws, r, 1, "Worst windows outside the band").font = H2_FONT
-    r += 1
-    w = content.windows_table(cs)
-    if w.empty:
-        put_text(ws, r, 1, "No interval lies outside any block's band in any scenario.")
-        r += 1
-    else:
-        put_text(ws, r, 1, f"{len(w)} windows in all; the 10 with the most MWh outside the band "
-                           "(all of them on the 'windows' sheet):" if len(w) > 10 else
-                 f"{vocab.count(len(w), 'window').capitalize()} in all (also on the 'windows' "
-                 "sheet):")
-        r += 1
-        heads = ["rank", "scenario", "block", "status", "start (local)", "start UTC offset h",
-                 "end (local)", "end UTC offset h", "duration h", "worst share %",
-                 "MWh outside band"]
-        for j, h in enumerate(heads, 1):
-            c = put_text(ws, r, j, h)
-            c.font, c.alignment = BOLD, WRAP
-        r += 1
-        top = w.head(10)
-        (t0, o0), (t1, o1) = split_iso(top["start_local"]), split_iso(top["end_local"])
-        for k, row in enumerate(top.itertuples()):
-            # date cells are zone-less serial numbers (ECMA-376), hence the offset columns
-            vals = [row.rank, row.scenario, row.block, row.status, t0[k], o0[k], t1[k], o1[k],
-                    row.duration_h, row.worst_share_pct, row.energy_mwh]
-            fmts = ["0", None, None, None, F_DATE, F_OFFSET, F_DATE, F_OFFSET, "0.00", "0.00",
-                    "0.0"]
-            for j, (v, f) in enumerate(zip(vals, fmts), 1):
-                put(ws, r, j, v, f)
-            r += 1
 
-    r += 1
-    put_text(ws, r, 1, "What the fills mean").font = H2_FONT
-    r += 1
-    c = put_text(ws, r, 1, "below the band's minimum")
-    c.fill = FILL_BELOW
-    put_text(ws, r, 2, "the block would shed too little netted demand in that interval "
-                       "(share % columns of 'intervals', share columns of 'blocks')")
-    r += 1
-    c = put_text(ws, r, 1, "above the band's maximum")
-    c.fill = FILL_ABOVE
-    put_text(ws, r, 2, "the block would shed too much netted demand in that interval")
-    r += 1
-    put_text(ws, r, 1, "share %")
-    put_text(ws, r, 2, "armed MW of the block / netted demand MW x 100, per interval; an "
-                       "exporting feeder on a standard relay counts negative")
-    r += 2
-    put_text(ws, r, 1, "Sheets").font = H2_FONT
-    r += 1
+def _windows_section(w: _Rows, cs: ScenarioChecks) -> None:
+    w.heading("Worst windows outside the band")
+    win = content.windows_table(cs)
+    if win.empty:
+        w.line("No interval lies outside any block's band in any scenario.")
+        return
+    w.line(f"{len(win)} windows in all; the 10 with the most MWh outside the band (all of "
+           "them on the 'windows' sheet):" if len(win) > 10 else
+           f"{vocab.count(len(win), 'window').capitalize()} in all (also on the 'windows' "
+           "sheet):")
+    w.header_row(["rank", "scenario", "block", "status", "start (local)", "start UTC offset h",
+                  "end (local)", "end UTC offset h", "duration h", "worst share %",
+                  "MWh outside band"])
+    top = win.head(10)
+    (t0, o0), (t1, o1) = split_iso(top["start_local"]), split_iso(top["end_local"])
+    for k, row in enumerate(top.itertuples()):
+        # date cells are zone-less serial numbers (ECMA-376), hence the offset columns
+        w.values([row.rank, row.scenario, row.block, row.status, t0[k], o0[k], t1[k], o1[k],
+                  row.duration_h, row.worst_share_pct, row.energy_mwh],
+                 ["0", None, None, None, F_DATE, F_OFFSET, F_DATE, F_OFFSET, "0.00", "0.00",
+                  "0.0"])
+
+
+SIGN_BORDER = Border(bottom=Side(style="thin", color="404040"))
+
+
+def _run_section(w: _Rows, run: dict | None) -> None:
+    """The run record (run.json): tool, version, run time, command line, every input file
+    with its SHA-256, and the cells to fill in when the report is prepared and checked."""
+    if not run:
+        return
+    w.heading("Run record")
+    w.pair("tool and version", f"{run.get('tool', 'ufls-allocator')} {run.get('version', '')}")
+    wall, off = split_iso([run.get("run_time", "")])
+    w.pair("run time (local)", run.get("run_time", "") if pd.isna(wall[0]) else wall[0],
+           F_DATE)
+    w.pair("run time UTC offset", off[0], F_OFFSET, unit="h")
+    w.pair("command line", run.get("command_line") or "(called from Python)")
+    w.header_row(["input", "file", "SHA-256"])
+    for f in run.get("inputs", []):
+        w.values([f["role"], f["name"], f["sha256"]], [None, None, None])
+    w.r += 1
+    w.header_row(["sign-off", "name", "date", "signature"])
+    for who in SIGN_OFF:
+        w.text(who, font=BOLD)
+        for j in (2, 3, 4):  # blank cells to fill in, underlined
+            w.ws.cell(row=w.r, column=j).border = SIGN_BORDER
+        w.ws.row_dimensions[w.r].height = 24
+        w.r += 1
+
+
+def _legend_section(w: _Rows, check: Check) -> None:
+    w.heading("What the fills mean")
+    w.text("below the band's minimum").fill = FILL_BELOW
+    w.text("the block would shed too little netted demand in that interval (share % columns "
+           "of 'intervals', share columns of 'blocks')", col=2)
+    w.r += 1
+    w.text("above the band's maximum").fill = FILL_ABOVE
+    w.text("the block would shed too much netted demand in that interval", col=2)
+    w.r += 1
+    w.text("share %")
+    w.text("armed MW of the block / netted demand MW x 100, per interval; an exporting "
+           "feeder on a standard relay counts negative", col=2)
+    w.r += 1
+    w.heading("Sheets")
     for name, text in SHEETS.items():
-        put_text(ws, r, 1, name).font = BOLD
-        put_text(ws, r, 2, text)
-        r += 1
-
-    r += 1
-    put_text(ws, r, 1, "Assumptions").font = H2_FONT
-    r += 1
+        w.text(name, font=BOLD)
+        w.text(text, col=2)
+        w.r += 1
+    w.heading("Assumptions")
     for topic, text in content.assumptions(check):
-        put_text(ws, r, 1, topic).font = BOLD
-        put_text(ws, r, 2, text)
-        r += 1
-
-    r += 1
-    put_text(ws, r, 1, "Cautions").font = H2_FONT
-    r += 1
+        w.text(topic, font=BOLD)
+        w.text(text, col=2)
+        w.r += 1
+    w.heading("Cautions")
     for text in content.CAUTIONS:
-        put_text(ws, r, 1, "! " + text)
-        r += 1
-
-    warns = content.all_warnings(cs)
-    if warns:
-        r += 1
-        put_text(ws, r, 1, f"Warnings ({len(warns)})").font = H2_FONT
-        r += 1
-        for text in warns[:200]:
-            put_text(ws, r, 1, text)
-            r += 1
-        if len(warns) > 200:
-            put_text(ws, r, 1, f"... and {len(warns) - 200} more")
-    ws.sheet_view.showGridLines = False
+        w.line("! " + text)
 
 
 def write_workbook(check: Check | ScenarioChecks, path: Path,
                    previous_idx: np.ndarray | None = None, plan_info: dict | None = None,
                    before: Check | ScenarioChecks | None = None,
-                   fc: content.FeederContrib | None = None) -> Path:
-    """Write ``report.xlsx`` to ``path`` and return it."""
+                   fc: content.FeederContrib | None = None, run: dict | None = None) -> Path:
+    """Write ``report.xlsx`` to ``path`` and return it (``run``: the run record)."""
     from ..export import as_set
 
     cs = as_set(check)
@@ -529,7 +576,7 @@ def write_workbook(check: Check | ScenarioChecks, path: Path,
     wb.properties.creator = f"ufls-allocator {__version__}"
     ws = wb.active
     ws.title = "summary"
-    _summary_sheet(ws, cs, previous_idx, plan_info, before)
+    _summary_sheet(ws, cs, previous_idx, plan_info, before, run)
     tables = [_scenarios_sheet(wb, cs), _blocks_sheet(wb, cs, before),
               _feeders_sheet(wb, first, previous_idx, fc),
               _relay_sheet(wb, first, previous_idx), _intervals_sheet(wb, cs),

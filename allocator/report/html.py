@@ -17,6 +17,7 @@ import numpy as np
 from .. import __version__, vocab
 from ..check import Check, ScenarioChecks, annual_statement, exporting_feeders
 from ..export import as_set, stacked
+from ..runrecord import SIGN_OFF
 from . import content
 
 #: windows listed in the page (all of them are in the workbook)
@@ -63,12 +64,15 @@ ul.cautions li { margin-bottom: 5px; }
 details { margin: 6px 0 10px; }
 details summary { cursor: pointer; color: var(--muted); }
 .small { font-size: .9em; color: var(--muted); }
+.run-record { border: 1px solid var(--line); padding: 8px 12px; margin: 10px 0; }
+td.hash { font-family: ui-monospace, monospace; font-size: .85em; word-break: break-all; }
+table.sign td.blank { min-width: 14em; height: 2.2em; }
 pre.expl { white-space: pre-wrap; background: #f6f7f8; border: 1px solid var(--line);
            padding: 8px 10px; font-size: .9em; }
 @media print {
   body { max-width: none; padding: 0; font-size: 11pt; }
   h2 { break-after: avoid; }
-  figure, table, .verdict { break-inside: avoid; }
+  figure, table, .verdict, .run-record { break-inside: avoid; }
   div.wide { overflow: visible; }
   table { font-size: 8pt; }
   .caution-strip, .verdict, th, td.below, td.above { -webkit-print-color-adjust: exact;
@@ -298,14 +302,32 @@ def _plan(plan_info: dict | None) -> str:
         out.append("<p>Why the plan looks as it does:</p><ul>"
                    + "".join(f"<li>{esc(x)}</li>" for x in pt.explanation) + "</ul>")
     if pt.key:
-        out.append(_kv(pt.key))
+        out.append(_kv([(f.label, f.text()) for f in pt.key]))
     if pt.notes:
-        out.append("<p>Solver notes:</p><ul>"
+        out.append("<p>Planner notes:</p><ul>"
                    + "".join(f"<li>{esc(x)}</li>" for x in pt.notes) + "</ul>")
     if pt.details:
-        out.append("<details><summary>Solver details (plan.json)</summary>"
-                   + _kv(pt.details) + "</details>")
+        out.append("<details><summary>How the planner got there</summary>"
+                   + _kv([(f.label, f.text()) for f in pt.details]) + "</details>")
     return "".join(out)
+
+
+def _run_record(run: dict | None) -> str:
+    """The run record (run.json) and a printable sign-off box with blank lines."""
+    if not run:
+        return ""
+    rows = "".join(f"<tr><td>{esc(f['role'])}</td><td>{esc(f['name'])}</td>"
+                   f'<td class="hash">{esc(f["sha256"])}</td></tr>'
+                   for f in run.get("inputs", []))
+    sign = "".join(f'<tr><th>{esc(who)}</th><td class="blank"></td><td class="blank"></td>'
+                   '<td class="blank"></td></tr>' for who in SIGN_OFF)
+    return ('<div class="run-record">'
+            + _kv([("tool and version", f"{run.get('tool', '')} {run.get('version', '')}"),
+                   ("run time (local, ISO 8601)", run.get("run_time", "")),
+                   ("command line", run.get("command_line") or "(called from Python)")])
+            + _table(["input", "file", "SHA-256"], [rows])
+            + '<table class="sign"><thead><tr><th>sign-off</th><th>name</th><th>date</th>'
+            f"<th>signature</th></tr></thead><tbody>{sign}</tbody></table></div>")
 
 
 def _figures(figs) -> str:
@@ -365,7 +387,7 @@ def _frequency(freq: dict | None) -> str:
 
 def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray | None = None,
                 plan_info: dict | None = None, before: Check | ScenarioChecks | None = None,
-                frequency: dict | None = None) -> str:
+                frequency: dict | None = None, run: dict | None = None) -> str:
     cs = as_set(checks)
     before = as_set(before) if before is not None else None
     check = cs.checks[0]
@@ -435,6 +457,9 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
         parts.append(f"<h2>Warnings ({len(warns)})</h2><ul>"
                      + "".join(f"<li>{esc(w)}</li>" for w in warns[:200]) + "</ul>"
                      + (f"<p>... and {len(warns) - 200} more.</p>" if len(warns) > 200 else ""))
+    if run:
+        parts.append("<h2>Run record</h2>")
+        parts.append(_run_record(run))
     parts.append("<h2>Cautions</h2><ul class=\"cautions\">"
                  + "".join(f"<li>{esc(c)}</li>" for c in content.CAUTIONS) + "</ul>")
     parts.append("</body></html>\n")
@@ -444,8 +469,8 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
 def write_html(check: Check | ScenarioChecks, path: Path, figs,
                previous_idx: np.ndarray | None = None, plan_info: dict | None = None,
                before: Check | ScenarioChecks | None = None,
-               frequency: dict | None = None) -> Path:
+               frequency: dict | None = None, run: dict | None = None) -> Path:
     path = Path(path)
-    path.write_text(render_html(check, figs, previous_idx, plan_info, before, frequency),
-                    encoding="utf-8")
+    path.write_text(render_html(check, figs, previous_idx, plan_info, before, frequency,
+                                run), encoding="utf-8")
     return path
