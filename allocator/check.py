@@ -25,7 +25,7 @@ import pandas as pd
 
 from . import vocab
 from .domain import RELAY_DIRECTION_BLOCKED, RELAY_STANDARD, UNARMED, Block, Study
-from .timefmt import iso_local
+from .timefmt import iso_local, iso_utc
 from .year import Year
 
 
@@ -179,7 +179,7 @@ class Check:
     def armed_load_table(self) -> pd.DataFrame:
         y = self.year
         cols: dict[str, object] = {
-            "timestamp_utc": y.timestamps_utc.strftime("%Y-%m-%dT%H:%M:%SZ"),
+            "timestamp_utc": iso_utc(y.timestamps_utc),
             "local_time": iso_local(y.local_times),
             "demand_mw": y.demand_mw,
         }

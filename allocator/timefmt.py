@@ -46,6 +46,14 @@ def iso_local(times: pd.DatetimeIndex | pd.Timestamp, timezone: str | None = Non
     return np.char.add(local, _offset_text(idx)).astype(object)
 
 
+def iso_utc(times: pd.DatetimeIndex) -> np.ndarray:
+    """ISO 8601 UTC to the second with ``Z``, e.g. ``2024-12-31T23:00:00Z`` (object array)."""
+    idx = pd.DatetimeIndex(times)
+    if idx.tz is None:
+        raise ValueError("iso_utc needs zone-aware times")
+    return np.asarray(idx.tz_convert("UTC").strftime("%Y-%m-%dT%H:%M:%SZ"), dtype=object)
+
+
 def offset_hours(times: pd.DatetimeIndex) -> np.ndarray:
     """UTC offset in hours per instant of a zone-aware index (for the xlsx offset column)."""
     idx = pd.DatetimeIndex(times)
@@ -74,4 +82,4 @@ def iso_now() -> str:
     return iso_local(pd.Timestamp(datetime.datetime.now().astimezone()))
 
 
-__all__ = ["iso_local", "offset_hours", "split_iso", "iso_now"]
+__all__ = ["iso_local", "iso_utc", "offset_hours", "split_iso", "iso_now"]
