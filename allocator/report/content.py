@@ -415,8 +415,8 @@ def plan_facts(p: dict) -> list[Fact]:
 
 def plan_details(p: dict) -> list[Fact]:
     """How the planner got there, labelled: bounds, rounds, model sizes, the heuristic
-    start, the result without the cap on relay changes (max_changes), each level's method and time, the seed
-    and how the levels combine.  (plan.json keys not shown here are shown elsewhere in the
+    start, the result without the cap on relay changes (max_changes), each level's method
+    and time, the seed and how the levels combine.  (plan.json keys not shown here are shown elsewhere in the
     report or are the same facts in another form.)"""
     out: list[Fact] = []
     if p.get("lower_bound_worst_violation_pct_of_target") is not None:

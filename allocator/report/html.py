@@ -390,13 +390,23 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
                 frequency: dict | None = None, run: dict | None = None) -> str:
     cs = as_set(checks)
     before = as_set(before) if before is not None else None
-    check = cs.checks[0]
-    s = check.study.settings
     what = ("a planned allocation" if plan_info else
             "a proposed assignment" if previous_idx is not None else
             "the workbook's current allocation")
+    parts = _page_head(cs, what) + [
+        "<h2>Verdict</h2>",
+        _verdict_box(cs, "Planned allocation (after)" if before is not None
+                     else "Allocation checked"),
+    ]
+    return _render_rest(parts, cs, figs, previous_idx, plan_info, before, frequency, run)
+
+
+def _page_head(cs: ScenarioChecks, what: str) -> list[str]:
+    """The page's head, title, one-line description and caution strip."""
+    check = cs.checks[0]
+    s = check.study.settings
     title = f"UFLS armed-load report - {s.utility}, study year {s.year}"
-    parts = [
+    return [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
@@ -414,11 +424,13 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
         "local rules require. These results are indicative planning support; the system "
         "operator's requirements, local codes and licensed engineering practice govern. "
         "Verify relay settings before any change in the field. See the cautions at the end."
-        "</div>",
-        "<h2>Verdict</h2>",
-        _verdict_box(cs, "Planned allocation (after)" if before is not None
-                     else "Allocation checked"),
-    ]
+        "</div>"]
+
+
+def _render_rest(parts, cs, figs, previous_idx, plan_info, before, frequency, run) -> str:
+    """Everything after the verdict box, in page order; returns the page."""
+    check = cs.checks[0]
+    s = check.study.settings
     if before is not None:
         parts.append(_verdict_box(before, "Current allocation (before)"))
         parts.append(f"<p>Worst distance outside a band over every scenario: "
