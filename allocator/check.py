@@ -23,8 +23,9 @@ from functools import cached_property
 import numpy as np
 import pandas as pd
 
+from . import vocab
 from .domain import RELAY_DIRECTION_BLOCKED, RELAY_STANDARD, UNARMED, Block, Study
-from .timefmt import iso_local
+from .timefmt import iso_local, iso_utc
 from .year import Year
 
 
@@ -110,6 +111,20 @@ class BlockStats:
     headroom_to_min_pp: float = float("nan")
     headroom_to_max_pp: float = float("nan")
     max_share_local_time: str = ""
+    p99_share_pct: float = float("nan")
+    #: the two statistics the compliance rule holds against the band's minimum and maximum
+    #: (lowest/highest share for every_interval, the P-th/(100-P)-th percentile for
+    #: percentile:P, the mean twice for mean)
+    rule_low_share_pct: float = float("nan")
+    rule_high_share_pct: float = float("nan")
+    #: the rule finds the block below its band's minimum / above its maximum
+    below_band: bool = False
+    above_band: bool = False
+
+    @property
+    def status(self) -> str:
+        """in band / below band / above band / below and above band (allocator.vocab)."""
+        return vocab.band_status(self.below_band, self.above_band, self.compliant)
 
 
 @dataclass(frozen=True)
@@ -164,7 +179,7 @@ class Check:
     def armed_load_table(self) -> pd.DataFrame:
         y = self.year
         cols: dict[str, object] = {
-            "timestamp_utc": y.timestamps_utc.strftime("%Y-%m-%dT%H:%M:%SZ"),
+            "timestamp_utc": iso_utc(y.timestamps_utc),
             "local_time": iso_local(y.local_times),
             "demand_mw": y.demand_mw,
         }
@@ -188,16 +203,19 @@ def _percentile(x: np.ndarray, q: float) -> float:
     return float(np.percentile(x, q)) if x.size else float("nan")
 
 
-def _compliant(rule: str, p: float | None, s: np.ndarray, b: Block) -> bool:
+def rule_statistics(rule: str, p: float | None, s: np.ndarray) -> tuple[float, float]:
+    """The (low, high) statistics of the shares ``s`` that ``rule`` holds against the band:
+    ``every_interval`` the lowest and highest share, ``percentile`` the P-th and (100−P)-th
+    percentile, ``mean`` the mean twice.  NaN when ``s`` is empty."""
     if s.size == 0:
-        return False
+        return float("nan"), float("nan")
     if rule == "every_interval":
-        return bool(np.all((s >= b.min_pct) & (s <= b.max_pct)))
+        return float(s.min()), float(s.max())
     if rule == "percentile":
-        return bool(np.percentile(s, p) >= b.min_pct and np.percentile(s, 100 - p) <= b.max_pct)
+        return float(np.percentile(s, p)), float(np.percentile(s, 100 - p))
     if rule == "mean":
         m = float(s.mean())
-        return b.min_pct <= m <= b.max_pct
+        return m, m
     raise ValueError(f"unknown compliance rule {rule}")
 
 
@@ -225,6 +243,8 @@ def run_check(study: Study, year: Year, block_idx: np.ndarray,
         viol = np.maximum(np.maximum(b.min_pct - s, s - b.max_pct), 0.0)
         i_min = int(np.flatnonzero(valid)[np.argmin(s)]) if s.size else 0
         i_max = int(np.flatnonzero(valid)[np.argmax(s)]) if s.size else 0
+        low, high = rule_statistics(s_rule.compliance_rule, s_rule.compliance_percentile, s)
+        is_below, is_above = bool(low < b.min_pct), bool(high > b.max_pct)  # False for NaN
         stats.append(BlockStats(
             block=b.name, order=b.order, pickup_hz=b.pickup_hz, delay_s=b.delay_s,
             rocof_hz_per_s=b.rocof_hz_per_s, target_pct=b.target_pct, min_pct=b.min_pct,
@@ -238,10 +258,12 @@ def run_check(study: Study, year: Year, block_idx: np.ndarray,
             shortfall_mwh=float(short.sum() * h), excess_mwh=float(excess.sum() * h),
             worst_violation_pp=float(viol.max()) if s.size else float("nan"),
             min_share_local_time=iso_local(local[i_min]) if s.size else "",
-            compliant=_compliant(s_rule.compliance_rule, s_rule.compliance_percentile, s, b),
+            compliant=bool(s.size) and not is_below and not is_above,
             headroom_to_min_pp=float((s - b.min_pct).min()) if s.size else float("nan"),
             headroom_to_max_pp=float((b.max_pct - s).min()) if s.size else float("nan"),
             max_share_local_time=iso_local(local[i_max]) if s.size else "",
+            p99_share_pct=_percentile(s, 99), rule_low_share_pct=low,
+            rule_high_share_pct=high, below_band=is_below, above_band=is_above,
         ))
     return Check(study, year, block_idx, armed, share, cum, valid, tuple(stats),
                  all(st.compliant for st in stats), s_rule.rule_text, tuple(warnings))
@@ -250,7 +272,9 @@ def run_check(study: Study, year: Year, block_idx: np.ndarray,
 # --------------------------------------------------------------------------------------------
 # windows and views
 # --------------------------------------------------------------------------------------------
-WINDOW_COLUMNS = ["rank", "block", "kind", "start_local", "end_local", "duration_h",
+#: ``kind`` is the machine word (below_min / above_max), ``status`` the word people read
+#: (below band / above band, :mod:`allocator.vocab`)
+WINDOW_COLUMNS = ["rank", "block", "kind", "status", "start_local", "end_local", "duration_h",
                   "intervals", "worst_share_pct", "band_pct", "energy_mwh"]
 
 
@@ -281,7 +305,7 @@ def shortfall_windows(check: Check) -> pd.DataFrame:
                      else np.fmax.reduceat(s_f, st))
             energy = np.add.reduceat(np.where(mask, gap, 0.0), st) * h
             frames.append(pd.DataFrame({
-                "block": b.name, "kind": kind,
+                "block": b.name, "kind": kind, "status": vocab.window_status(kind),
                 "start_local": iso_local(local[st]),
                 "end_local": iso_local(local[en - 1] + step),
                 "duration_h": (en - st) * h, "intervals": en - st,
@@ -438,8 +462,10 @@ def summary_dict(check: Check) -> dict:
             "min_share_pct", "p1_share_pct", "p5_share_pct", "mean_share_pct",
             "p95_share_pct", "max_share_pct", "intervals_below_min", "intervals_above_max",
             "shortfall_mwh", "excess_mwh", "worst_violation_pp", "min_share_local_time",
-            "compliant")
-    blocks = [{k: v for k, v in asdict(s).items() if k in keep} for s in check.stats]
+            "compliant", "p99_share_pct", "rule_low_share_pct", "rule_high_share_pct",
+            "below_band", "above_band")
+    blocks = [{**{k: v for k, v in asdict(s).items() if k in keep}, "status": s.status}
+              for s in check.stats]
     return {
         "utility": check.study.settings.utility,
         "year": check.study.settings.year,
@@ -491,6 +517,17 @@ class BlockVerdict:
     shortfall_mwh: float
     excess_mwh: float
     worst_violation_pp: float
+    #: the rule's statistics (see BlockStats): the lowest low and the highest high over
+    #: every scenario
+    rule_low_share_pct: float = float("nan")
+    rule_high_share_pct: float = float("nan")
+    below_band: bool = False
+    above_band: bool = False
+
+    @property
+    def status(self) -> str:
+        """in band / below band / above band / below and above band, over every scenario."""
+        return vocab.band_status(self.below_band, self.above_band, self.compliant)
 
 
 def _block_verdict(j: int, b: Block, checks: tuple[Check, ...]) -> BlockVerdict:
@@ -519,6 +556,9 @@ def _block_verdict(j: int, b: Block, checks: tuple[Check, ...]) -> BlockVerdict:
         shortfall_mwh=max(s.shortfall_mwh for s in st),
         excess_mwh=max(s.excess_mwh for s in st),
         worst_violation_pp=float(np.nanmax([s.worst_violation_pp for s in st])),
+        rule_low_share_pct=float(np.nanmin([s.rule_low_share_pct for s in st])),
+        rule_high_share_pct=float(np.nanmax([s.rule_high_share_pct for s in st])),
+        below_band=any(s.below_band for s in st), above_band=any(s.above_band for s in st),
     )
 
 
@@ -624,6 +664,18 @@ def verdict_covers(checks: ScenarioChecks) -> str:
             + ".")
 
 
+def all_warnings(checks: "Check | ScenarioChecks") -> list[str]:
+    """Every warning a person should see with a check, once each, in this order: the
+    workbook's validation warnings, the assignment's, then each scenario year's notes and
+    data-quality flags (the list report.xlsx, report.html and summary.json carry)."""
+    cs = checks.checks if isinstance(checks, ScenarioChecks) else (checks,)
+    out = list(checks.study.warnings) + list(checks.warnings)
+    for c in cs:
+        out += list(c.year.notes)
+        out += [f"feeder {fl.feeder_id}: {fl.flag} ({fl.detail})" for fl in c.year.flags]
+    return list(dict.fromkeys(out))
+
+
 def summary_set_dict(checks: ScenarioChecks) -> dict:
     """The ``summary.json`` content for an allocation checked on several scenarios:
     the overall verdict (worst over scenarios), per block the worst case and the scenario it
@@ -635,7 +687,9 @@ def summary_set_dict(checks: ScenarioChecks) -> dict:
         d.pop("utility", None)
         d.pop("warnings", None)
         d = {"scenario": c.scenario, **c.year.scenario_info, "calendar_year":
-             c.year.calendar_year, **d}
+             c.year.calendar_year, **d, "notes": list(c.year.notes),
+             "flags": [{"feeder_id": fl.feeder_id, "flag": fl.flag, "detail": fl.detail}
+                       for fl in c.year.flags]}
         per.append(d)
     return {
         "utility": checks.study.settings.utility,
@@ -646,10 +700,13 @@ def summary_set_dict(checks: ScenarioChecks) -> dict:
         "failing_scenarios": list(checks.failing_scenarios),
         "verdict_covers": verdict_covers(checks),
         "worst_violation_pp": checks.worst_violation_pp,
-        "blocks": [asdict(v) for v in checks.verdicts],
+        "blocks": [{**asdict(v), "status": v.status} for v in checks.verdicts],
         "intervals": int(first.year.n_intervals),
         "interval_minutes": first.year.interval_minutes,
         "customers_per_block": customers_per_block(first),
         "scenarios": per,
-        "warnings": list(checks.warnings),
+        # every warning report.xlsx lists, then the same split by origin
+        "warnings": all_warnings(checks),
+        "study_warnings": list(checks.study.warnings),
+        "assignment_warnings": list(checks.warnings),
     }

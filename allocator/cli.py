@@ -15,11 +15,14 @@ import time
 import traceback
 from pathlib import Path
 
-from . import __version__
+from . import __version__, vocab
 from .errors import InputError
 from .safeio import OutputClashError
 
 EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
+#: subfolders of the one output layout (outputs/README.md): a plan's folder holds the
+#: current allocation's check under CURRENT, the demo's frequency files go under FREQUENCY
+CURRENT, FREQUENCY = "current", "frequency"
 
 
 # --------------------------------------------------------------------------------------------
@@ -32,7 +35,7 @@ def _load(workbook: str, metered: str | None, console, quiet: bool,
     from .scenarios import build_years
     from .workbook import read_study
 
-    with console.status("reading workbook", spinner="dots") if not quiet else _null():
+    with _status(console, "reading workbook", quiet):
         study = read_study(workbook)
     met = None
     if metered:
@@ -40,11 +43,11 @@ def _load(workbook: str, metered: str | None, console, quiet: bool,
         from .year import study_intervals
 
         s = study.settings
-        with console.status("reading metered data") if not quiet else _null():
+        with _status(console, "reading metered data", quiet):
             met = read_metered(metered, study,
                                study_intervals(s.year, s.timezone, s.interval_minutes))
     names = [n.strip() for n in scenarios.split(",") if n.strip()] if scenarios else None
-    with console.status("building the scenarios' years of net load") if not quiet else _null():
+    with _status(console, "building the scenarios' years of net load", quiet):
         years = build_years(study, met, names)
     return study, years
 
@@ -62,6 +65,14 @@ class _null:
 
     def __exit__(self, *a):
         return False
+
+
+def _status(console, text: str, quiet: bool):
+    """A spinner while ``text`` runs, on a terminal only: piped output (a file, a log, a
+    pipe) gets no animation and no control characters."""
+    if quiet or not console.is_terminal:
+        return _null()
+    return console.status(text)
 
 
 def _default_out(workbook: str, leaf: str) -> Path:
@@ -112,6 +123,7 @@ def cmd_check(args, console) -> int:
 
     out, study, years, chk, warns = _checked_allocation(args, console, "check")
     order = None
+    rec = _record(args, study, years)
     with atomic_dir(out) as tmp:
         write_check_files(chk, tmp)
         if args.assignment and (chk.block_idx != study.current_assignment).any():
@@ -119,7 +131,8 @@ def cmd_check(args, console) -> int:
 
             order = write_field_files(chk, study.current_assignment, tmp)
         _reports(args, chk, tmp,
-                 previous_idx=study.current_assignment if args.assignment else None)
+                 previous_idx=study.current_assignment if args.assignment else None, run=rec)
+        _write_run(tmp, rec)
     verdict_table(console, chk)
     worst_windows(console, chk)
     statement_table(console, chk)
@@ -132,12 +145,31 @@ def cmd_check(args, console) -> int:
     return EXIT_OK
 
 
-def _reports(args, chk, out: Path, previous_idx=None, plan_info=None, before=None) -> None:
+def _reports(args, chk, out: Path, previous_idx=None, plan_info=None, before=None,
+             run=None) -> None:
     """Report outputs (report.xlsx, figures/, report.html) - see allocator.report."""
     from .report import parse_formats, write_reports
 
     write_reports(chk, out, previous_idx=previous_idx, plan_info=plan_info, before=before,
-                  formats=parse_formats(getattr(args, "format", None)))
+                  formats=parse_formats(getattr(args, "format", None)), run=run)
+
+
+def _record(args, study, years) -> dict:
+    """The run record of this command (allocator.runrecord): version, time, command line,
+    every input file with its SHA-256."""
+    from .runrecord import run_record
+
+    return run_record(study, years, getattr(args, "argv", None),
+                      metered=getattr(args, "metered", None),
+                      assignment=getattr(args, "assignment", None))
+
+
+def _write_run(folder: Path, rec: dict) -> None:
+    """run.json beside the folder's summary.json (or frequency.json); written last."""
+    from .safeio import write_json
+
+    folder.mkdir(parents=True, exist_ok=True)
+    write_json(rec, folder / "run.json")
 
 
 def plan_json(outcome, chk, args_info: dict) -> dict:
@@ -184,8 +216,8 @@ def plan_json(outcome, chk, args_info: dict) -> dict:
 
 
 def _plan_into(args, console, study, years, out_tmp: Path, quiet: bool):
-    """Plan, write plan.csv / plan.json, check the plan on every scenario into
-    out_tmp/check/."""
+    """Plan, check the plan on every scenario and write plan.csv / plan.json into
+    ``out_tmp``.  Returns (outcome, the plan's ScenarioChecks, the plan.json dict)."""
     from rich.progress import Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
 
     from .assignment import assignment_rows
@@ -193,25 +225,24 @@ def _plan_into(args, console, study, years, out_tmp: Path, quiet: bool):
     from .plan import plan_allocation
     import pandas as pd
     from .safeio import write_csv, write_json
-    from .export import write_check_files
 
     tl = args.time_limit if getattr(args, "time_limit", None) else study.settings.solver_time_limit_s
     mc = args.max_changes if getattr(args, "max_changes", None) is not None \
         else study.settings.max_changes
+    live = not quiet and console.is_terminal  # no spinner in piped output
     with Progress(SpinnerColumn(), TextColumn("{task.description}"), TimeElapsedColumn(),
-                  console=console, disable=quiet, transient=False) as prog:
+                  console=console, disable=not live, transient=True) as prog:
         task = prog.add_task("planning: heuristic start", total=None)
 
         def cb(level, round, intervals, worst, status):
-            w = "…" if worst != worst else f"{100 * worst:.2f} % of target"
-            prog.update(task, description=f"planning: {level}, round {round}, "
-                        f"{intervals} intervals held, worst violation {w} [{status}]")
+            w = "" if worst != worst else f", worst {100 * worst:.2f} % of target"
+            prog.update(task, description=f"planning: {level} round {round}, "
+                        f"{intervals} intervals{w}")
         outcome = plan_allocation(study, years, solver=getattr(args, "solver", "highs"),
                                   time_limit_s=tl, max_changes=mc,
                                   seed=getattr(args, "seed", 0), progress=cb,
                                   objective=getattr(args, "objective", None),
                                   margin_pp=getattr(args, "margin", None))
-        prog.update(task, description=f"planning done: {outcome.status}")
     chk = run_checks(study, years, outcome.block_idx)
     rows = assignment_rows(study, outcome.block_idx, previous=study.current_assignment)
     write_csv(pd.DataFrame(rows, columns=["feeder_id", "block", "previous_block", "changed"]),
@@ -219,32 +250,34 @@ def _plan_into(args, console, study, years, out_tmp: Path, quiet: bool):
     info = plan_json(outcome, chk, {"seed": getattr(args, "seed", 0), "time_limit_s": tl,
                                     "max_changes": mc})
     write_json(info, out_tmp / "plan.json")
-    write_check_files(chk, out_tmp / "check")
     return outcome, chk, info
 
 
 def _print_plan(console, outcome, chk, info) -> None:
-    from .console import verdict_table, worst_windows
+    """The planned allocation's verdict table and worst windows, then the plan's facts with
+    labels and units (the same facts the reports show), why it looks as it does and the
+    planner's notes."""
+    from rich.markup import escape
+
+    from .console import print_pairs, verdict_table, worst_windows
+    from .report.content import plan_text
 
     verdict_table(console, chk, "Planned allocation")
     worst_windows(console, chk)
+    pt = plan_text(info)
     colour = "green" if outcome.status == "in_band" else "red"
-    words = {"in_band": "every block in band in every interval of every scenario",
-             "out_of_band": "not every block can be held in band"}
-    console.print(f"Plan: [{colour}]{words.get(outcome.status, outcome.status)}[/{colour}]; "
-                  f"{outcome.relays_changed} relay(s) change setting "
-                  f"({outcome.feeders_changed} feeder(s)); worst violation "
-                  f"{info['worst_violation_pp']:.2f} pp; {outcome.seconds:.1f} s "
-                  f"({outcome.rounds} rounds, {outcome.solver_version}).")
-    for lv in outcome.levels:
-        console.print(f"  {lv['level']}: {lv['claim']}")
-    for line in outcome.explanation:
-        console.print(f"  [bold]why:[/bold] {line}")
-    for line in outcome.events:
-        console.print(f"  [dim]note:[/dim] {line}")
+    print_pairs(console, "Plan", [(f.label, f"[{colour}]{escape(f.text())}[/{colour}]"
+                                   if f.label == "result" else escape(f.text()))
+                                  for f in pt.key])
+    for line in pt.explanation:
+        console.print(f"  [bold]why:[/bold] {escape(line)}")
+    for line in pt.notes:
+        console.print(f"  [dim]note:[/dim] {escape(line)}")
 
 
 def cmd_plan(args, console) -> int:
+    """plan.csv, plan.json and the planned allocation's check files and reports at the top
+    of the folder, the current allocation's under current/ (the layout of outputs/README)."""
     from .safeio import atomic_dir, check_out_dir
 
     out = Path(args.out) if args.out else _default_out(args.workbook, "plan")
@@ -252,17 +285,24 @@ def cmd_plan(args, console) -> int:
     study, years = _load(args.workbook, args.metered, console, args.quiet, args.scenarios)
     from .assignment import current_assignment
     from .check import run_checks
+    from .export import write_check_files
 
     cur, cur_warns = current_assignment(study)
     before = run_checks(study, years, cur, cur_warns)
     from .export import write_field_files
     from .fieldconsole import visit_order_table
 
+    rec = _record(args, study, years)
     with atomic_dir(out) as tmp:
         outcome, chk, info = _plan_into(args, console, study, years, tmp, args.quiet)
+        write_check_files(chk, tmp)
         order = write_field_files(chk, study.current_assignment, tmp)
         _reports(args, chk, tmp, previous_idx=study.current_assignment,
-                 plan_info=info, before=before)
+                 plan_info=info, before=before, run=rec)
+        write_check_files(before, tmp / CURRENT)
+        _reports(args, before, tmp / CURRENT, run=rec)
+        _write_run(tmp / CURRENT, rec)
+        _write_run(tmp, rec)
     _print_plan(console, outcome, chk, info)
     visit_order_table(console, order)
     console.print(f"Wrote {out}/")
@@ -282,7 +322,7 @@ def _frequency_into(study, checks, out_tmp: Path, at, quiet, console):
 
     cs = as_set(checks)
     studies, tables, summary = [], [], None
-    with console.status("frequency indication") if not quiet else _null():
+    with _status(console, "frequency indication", quiet):
         for c in cs.checks:
             fs = run_frequency_study(c, at if c.year.calendar_year == study.settings.year
                                      else None)
@@ -337,48 +377,27 @@ def _critical_trace_png(studies) -> bytes:
 
 
 def _print_frequency(console, summary: dict) -> None:
-    """The frequency indication per examined interval, cutting no number at any width.
+    """The frequency indication per examined interval and scenario, cutting no number at any
+    width (:func:`allocator.console.print_table`): each row's labels, scenario and ISO 8601
+    local time stacked in the first column."""
+    from rich.markup import escape
 
-    A table when it fits (80 columns do): each interval's labels and its ISO 8601 local time
-    stacked in the first column, every column fixed at least as wide as its longest value,
-    headers wrapping into the width left.  Narrower consoles get one block of lines per
-    interval.  (rich's own shrinking would cut values with "…", so widths are set here.)
-    """
-    from rich.table import Table
+    from .console import print_table
 
     title = ("Frequency indication: largest generation loss kept within "
              f"{summary['floor_hz']:g}–{summary['ceiling_hz']:g} Hz")
-    heads = ("interval and local time", "demand MW", "armed %",
-             "largest loss kept within limits %", "that loss MW")
+    heads = ["interval, scenario and local time", "demand MW", "armed %",
+             "largest loss kept within limits %", "that loss MW"]
     rows = []
     for r in summary["intervals"]:
         lc = r["largest_covered_pct"]
-        rows.append(("\n".join(r["interval"].split("+")) + "\n" + r["local_time"],
+        rows.append((escape("\n".join(r["interval"].split("+")) + "\n"
+                            + (r.get("scenario") or "") + "\n" + r["local_time"]),
                      f"{r['demand_mw']:.0f}", f"{r['total_armed_pct']:.1f}",
                      "none" if lc is None else f"{lc:g}",
-                     "—" if lc is None else f"{r['largest_covered_mw']:.0f}"))
-    widths = [max([len(w) for w in h.split()] + [len(x) for row in rows
-                                                  for x in row[j].split("\n")])
-              for j, h in enumerate(heads)]
-    spare = console.width - (sum(widths) + 3 * len(heads) + 1)  # borders and padding
-    if spare < 0:
-        console.print(title)
-        for row in rows:
-            console.print(row[0].replace("\n", " "), highlight=False)
-            for h, v in zip(heads[1:], row[1:]):
-                console.print(f"  {h}: {v}", highlight=False)
-    else:
-        for j in sorted(range(len(heads)), key=lambda j: len(heads[j]) - widths[j]):
-            grow = min(spare, max(0, len(heads[j]) - widths[j]))  # short headers whole first
-            widths[j] += grow
-            spare -= grow
-        t = Table(title=title, title_justify="left")
-        for j, h in enumerate(heads):
-            t.add_column(h, justify="left" if j == 0 else "right", width=widths[j])
-        for row in rows:
-            t.add_row(*row)
-        console.print(t)
-    console.print("[dim]" + summary["cautions"][0] + "[/dim]")
+                     "none" if lc is None else f"{r['largest_covered_mw']:.0f}"))
+    print_table(console, title, heads, rows, right={1, 2, 3, 4})
+    console.print("[dim]" + escape(summary["cautions"][0]) + "[/dim]")
 
 
 def cmd_frequency(args, console) -> int:
@@ -390,6 +409,7 @@ def cmd_frequency(args, console) -> int:
         fmts = _formats(args)
         if "png" in fmts or "html" in fmts:
             _write_frequency_figures(fs, tmp / "figures")
+        _write_run(tmp, _record(args, study, years))
     _print_frequency(console, summary)
     console.print(f"Wrote {out}/")
     return EXIT_OK
@@ -402,16 +422,10 @@ def _formats(args) -> set[str]:
 
 
 def cmd_demo(args, console) -> int:
-    """validate → check the current allocation → plan → check the plan → frequency → reports."""
-    from .assignment import current_assignment
-    from .check import run_checks
-    from .console import study_overview, verdict_table, warnings, worst_windows
-    from .demo import demo_workbook_path
-    from .export import write_check_files
-    from .safeio import atomic_dir, write_csv
-    from .scenarios import build_years
-    from .workbook import read_study
-    from .year import year_summary
+    """validate → check the current allocation → plan → check the plan → frequency → reports,
+    in the layout of ``plan`` plus frequency/, current/frequency/, year_summary.csv and the
+    demo workbook under input/."""
+    from .safeio import atomic_dir
 
     out = Path(args.out)
     fmts = _formats(args)
@@ -419,34 +433,16 @@ def cmd_demo(args, console) -> int:
               "check the current allocation", "plan a new allocation", "check the plan",
               "frequency indication", "reports"]
     with atomic_dir(out) as tmp:
-        wb = demo_workbook_path(tmp / "input")
-        console.rule(f"demo: {wb.name}")
         step = _Stages(console, stages, args.quiet)
-        with step("validate the workbook"):
-            study = read_study(wb)
-        study_overview(console, study)
-        warnings(console, study.warnings, limit=5)
-        with step("build the scenarios' years of net load"):
-            years = build_years(study)
-            summary = year_summary(study, years[0])
-            write_csv(summary, tmp / "year_summary.csv")
-        for y in years:
-            console.print(f"Scenario {y.scenario}: {y.n_intervals} intervals × "
-                          f"{len(study.feeders)} feeders; demand {y.demand_mw.min():.0f}–"
-                          f"{y.demand_mw.max():.0f} MW; "
-                          f"{int(((y.net_mw < 0).any(axis=1)).sum())} feeders export at "
-                          "some interval.")
-        with step("check the current allocation"):
-            cur, cur_warns = current_assignment(study)
-            before = run_checks(study, years, cur, cur_warns)
-            write_check_files(before, tmp / "current")
-        verdict_table(console, before, "Current allocation")
-        worst_windows(console, before, n=3)
+        study, years, before = _demo_inputs(console, step, tmp)
+        rec = _record(args, study, years)
         args.solver = "highs"
         args.max_changes = None
         with step("plan a new allocation"):
             outcome, chk, info = _plan_into(args, console, study, years, tmp, True)
         with step("check the plan"):
+            from .export import write_check_files
+
             write_check_files(chk, tmp)
             from .export import write_field_files
             from .fieldconsole import visit_order_table
@@ -455,27 +451,79 @@ def cmd_demo(args, console) -> int:
         _print_plan(console, outcome, chk, info)
         visit_order_table(console, order)
         with step("frequency indication"):
-            fs_before, fsum_before = _frequency_into(study, before, tmp / "frequency" /
-                                                     "current", None, True, console)
-            fs_after, fsum_after = _frequency_into(study, chk, tmp / "frequency" / "plan",
-                                                   None, True, console)
+            fs_b, fsum_b = _frequency_into(study, before, tmp / CURRENT / FREQUENCY, None,
+                                           True, console)
+            fs_a, fsum_a = _frequency_into(study, chk, tmp / FREQUENCY, None, True, console)
             if "png" in fmts or "html" in fmts:
-                _write_frequency_figures(fs_after, tmp / "frequency" / "plan" / "figures")
-                _write_frequency_figures(fs_before, tmp / "frequency" / "current" / "figures")
+                _write_frequency_figures(fs_a, tmp / FREQUENCY / "figures")
+                _write_frequency_figures(fs_b, tmp / CURRENT / FREQUENCY / "figures")
         with step("reports"):
             from .report import write_reports
 
-            freq = {"after": fsum_after, "before": fsum_before,
-                    "figure_png": _critical_trace_png(fs_after) if "html" in fmts else None}
+            png = (lambda fs: _critical_trace_png(fs) if "html" in fmts else None)  # noqa: E731
             write_reports(chk, tmp, previous_idx=study.current_assignment, plan_info=info,
-                          before=before, formats=fmts, frequency=freq)
-            write_reports(before, tmp / "current", previous_idx=None, formats=fmts)
-    _demo_verdicts(console, before, chk, fsum_before, fsum_after)
+                          before=before, formats=fmts, run=rec,
+                          frequency={"after": fsum_a, "before": fsum_b, "figure_png": png(fs_a)})
+            write_reports(before, tmp / CURRENT, previous_idx=None, formats=fmts, run=rec,
+                          frequency={"after": fsum_b, "before": None, "figure_png": png(fs_b)})
+            for folder in (tmp / FREQUENCY, tmp / CURRENT / FREQUENCY, tmp / CURRENT, tmp):
+                _write_run(folder, rec)
+    _demo_verdicts(console, before, chk, fsum_b, fsum_a)
     for name in ("report.html", "report.xlsx"):
         if (out / name).exists():
             console.print(f"  {name}: {(out / name).resolve()}")
     console.print(f"Wrote {out}/")
     return EXIT_OK
+
+
+def _demo_inputs(console, step, tmp: Path):
+    """The demo's first three stages: the workbook (into tmp/input/ when rebuilt), every
+    scenario's year (year_summary.csv) and the current allocation's check (tmp/current/).
+    Returns (study, years, the current allocation's ScenarioChecks)."""
+    import pandas as pd
+
+    from .assignment import current_assignment
+    from .check import run_checks
+    from .console import study_overview, verdict_table, warnings, worst_windows
+    from .demo import demo_workbook_path
+    from .export import write_check_files
+    from .safeio import write_csv
+    from .scenarios import build_years
+    from .workbook import read_study
+    from .year import year_summary
+
+    wb = demo_workbook_path(tmp / "input")
+    if wb.parent != tmp / "input":  # the workbook the demo used goes with its outputs
+        import shutil
+
+        (tmp / "input").mkdir(exist_ok=True)
+        shutil.copy2(wb, tmp / "input" / wb.name)
+    console.rule(f"demo: {wb.name}")
+    with step("validate the workbook"):
+        study = read_study(wb)
+    study_overview(console, study)
+    warnings(console, study.warnings, limit=5)
+    with step("build the scenarios' years of net load"):
+        years = build_years(study)
+        frames = []
+        for y in years:  # one row per feeder and scenario, the scenario column first
+            f = year_summary(study, y)
+            f.insert(0, "scenario", y.scenario)
+            frames.append(f)
+        write_csv(pd.concat(frames, ignore_index=True), tmp / "year_summary.csv")
+    for y in years:
+        n_exp = int(((y.net_mw < 0).any(axis=1)).sum())
+        console.print(f"Scenario {y.scenario}: {y.n_intervals} intervals × "
+                      f"{len(study.feeders)} feeders; demand {y.demand_mw.min():.0f}–"
+                      f"{y.demand_mw.max():.0f} MW; {vocab.count(n_exp, 'feeder')} "
+                      f"{'exports' if n_exp == 1 else 'export'} at some interval.")
+    with step("check the current allocation"):
+        cur, cur_warns = current_assignment(study)
+        before = run_checks(study, years, cur, cur_warns)
+        write_check_files(before, tmp / CURRENT)
+    verdict_table(console, before, "Current allocation")
+    worst_windows(console, before, n=3)
+    return study, years, before
 
 
 class _Stages:
@@ -496,15 +544,14 @@ class _Stage:
 
     def __enter__(self):
         self.t0 = time.perf_counter()
-        if not self.p.quiet:
-            self.status = self.p.console.status(
-                f"[{self.p.n}/{len(self.p.names)}] {self.name}")
-            self.status.__enter__()
+        self.status = _status(self.p.console, f"[{self.p.n}/{len(self.p.names)}] "
+                              f"{self.name}", self.p.quiet)
+        self.status.__enter__()
         return self
 
     def __exit__(self, *exc):
+        self.status.__exit__(*exc)
         if not self.p.quiet:
-            self.status.__exit__(*exc)
             if exc[0] is None:
                 self.p.console.print(f"[green]✓[/green] [{self.p.n}/{len(self.p.names)}] "
                                      f"{self.name} ({time.perf_counter() - self.t0:.1f} s)")
@@ -524,7 +571,9 @@ def _demo_verdicts(console, before, after, fb, fa) -> None:
                 ["block", "band %", "current lowest %", "planned lowest %",
                  "current highest %", "planned highest %", "current", "planned"], rows,
                 right={1, 2, 3, 4, 5})
-    v = lambda c: "[green]COMPLIANT[/green]" if c.compliant else "[red]NOT COMPLIANT[/red]"
+    from .console import _verdict_words
+
+    v = lambda c: _verdict_words(c.compliant, headline=True)  # noqa: E731
     console.print(f"Verdict before: {v(before)}   after: {v(after)}   (scenarios "
                   f"{', '.join(after.names)})")
     key = lambda r: (r.get("scenario", ""), r["interval"])  # noqa: E731
@@ -561,7 +610,7 @@ def build_parser() -> argparse.ArgumentParser:
     v.set_defaults(func=cmd_validate)
 
     c = sub.add_parser("check", parents=[common], help="armed load per block, every interval",
-                       description="Check an allocation: armed MW and %% of netted demand per "
+                       description="Check an allocation: armed MW and % of netted demand per "
                                    "block in every interval, compliance, shortfall windows, "
                                    "exporting feeders and the annual statement.")
     c.add_argument("workbook", help="study workbook (.xlsx)")
@@ -634,6 +683,7 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    args.argv = list(sys.argv[1:] if argv is None else argv)  # for the run record
     if not getattr(args, "func", None):
         parser.print_help()
         return EXIT_OK

@@ -11,7 +11,7 @@ from rich.markup import escape
 from rich.table import Table
 from rich.text import Text
 
-from .check import Check
+from . import vocab
 from .domain import Study
 
 
@@ -74,45 +74,71 @@ def print_table(console: Console, title: str, heads: list[str], rows: list[tuple
     console.print(t)
 
 
+def print_pairs(console: Console, title: str | None, pairs: list[tuple[str, str]]) -> None:
+    """Labelled values (rich markup), two columns: the labels as wide as the longest, the
+    values wrapping at spaces into the width left; "label: value" lines when even that does
+    not fit.  Nothing is cut."""
+    rows = [(escape(k), v) for k, v in pairs]
+    w = _widths(console.width, ["", ""], rows, set())
+    if title:
+        console.print(title)
+    if w is None:
+        for k, v in rows:
+            console.print(f"{k}: {v}")
+        return
+    t = Table(show_header=False, box=None, padding=(0, 1), pad_edge=False, show_edge=False)
+    t.add_column(style="bold", width=w[0], overflow="fold")
+    t.add_column(width=w[1], overflow="fold")
+    for k, v in rows:
+        t.add_row(k, v)
+    console.print(t)
+
+
 def study_overview(console: Console, study: Study) -> None:
     allowed = study.allowed_matrix()
     armable = allowed.any(axis=1)
     s = study.settings
-    t = Table(title=escape(f"{s.utility} — study year {s.year}"), show_header=False, box=None)
-    t.add_column("what", style="bold")
-    t.add_column("value")
-    t.add_row("feeders", f"{len(study.feeders)} ({int(armable.sum())} armable, "
-              f"{int(study.is_priority.sum())} priority, "
-              f"{int((study.relay_code == 0).sum())} without a UFLS relay)")
-    t.add_row("substations", str(len({f.substation for f in study.feeders})))
-    t.add_row("blocks", escape(", ".join(f"{b.name} {b.pickup_hz:g} Hz {b.target_pct:g} %"
-                                         for b in study.blocks)))
-    t.add_row("total peak", f"{study.peak_mw.sum():.1f} MW")
-    t.add_row("total PV", f"{study.pv_mw.sum():.1f} MW (derate {s.pv_derate:g})")
-    t.add_row("calendar", f"{s.timezone}, {s.interval_minutes}-minute intervals, holidays "
-              f"{s.holiday_country or 'none'}{'-' + s.holiday_subdivision if s.holiday_subdivision else ''}")
-    t.add_row("rule", f"{s.rule_text}; priority sites: {s.priority_policy}")
-    console.print(t)
+    hol = (s.holiday_country or "none") + (f"-{s.holiday_subdivision}"
+                                           if s.holiday_subdivision else "")
+    print_pairs(console, escape(f"{s.utility} — study year {s.year}"), [
+        ("feeders", f"{len(study.feeders)} ({int(armable.sum())} armable, "
+                    f"{int(study.is_priority.sum())} priority, "
+                    f"{int((study.relay_code == 0).sum())} without a UFLS relay)"),
+        ("substations", str(len({f.substation for f in study.feeders}))),
+        ("blocks", escape(", ".join(f"{b.name} {b.pickup_hz:g} Hz {b.target_pct:g} %"
+                                    for b in study.blocks))),
+        ("total peak", f"{study.peak_mw.sum():.1f} MW"),
+        ("total PV", f"{study.pv_mw.sum():.1f} MW (derate {s.pv_derate:g})"),
+        ("calendar", f"{s.timezone}, {s.interval_minutes}-minute intervals, holidays {hol}"),
+        ("scenarios", escape(", ".join(sc.name for sc in study.scenarios))),
+        ("rule", f"{s.rule_text}; priority sites: {s.priority_policy}"),
+    ])
 
 
 def warnings(console: Console, items: list[str] | tuple[str, ...], limit: int = 15) -> None:
+    """The first ``limit`` warnings, each wrapped under its "!" (words never cut)."""
     if not items:
         return
-    console.print(f"[yellow]{len(items)} warning(s):[/yellow]")
+    console.print(f"[yellow]{vocab.count(len(items), 'warning')}:[/yellow]")
+    t = Table.grid(padding=(0, 1))
+    t.add_column(width=3, justify="right", style="yellow")
+    t.add_column(overflow="fold", max_width=max(console.width - 4, 10))
     for w in list(items)[:limit]:
-        console.print(f"  [yellow]![/yellow] {escape(str(w))}")
+        t.add_row("!", escape(str(w)))
+    console.print(t)
     if len(items) > limit:
-        console.print(f"  … and {len(items) - limit} more")
+        console.print(f"  and {vocab.count(len(items) - limit, 'more warning')}")
 
 
 def _side_words(v) -> str:
-    """in band / below band / above band / below and above band (one vocabulary)."""
-    if v.compliant:
-        return "[green]in band[/green]"
-    low, high = v.min_share_pct < v.min_pct, v.max_share_pct > v.max_pct
-    word = ("below and above band" if low and high else "below band" if low
-            else "above band" if high else "out of band")
-    return f"[red]{word}[/red]"
+    """The block's status word (allocator.vocab), coloured."""
+    colour = "green" if v.compliant else "red"
+    return f"[{colour}]{v.status}[/{colour}]"
+
+
+def _verdict_words(ok: bool, headline: bool = False) -> str:
+    word = vocab.headline(ok) if headline else vocab.compliance_word(ok)
+    return f"[green]{word}[/green]" if ok else f"[red]{word}[/red]"
 
 
 def verdict_table(console: Console, checks, title: str = "Armed load per block") -> None:
@@ -122,19 +148,31 @@ def verdict_table(console: Console, checks, title: str = "Armed load per block")
     from .export import as_set
 
     cs = as_set(checks)
-    rows = [(escape(v.block), f"{v.pickup_hz:.2f}", f"{v.min_pct:g}–{v.max_pct:g}",
-             f"{v.min_share_pct:.1f}\n{escape(v.min_share_scenario)}",
-             f"{v.max_share_pct:.1f}\n{escape(v.max_share_scenario)}",
-             f"{v.headroom_to_min_pp:+.2f}", f"{v.headroom_to_max_pp:+.2f}", _side_words(v))
-            for v in cs.verdicts]
-    print_table(console, f"{title} — rule {cs.rule}, worst over every scenario",
-                ["block", "Hz", "band %", "lowest % in", "highest % in", "room to min pp",
-                 "room to max pp", "verdict"], rows, right={1, 2, 5, 6})
+    s = cs.study.settings
+    pct = s.compliance_rule == "percentile"
+    rows = []
+    for v in cs.verdicts:
+        rows.append((escape(v.block), f"{v.pickup_hz:.2f}", f"{v.min_pct:g}–{v.max_pct:g}",
+                     f"{v.min_share_pct:.1f}\n{escape(v.min_share_scenario)}",
+                     f"{v.max_share_pct:.1f}\n{escape(v.max_share_scenario)}")
+                    + ((f"{v.rule_low_share_pct:.1f}", f"{v.rule_high_share_pct:.1f}")
+                       if pct else ())
+                    + (f"{v.headroom_to_min_pp:+.2f}", f"{v.headroom_to_max_pp:+.2f}",
+                       _side_words(v)))
+    heads = ["block", "Hz", "band %", "lowest % in", "highest % in"]
+    if pct:  # the two statistics the rule judges, P and 100 - P
+        p = s.compliance_percentile
+        heads += [f"P{p:g} %", f"P{100 - p:g} %"]
+    heads += ["room to min pp", "room to max pp", "status"]
+    n = len(heads)
+    print_table(console, f"{title} — rule {cs.rule}, worst over every scenario", heads, rows,
+                right={1, 2, n - 3, n - 2} | ({5, 6} if pct else set()))
     scenario_table(console, cs)
-    v = "[green]COMPLIANT[/green]" if cs.compliant else "[red]NOT COMPLIANT[/red]"
+    v = _verdict_words(cs.compliant, headline=True)
     bad = cs.failing_scenarios
-    console.print(f"Overall: {v} in {len(cs.checks) - len(bad)} of {len(cs.checks)} "
-                  f"scenario(s); worst violation {cs.worst_violation_pp:.2f} pp"
+    console.print(f"Overall: {v} (compliant in {len(cs.checks) - len(bad)} of "
+                  f"{vocab.count(len(cs.checks), 'scenario')}); worst violation "
+                  f"{cs.worst_violation_pp:.2f} pp"
                   + (f" (not compliant in {escape(', '.join(bad))})" if bad else ""))
 
 
@@ -151,8 +189,8 @@ def scenario_table(console: Console, cs) -> None:
         bad = [s.block for s in c.stats if not s.compliant]
         rows.append((escape(c.scenario), escape(pv), str(c.year.calendar_year),
                      f"{100 * c.all_in_band_fraction:.1f}", f"{c.worst_violation_pp:.2f}",
-                     "[green]compliant[/green]" if c.compliant else
-                     f"[red]not compliant[/red]: {escape(', '.join(bad))}"))
+                     _verdict_words(c.compliant)
+                     + (f": {escape(', '.join(bad))}" if bad else "")))
     print_table(console, "Scenarios judged", ["scenario", "PV", "year",
                                               "all blocks in band % of intervals",
                                               "worst pp", "verdict"], rows, right={2, 3, 4})
@@ -184,10 +222,10 @@ def worst_windows(console: Console, check, n: int = 5) -> None:
     if w.empty:
         console.print("No interval outside any block's band in any scenario.")
         return
-    rows = [(str(r.rank), escape(r.scenario), escape(r.block),
-             "below band" if r.kind == "below_min" else "above band", r.start_local,
+    rows = [(str(r.rank), f"{escape(r.block)}\n{escape(r.scenario)}", r.status, r.start_local,
              f"{r.duration_h:g}", f"{r.worst_share_pct:.1f}", f"{r.energy_mwh:.1f}")
             for r in w.head(n).itertuples()]
-    print_table(console, f"Worst windows outside the band ({min(n, len(w))} of {len(w)})",
-                ["#", "scenario", "block", "kind", "start (local)", "hours", "worst %",
-                 "MWh outside"], rows, right={0, 5, 6, 7})
+    print_table(console, f"Worst windows outside the band ({min(n, len(w))} of "
+                f"{vocab.count(len(w), 'window')})",
+                ["#", "block in scenario", "status", "start (local)", "hours", "worst %",
+                 "MWh outside"], rows, right={0, 4, 5, 6})

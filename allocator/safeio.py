@@ -45,10 +45,15 @@ def safe_filename(name: str, max_len: int = 80) -> str:
 
 def write_csv(df: pd.DataFrame, path: Path, float_format: str = "%.6f") -> None:
     """CSV with text cells neutralised against formula injection; floats fixed-format so
-    two runs give byte-identical files."""
+    two runs give byte-identical files; boolean columns as ``yes`` / ``no`` (the one way
+    booleans are written for people, :mod:`allocator.vocab`)."""
+    from .vocab import yes_no_array
+
     out = df.copy()
     for c in out.columns:
-        if out[c].dtype == object or pd.api.types.is_string_dtype(out[c].dtype):
+        if pd.api.types.is_bool_dtype(out[c].dtype):
+            out[c] = yes_no_array(out[c].to_numpy())
+        elif out[c].dtype == object or pd.api.types.is_string_dtype(out[c].dtype):
             out[c] = out[c].map(neutralise_text)
     out.columns = [neutralise_text(str(c)) for c in out.columns]
     out.to_csv(path, index=False, float_format=float_format, lineterminator="\n")

@@ -46,6 +46,14 @@ def iso_local(times: pd.DatetimeIndex | pd.Timestamp, timezone: str | None = Non
     return np.char.add(local, _offset_text(idx)).astype(object)
 
 
+def iso_utc(times: pd.DatetimeIndex) -> np.ndarray:
+    """ISO 8601 UTC to the second with ``Z``, e.g. ``2024-12-31T23:00:00Z`` (object array)."""
+    idx = pd.DatetimeIndex(times)
+    if idx.tz is None:
+        raise ValueError("iso_utc needs zone-aware times")
+    return np.asarray(idx.tz_convert("UTC").strftime("%Y-%m-%dT%H:%M:%SZ"), dtype=object)
+
+
 def offset_hours(times: pd.DatetimeIndex) -> np.ndarray:
     """UTC offset in hours per instant of a zone-aware index (for the xlsx offset column)."""
     idx = pd.DatetimeIndex(times)
@@ -53,4 +61,25 @@ def offset_hours(times: pd.DatetimeIndex) -> np.ndarray:
             .to_numpy().astype("timedelta64[m]").astype(np.int64) / 60.0)
 
 
-__all__ = ["iso_local", "offset_hours"]
+def split_iso(texts) -> tuple[pd.DatetimeIndex, np.ndarray]:
+    """ISO 8601 local times with offset (the :func:`iso_local` form) → (local wall-clock
+    times without a zone, UTC offset in hours), for the xlsx date cells and their offset
+    column.  Blank or missing texts give NaT and NaN.  Vectorized on the fixed layout
+    ``YYYY-MM-DDTHH:MM±HH:MM``."""
+    s = pd.Series(list(texts), dtype=object).fillna("").astype(str)
+    ok = s.str.len() == 22
+    wall = pd.to_datetime(s.where(ok).str[:16], format=_LOCAL, errors="coerce")
+    sign = np.where(s.str[16] == "-", -1.0, 1.0)
+    hh = pd.to_numeric(s.where(ok).str[17:19], errors="coerce").to_numpy(dtype=float)
+    mm = pd.to_numeric(s.where(ok).str[20:22], errors="coerce").to_numpy(dtype=float)
+    return pd.DatetimeIndex(wall), sign * (hh + mm / 60.0)
+
+
+def iso_now() -> str:
+    """The computer's current local time in the same form (a run record's date-time)."""
+    import datetime
+
+    return iso_local(pd.Timestamp(datetime.datetime.now().astimezone()))
+
+
+__all__ = ["iso_local", "iso_utc", "offset_hours", "split_iso", "iso_now"]

@@ -59,7 +59,7 @@ def test_plan_writes_files_and_check(wb, tmp_path, monkeypatch):
               "intervals_in_model", "solver", "solver_version", "combination"):
         assert k in info
     assert info["scenarios"] == ["clear_sky", "no_pv"]
-    summary = json.loads((out / "check" / "summary.json").read_text())
+    summary = json.loads((out / "summary.json").read_text())
     # the plan's reported worst violation is the check's number
     assert info["worst_violation_pp"] == pytest.approx(summary["worst_violation_pp"], abs=1e-9)
     changed = (plan["block"] != plan["previous_block"]).sum()

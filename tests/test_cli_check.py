@@ -183,7 +183,7 @@ def test_console_verdict_table_fits_100_columns(wb, monkeypatch, capsys):
     lines = text.splitlines()
     assert max(len(x) for x in lines) <= 100
     assert "Armed load per block" in text and "rule every_interval" in text
-    head = next(x for x in lines if "block" in x and "verdict" in x)
+    head = next(x for x in lines if "block" in x and "status" in x)
     for col in ("Hz", "band %", "lowest %", "highest %", "room to min pp", "room to max pp"):
         assert col in head, col
     assert any(x.startswith("S1 ") for x in lines) and any(x.startswith("S2 ") for x in lines)

@@ -3,8 +3,9 @@
 Each run is a fresh interpreter (``python -m allocator``) with a different
 ``PYTHONHASHSEED``, so an output that depended on set or dict-of-str iteration order, on
 memory addresses or on the wall clock would differ.  Compared byte for byte: ``plan.csv``,
-the plan's ``check/summary.json`` and ``check/armed_load.csv``, and every CSV/JSON file of
-``check``.  (``plan.json`` holds solve times and is compared without them.)
+the plan's ``summary.json`` and ``armed_load.csv``, and every CSV/JSON file of
+``check``.  (``plan.json`` holds solve times and ``run.json`` the run time and the command
+line; they are compared without them.)
 
 The 12-feeder study is invented test data.
 """
@@ -69,7 +70,7 @@ def test_plan_outputs_byte_identical(study):
     for out, seed in (("plan_a", "1"), ("plan_b", "4242")):
         _run(study, ["plan", "study.xlsx", "--out", out, "--time-limit", "20",
                      "--format", "none"], seed)
-    names = ["plan.csv", "check/summary.json", "check/armed_load.csv"]
+    names = ["plan.csv", "summary.json", "armed_load.csv", "current/summary.json"]
     a, b = _bytes(study / "plan_a", names), _bytes(study / "plan_b", names)
     for n in names:
         assert a[n], f"{n} is empty"
@@ -96,6 +97,13 @@ def test_check_outputs_byte_identical(study):
     other = sorted(p.relative_to(study / "check_b").as_posix()
                    for p in (study / "check_b").rglob("*") if p.is_file())
     assert files == other
+    # run.json records the wall-clock run time and the command line (--out differs): it is
+    # compared without those two fields
+    assert "run.json" in files
+    ra, rb = (json.loads((study / o / "run.json").read_text()) for o in ("check_a", "check_b"))
+    strip = lambda r: {k: v for k, v in r.items() if k not in ("run_time", "command_line")}  # noqa: E731
+    assert strip(ra) == strip(rb) and ra["inputs"]
+    files = [n for n in files if n != "run.json"]
     a, b = _bytes(study / "check_a", files), _bytes(study / "check_b", files)
     differ = [n for n in files if a[n] != b[n]]
     assert not differ, f"differ between two runs: {differ}"

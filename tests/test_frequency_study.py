@@ -208,7 +208,7 @@ def test_console_table_at_80_columns_cuts_nothing(demo_fs, which):
         lc = r["largest_covered_pct"]
         want = [f"{r['demand_mw']:.0f}", f"{r['total_armed_pct']:.1f}",
                 "none" if lc is None else f"{lc:g}",
-                "—" if lc is None else f"{r['largest_covered_mw']:.0f}"]
+                "none" if lc is None else f"{r['largest_covered_mw']:.0f}"]
         assert tokens[-4:] == want, line
     assert not re.search(r"(?<![\d-])\d{2}-\d{2} \d{2}:\d{2}", text)  # no date without year
 

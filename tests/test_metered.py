@@ -350,7 +350,8 @@ def test_gap_fill_profile(tmp_path):
     np.testing.assert_allclose(y.net_mw, want, atol=1e-12)
     f = flags_of(y.flags, "F01")
     assert "5 of 8760 intervals (5 h)" in f["gaps_filled"]
-    assert "longest gap 5 h from 2025-01-05 04:00" in f["gaps_filled"]
+    # ISO 8601 local time with its offset; Berlin is UTC+01:00 in January (from memory)
+    assert "longest gap 5 h from 2025-01-05T04:00+01:00" in f["gaps_filled"]
     assert "profile-built" in f["gaps_filled"]
     assert set(flags_of(y.flags, "F03")) == {"no_metered_data"}
     assert y.source == "metered"
@@ -401,7 +402,8 @@ def test_gap_fill_error_lists_windows(tmp_path):
     msg = [p for p in e.problems if p.message.startswith("F01:")]
     assert len(msg) == 1 and msg[0].column == "mw"
     assert "1 gap (5 intervals, 5 h)" in msg[0].message
-    assert "2025-01-05 04:00 to 2025-01-05 09:00" in msg[0].message
+    # ISO 8601 local time with its offset (Berlin UTC+01:00 in January, from memory)
+    assert "2025-01-05T04:00+01:00 to 2025-01-05T09:00+01:00" in msg[0].message
     assert not any(p.message.startswith("F03") for p in e.problems)  # no data ≠ gaps
 
 

@@ -16,6 +16,7 @@ The study data (feeders, shapes, blocks) is invented test data.
 
 from __future__ import annotations
 
+import datetime
 import html
 import json
 import os
@@ -174,8 +175,10 @@ def test_workbook_sheets_and_headers(case):
     chk = case["check"]
     wb = openpyxl.load_workbook(case["out"] / "report.xlsx")
     assert wb.sheetnames == SHEETS
-    assert [c.value for c in wb["blocks"][1]][:len(BLOCK_COLUMNS) + 1] == \
-        ["scenario"] + [h for _, h, _, _ in BLOCK_COLUMNS]
+    want = ["scenario"]
+    for _, h, kind, _ in BLOCK_COLUMNS:  # a local time: date cell plus its offset column
+        want += [f"{h} (local)", f"{h} UTC offset h"] if kind == "time" else [h]
+    assert [c.value for c in wb["blocks"][1]][:len(want)] == want
     head = [c.value for c in wb["feeders"][1]]
     for h in ("feeder", "substation", "zone", "profile (feeder class)", "relay",
               "priority site", "block", "pickup Hz", "time delay s", "RoCoF setting Hz/s",
@@ -244,7 +247,18 @@ def test_blocks_sheet_equals_summary_json(case):
         for key, header, kind, _ in BLOCK_COLUMNS:
             if key not in jrow:
                 continue
+            if kind == "time":
+                # ISO 8601 text in JSON (read with datetime.fromisoformat); in the xlsx a
+                # zone-less date cell (ECMA-376 serial date) and the offset beside it
+                t = datetime.datetime.fromisoformat(jrow[key])
+                assert values[f"{header} (local)"] == t.replace(tzinfo=None)
+                assert values[f"{header} UTC offset h"] == t.utcoffset().total_seconds() / 3600
+                continue
             v = values[header]
+            if kind == "bool":
+                # booleans people read: yes/no in the xlsx, true/false in JSON (README)
+                assert v == {True: "yes", False: "no"}[jrow[key]], (key, v, jrow[key])
+                continue
             assert v == jrow[key], (key, v, jrow[key])
             if kind == "num" and jrow[key] is not None:
                 assert abs(v - drow[key]) <= 1e-9
@@ -329,7 +343,7 @@ def test_plan_workbook(plan_case):
     head = [c.value for c in ws[1]]
     data = {r[0]: dict(zip(head, r)) for r in ws.iter_rows(min_row=2, values_only=True)}
     assert data[MARKUP_ID]["previous block"] == "S2" and data[MARKUP_ID]["block"] == "S1"
-    assert data[MARKUP_ID]["changed"] is True and data["F07"]["changed"] is False
+    assert data[MARKUP_ID]["changed"] == "yes" and data["F07"]["changed"] == "no"
     # shares of a block's feeders add up to 100 %
     for b in ("S1", "S2"):
         tot = sum(r["share of its block %"] for r in data.values() if r["block"] == b)

@@ -222,5 +222,5 @@ def test_demo_plan_for_clear_sky_alone_fails_the_overcast_year(tmp_path):
     assert b2["max_share_scenario"] == "no_pv" and b2["headroom_to_max_pp"] < 0
     assert main(["plan", str(DEMO), "--time-limit", "20", "--out", str(tmp_path / "q"),
                  "--format", "none", "--quiet"]) == 0
-    both = json.loads((tmp_path / "q" / "check" / "summary.json").read_text())
+    both = json.loads((tmp_path / "q" / "summary.json").read_text())
     assert both["compliant"] is True and both["scenarios_judged"] == ["clear_sky", "no_pv"]

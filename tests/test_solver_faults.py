@@ -210,7 +210,7 @@ def test_cli_plan_with_crashing_solver_writes_an_honest_plan(case, monkeypatch, 
     # plan.csv is a valid assignment: read back with the tool's own reader (all hard rules)
     idx, _ = read_assignment(tmp_path / "out" / "plan.csv", case["study"])
     assert rule_problems(case["study"], idx, "plan.csv") == []
-    summary = json.loads((tmp_path / "out" / "check" / "summary.json").read_text())
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
     assert info["worst_violation_pp"] == pytest.approx(summary["worst_violation_pp"])
     with open(tmp_path / "out" / "plan.csv", newline="") as fh:
         assert len(list(csv.DictReader(fh))) == len(case["study"].feeders)

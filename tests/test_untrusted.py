@@ -417,7 +417,8 @@ def test_formula_injection_blocked_in_every_csv(hostile_run):
     csvs = sorted((d / "out").rglob("*.csv"))
     names = {p.relative_to(d / "out").as_posix() for p in csvs}
     for must in ("check/armed_load.csv", "check/exporting_feeders.csv",
-                 "check/by_substation.csv", "plan/plan.csv", "plan/check/armed_load.csv"):
+                 "check/by_substation.csv", "plan/plan.csv", "plan/armed_load.csv",
+                 "plan/current/armed_load.csv"):
         assert must in names, names
     seen_injected, seen_negative = set(), 0
     for p in csvs:

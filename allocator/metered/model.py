@@ -84,9 +84,12 @@ def ns_of(idx: pd.DatetimeIndex) -> np.ndarray:
 
 
 def local_text(t_ns: np.ndarray, tz: str) -> np.ndarray:
-    """Local wall-clock text of UTC nanosecond instants."""
+    """ISO 8601 local time with its UTC offset of UTC nanosecond instants (the one time
+    format of every output, :func:`allocator.timefmt.iso_local`)."""
+    from ..timefmt import iso_local
+
     idx = pd.DatetimeIndex(np.asarray(t_ns, dtype="datetime64[ns]")).tz_localize("UTC")
-    return np.asarray(idx.tz_convert(tz).strftime(LOCAL_FMT), dtype=object)
+    return np.asarray(iso_local(idx, tz), dtype=object)
 
 
 def fmt_minutes(ns: float) -> str:

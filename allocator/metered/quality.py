@@ -149,10 +149,10 @@ def _range_flags(study, st, has, n_read, mn, mx) -> list[tuple[int, int, FeederF
         lo = -(RANGE_FACTOR * f.pv_mw + RANGE_MARGIN_MW)
         out.append((i, 3, FeederFlag(
             f.feeder_id, "out_of_range",
-            f"{nh[i] + nl[i]} of {n_read[i]} readings outside {lo:g} … {hi:g} MW "
+            f"{nh[i] + nl[i]} of {n_read[i]} readings outside {lo:g} to {hi:g} MW "
             f"(1.5 × pv_mw {f.pv_mw:g} export, 1.5 × peak_mw {f.peak_mw:g} load, "
             f"+0.1 MW margin): {nh[i]} above, {nl[i]} below; readings range "
-            f"{mn[i]:g} … {mx[i]:g} MW")))
+            f"{mn[i]:g} to {mx[i]:g} MW")))
     return out
 
 

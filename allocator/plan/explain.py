@@ -6,6 +6,7 @@ import math
 
 import numpy as np
 
+from .. import vocab
 from ..domain import Study
 from ..timefmt import iso_local
 from .heuristic import Band, shares, violation_rel
@@ -78,8 +79,8 @@ def explain_after(study: Study, years, units: Units, band: Band, option: np.ndar
         n_bad = int((v[b] > 1e-9).sum())
         low = s[b, t] < band.lo[b]
         lim = band.lo[b] if low else band.hi[b]
-        out.append(f"Block {blk.name} is {'below' if low else 'above'} its {what} in {n_bad} "
-                   f"interval(s); worst {s[b, t]:.1f} % against {lim:g} % at "
+        out.append(f"Block {blk.name} is {'below' if low else 'above'} its {what} in "
+                   f"{vocab.count(n_bad, 'interval')}; worst {s[b, t]:.1f} % against {lim:g} % at "
                    f"{_when(years, units, t)}.")
     if lower_bound is not None and lower_bound > 1e-9:
         rules = "these feeders and rules" + (f" and at most {max_changes} changes"
@@ -100,13 +101,18 @@ def explain_changes(levels: list[dict], changes: float) -> list[str]:
             continue
         need = max(0, math.ceil(info["bound"] - 1e-6))
         n = int(round(changes))
+        if info.get("proven_optimal") and n == 0:
+            return ["No relay change is needed to hold this result in every scenario."]
         if info.get("proven_optimal"):
-            return [f"{n} relay changes is the fewest that holds this result in every "
-                    "scenario (proven by the solver's bound)."]
-        if need <= 0:
-            return [f"This plan makes {n} relay changes; the solver found no useful bound on "
-                    "how few would do (a longer --time-limit may give one)."]
-        return [f"At least {need} relay changes are needed to hold this result in every "
+            return [f"{vocab.count(n, 'relay change').capitalize()} "
+                    f"{'is' if n == 1 else 'are'} the fewest that hold"
+                    f"{'s' if n == 1 else ''} this result in every scenario (proven by the "
+                    "solver's bound)."]
+        if need == 0:
+            return [f"The solver's bound does not rule out fewer relay changes; this plan "
+                    f"makes {n}."]
+        return [f"At least {vocab.count(need, 'relay change')} "
+                f"{'is' if need == 1 else 'are'} needed to hold this result in every "
                 f"scenario; this plan makes {n}."]
     return []
 
@@ -126,11 +132,15 @@ def explain_exporting(ctx, option: np.ndarray, explanation: list[str]
     avoided = tuple(ids[f] for u in np.flatnonzero(m & ~armed) for f in units.members[u])
     if kept:
         explanation.append(
-            f"{len(kept)} exporting feeder(s) on standard relays stay armed: the planner found "
+            f"{vocab.count(len(kept), 'exporting feeder')} on standard relays "
+            f"{'stays' if len(kept) == 1 else 'stay'} armed: the planner found "
             f"no plan without them that holds the band in every scenario: "
             f"{', '.join(kept[:20])}"
             + (" ..." if len(kept) > 20 else "") + ".")
     if avoided:
-        explanation.append(f"{len(avoided)} feeder(s) that export in some interval and have "
-                           "standard relays are not armed (exporting_standard_relays = avoid).")
+        one = len(avoided) == 1
+        explanation.append(f"{vocab.count(len(avoided), 'feeder')} that "
+                           f"{'exports' if one else 'export'} in some interval and "
+                           f"{'has a standard relay is' if one else 'have standard relays are'}"
+                           " not armed (exporting_standard_relays = avoid).")
     return kept, avoided

@@ -51,7 +51,7 @@ def parse_formats(text: str | None) -> set[str]:
 def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
                   plan_info: dict | None = None, before=None,
                   formats: set[str] | frozenset[str] = DEFAULT_FORMATS,
-                  frequency: dict | None = None) -> dict[str, Path]:
+                  frequency: dict | None = None, run: dict | None = None) -> dict[str, Path]:
     """Write the report files of ``check`` into the existing folder ``out``.
 
     ``check`` is a :class:`~allocator.check.ScenarioChecks` (every scenario) or one
@@ -61,6 +61,9 @@ def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
     ``before``: the check of the current allocation, for before/after comparisons.
     ``frequency``: ``{"after": frequency_summary, "before": ... or None, "figure_png": bytes}``
     adds the frequency indication section to the HTML report.
+    ``run``: the run record (:func:`allocator.runrecord.run_record`; the command line calls
+    it with its own argv and inputs); without one, a record of the workbook and the
+    scenarios' weather files is made here.
     Returns ``{"xlsx": path, "html": path, "png:<name>": path, ...}`` for what was written.
     """
     from ..export import as_set
@@ -79,12 +82,16 @@ def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
     if not formats:
         return written
     out.mkdir(parents=True, exist_ok=True)
+    if run is None:
+        from ..runrecord import run_record
+
+        run = run_record(check.study, [c.year for c in check.checks])
     fc = content.feeder_contrib(check.checks[0])
     if "xlsx" in formats:
         from .excel import write_workbook
 
         written["xlsx"] = write_workbook(check, out / "report.xlsx", previous_idx, plan_info,
-                                         before, fc)
+                                         before, fc, run)
     figs = None
     if "png" in formats or "html" in formats:
         from .figures import render_figures
@@ -100,5 +107,5 @@ def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
 
         written["html"] = write_html(check, out / "report.html", figs or [],
                                      previous_idx=previous_idx, plan_info=plan_info,
-                                     before=before, frequency=frequency)
+                                     before=before, frequency=frequency, run=run)
     return written

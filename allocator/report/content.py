@@ -13,7 +13,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..check import Check, ScenarioChecks, contribution_mw
+from .. import vocab
+from ..check import Check, ScenarioChecks, all_warnings, contribution_mw
 from ..domain import UNARMED
 
 #: shown in the workbook summary and the HTML page, in this order
@@ -33,7 +34,8 @@ CAUTIONS: tuple[str, ...] = (
     "procedures.",
 )
 
-KIND_WORDS = {"below_min": "below min", "above_max": "above max"}
+#: a window's machine kind → the word people read (one vocabulary: allocator.vocab)
+KIND_WORDS = vocab.WINDOW_KINDS
 UNARMED_WORD = "unarmed"
 
 #: the summary.json rounding (allocator.safeio.write_json): 9 decimals, non-finite → empty
@@ -61,6 +63,15 @@ def rule_words(check: Check) -> str:
     return check.rule
 
 
+def rule_percentiles(settings) -> tuple[str, str] | None:
+    """``("P2", "P98")`` for the rule ``percentile:2`` (the two statistics it judges);
+    None for the other rules."""
+    if settings.compliance_rule != "percentile":
+        return None
+    p = settings.compliance_percentile
+    return f"P{p:g}", f"P{100 - p:g}"
+
+
 def verdict_words(check: Check) -> str:
     """The overall verdict in one plain sentence."""
     bad = [s for s in check.stats if not s.compliant]
@@ -71,11 +82,15 @@ def verdict_words(check: Check) -> str:
     for s in bad:
         bits = []
         if s.intervals_below_min:
-            bits.append(f"{s.intervals_below_min} intervals below {s.min_pct:g} %")
+            bits.append(f"{vocab.count(s.intervals_below_min, 'interval')} below "
+                        f"{s.min_pct:g} %")
         if s.intervals_above_max:
-            bits.append(f"{s.intervals_above_max} intervals above {s.max_pct:g} %")
-        parts.append(f"{s.block} ({', '.join(bits) or 'outside its band'})")
-    return (f"Not compliant: {len(bad)} of {len(check.stats)} blocks fall outside their band "
+            bits.append(f"{vocab.count(s.intervals_above_max, 'interval')} above "
+                        f"{s.max_pct:g} %")
+        parts.append(f"{s.block} {s.status} ({', '.join(bits) or 'under the rule'})")
+    verb = "falls" if len(bad) == 1 else "fall"
+    return (f"Not compliant: {len(bad)} of {vocab.count(len(check.stats), 'block')} {verb} "
+            f"outside {'its' if len(bad) == 1 else 'their'} band "
             f"under the rule '{check.rule}': {'; '.join(parts)}. "
             f"Worst distance outside a band: {check.worst_violation_pp:.2f} percentage points.")
 
@@ -92,14 +107,16 @@ def verdict_words_set(checks: ScenarioChecks) -> str:
     parts = []
     for v in checks.verdicts:
         if not v.compliant:
-            parts.append(f"{v.block} in {', '.join(v.failing_scenarios)}")
-    return (f"Not compliant in {len(bad)} of {len(checks.checks)} scenarios "
+            parts.append(f"{v.block} {v.status} in {', '.join(v.failing_scenarios)}")
+    return (f"Not compliant in {len(bad)} of {vocab.count(len(checks.checks), 'scenario')} "
             f"({', '.join(bad)}): {'; '.join(parts)}. Worst distance outside a band: "
             f"{checks.worst_violation_pp:.2f} percentage points.")
 
 
-def block_verdict(compliant: bool) -> str:
-    return "in band" if compliant else "OUT OF BAND"
+def block_verdict(v) -> str:
+    """A block's status word (in band / below band / above band / below and above band)
+    from a BlockStats or BlockVerdict: the one vocabulary of allocator.vocab."""
+    return v.status
 
 
 def block_name(check: Check, idx: int) -> str:
@@ -114,12 +131,16 @@ class PrioritySummary:
     def words(self, policy: str) -> str:
         if self.total == 0:
             return "The workbook marks no feeder as a priority site."
+        marked = (f"{vocab.count(self.total, 'feeder')} "
+                  f"{'is' if self.total == 1 else 'are'} marked as "
+                  f"{'a priority site' if self.total == 1 else 'priority sites'}")
         if not self.armed:
-            return (f"{self.total} feeders are marked as priority sites; none of them is armed "
+            return (f"{marked}; {'it is not' if self.total == 1 else 'none of them is'} armed "
                     f"in this allocation (priority policy '{policy}').")
         shown = ", ".join(self.armed[:10]) + (" ..." if len(self.armed) > 10 else "")
-        return (f"{self.total} feeders are marked as priority sites; {len(self.armed)} of them "
-                f"are armed in this allocation (priority policy '{policy}'): {shown}. "
+        n = len(self.armed)
+        return (f"{marked}; {n} of them {'is' if n == 1 else 'are'} armed in this "
+                f"allocation (priority policy '{policy}'): {shown}. "
                 "Confirm this is allowed by your local rules.")
 
 
@@ -268,10 +289,8 @@ def relay_changes(check: Check, previous_idx: np.ndarray | None) -> pd.DataFrame
 
 
 def windows_table(check: Check | ScenarioChecks) -> pd.DataFrame:
-    w = check.windows().drop(columns=["_start"], errors="ignore").copy()
-    if not w.empty:
-        w["kind"] = w["kind"].map(lambda k: KIND_WORDS.get(k, k))
-    return w
+    """The windows outside a band for the reports (``status`` holds the words)."""
+    return check.windows().drop(columns=["_start"], errors="ignore").copy()
 
 
 def assumptions(check: Check) -> list[tuple[str, str]]:
@@ -313,12 +332,6 @@ def assumptions(check: Check) -> list[tuple[str, str]]:
     ]
 
 
-#: plan.json keys the labelled plan facts are made from (the rest: "solver details")
-PLAN_KEY_FIELDS = ("status", "scenarios", "objective", "band_margin_pp", "relays_changed",
-                   "feeders_changed", "relays_changed_lower_bound", "levels",
-                   "every_interval_in_band", "worst_violation_pp", "mean_abs_deviation_pp",
-                   "solve_seconds", "time_limit_s", "max_changes", "solver_version",
-                   "explanation", "events", "verdict_covers")
 OBJECTIVE_WORDS = {"fewest_changes": "worst violation, then fewest relay changes, then "
                                      "closest to target",
                    "closest_to_target": "worst violation, then closest to target, then "
@@ -327,54 +340,136 @@ STATUS_WORDS = {"in_band": "every block in band in every interval of every scena
                 "out_of_band": "not every block can be held in band (see why)"}
 
 
-def plan_facts(p: dict) -> list[tuple[str, str]]:
-    """The plan's key facts as (label, value with unit) pairs for people."""
-    out = [("result", STATUS_WORDS.get(p.get("status", ""), str(p.get("status", "")))),
-           ("scenarios held", ", ".join(p.get("scenarios", []))),
-           ("objective order", OBJECTIVE_WORDS.get(str(p.get("objective")),
-                                                   _fmt(p.get("objective")))),
-           ("margin kept inside each band", f"{p.get('band_margin_pp', 0):g} pp")]
-    rc, fc, lb = p.get("relays_changed"), p.get("feeders_changed"), p.get(
-        "relays_changed_lower_bound")
-    if rc is not None:
-        out.append(("relays changed", f"{rc} (feeders affected: {fc})"))
-    if lb is not None:
-        out.append(("fewest relay changes possible", f"at least {lb}"))
+@dataclass(frozen=True)
+class Fact:
+    """One labelled fact for people: a number (shown with ``fmt``, an xlsx number format
+    such as ``0.00``, and its ``unit``) or a text.  ``text()`` is how the console and the
+    HTML show it; the xlsx writes ``value`` as a number cell with ``fmt`` and the unit
+    beside it."""
+
+    label: str
+    value: object
+    unit: str = ""
+    fmt: str | None = None
+
+    @property
+    def is_number(self) -> bool:
+        return isinstance(self.value, (int, float, np.integer, np.floating)) and not \
+            isinstance(self.value, bool)
+
+    def text(self) -> str:
+        v = self.value
+        if v is None:
+            return "none"
+        if isinstance(v, (bool, np.bool_)):
+            return vocab.yes_no(v)
+        if self.is_number:
+            dec = len(self.fmt.split(".")[1]) if self.fmt and "." in self.fmt else None
+            num = (f"{float(v):.{dec}f}" if dec is not None else
+                   str(int(v)) if float(v).is_integer() else f"{float(v):g}")
+            return f"{num} {self.unit}".rstrip()
+        return str(v)
+
+
+def _num(p: dict, key: str, scale: float = 1.0):
+    v = p.get(key)
+    return None if v is None else scale * float(v)
+
+
+def plan_facts(p: dict) -> list[Fact]:
+    """The plan's key facts, labelled, with units (the console, the xlsx summary and the
+    HTML show these)."""
+    out = [Fact("result", STATUS_WORDS.get(p.get("status", ""), str(p.get("status", "")))),
+           Fact("scenarios held", ", ".join(p.get("scenarios", []))),
+           Fact("objective order", OBJECTIVE_WORDS.get(str(p.get("objective")),
+                                                       str(p.get("objective")))),
+           Fact("margin kept inside each band", float(p.get("band_margin_pp") or 0.0), "pp",
+                "0.00")]
+    for key, label in (("relays_changed", "relays whose setting changes"),
+                       ("feeders_changed", "feeders whose block changes"),
+                       ("relays_changed_lower_bound",
+                        "relay changes needed at least (solver bound)")):
+        if p.get(key) is not None:
+            out.append(Fact(label, int(p[key]), "", "0"))
     for i, lv in enumerate(p.get("levels", []), 1):
-        out.append((f"level {i}: {lv.get('level', '')}", str(lv.get("claim", ""))))
-    if p.get("worst_violation_pp") is not None:
-        out.append(("worst distance outside a band", f"{p['worst_violation_pp']:.2f} pp"))
-    if p.get("mean_abs_deviation_pp") is not None:
-        out.append(("mean deviation from target", f"{p['mean_abs_deviation_pp']:.2f} pp"))
+        out.append(Fact(f"level {i}: {lv.get('level', '')}", str(lv.get("claim", ""))))
+    for key, label, unit, scale in (
+            ("worst_violation_pp", "worst distance outside a band", "pp", 1.0),
+            ("worst_violation_pct_of_target", "worst violation relative to the target",
+             "% of target", 1.0),
+            ("mean_abs_deviation_pp", "mean deviation from target", "pp", 1.0)):
+        if p.get(key) is not None:
+            out.append(Fact(label, _num(p, key, scale), unit, "0.00"))
     if p.get("solve_seconds") is not None:
-        out.append(("planning time", f"{p['solve_seconds']:.1f} s of a "
-                                     f"{p.get('time_limit_s', 0):g} s limit"))
-    if p.get("max_changes") is not None:
-        out.append(("max_changes", str(p["max_changes"])))
+        out.append(Fact("planning time", _num(p, "solve_seconds"), "s", "0.0"))
+    if p.get("time_limit_s") is not None:
+        out.append(Fact("planning time limit", _num(p, "time_limit_s"), "s", "0"))
+    if "max_changes" in p:
+        mc = p["max_changes"]
+        out.append(Fact("most relay changes allowed", "no limit" if mc is None else int(mc),
+                        "", "0"))
     if p.get("solver_version"):
-        out.append(("solver", str(p["solver_version"])))
+        out.append(Fact("solver", str(p["solver_version"])))
+    return out
+
+
+def plan_details(p: dict) -> list[Fact]:
+    """How the planner got there, labelled: bounds, rounds, model sizes, the heuristic
+    start, the result without the cap on relay changes (max_changes), each level's method
+    and time, the seed and how the levels combine.  (plan.json keys not shown here are shown elsewhere in the
+    report or are the same facts in another form.)"""
+    out: list[Fact] = []
+    if p.get("lower_bound_worst_violation_pct_of_target") is not None:
+        out.append(Fact("lowest possible worst violation (solver bound)",
+                        _num(p, "lower_bound_worst_violation_pct_of_target"), "% of target",
+                        "0.00"))
+    if p.get("rounds") is not None:
+        out.append(Fact("MILP rounds over the intervals", int(p["rounds"]), "", "0"))
+    im = p.get("intervals_in_model") or {}
+    for key, label in (("band_rows", "intervals held as band rows in the last model"),
+                       ("deviation_sample", "intervals in the deviation sample"),
+                       ("all_scenarios", "intervals of every scenario checked")):
+        if im.get(key) is not None:
+            out.append(Fact(label, int(im[key]), "", "0"))
+    for src, head in (("heuristic_start", "heuristic start"),
+                      ("alternatives", "without the cap on relay changes")):
+        d = p.get(src) or {}
+        if d.get("worst_violation_rel") is not None:
+            out.append(Fact(f"{head}: worst violation", 100.0 * float(d["worst_violation_rel"]),
+                            "% of target", "0.00"))
+        if d.get("changes") is not None:
+            out.append(Fact(f"{head}: relays whose setting changes", int(d["changes"]), "",
+                            "0"))
+        if d.get("mad_pp") is not None:
+            out.append(Fact(f"{head}: mean deviation from target", float(d["mad_pp"]), "pp",
+                            "0.00"))
+    for i, lv in enumerate(p.get("levels", []), 1):
+        if lv.get("method"):
+            out.append(Fact(f"level {i}: method", str(lv["method"])))
+        if lv.get("seconds") is not None:
+            out.append(Fact(f"level {i}: time", float(lv["seconds"]), "s", "0.0"))
+    for key, label in (("exporting_standard_relays_kept_armed",
+                        "exporting feeders on standard relays kept armed"),
+                       ("exporting_standard_relays_not_armed",
+                        "exporting feeders on standard relays left unarmed")):
+        ids = p.get(key) or []
+        if ids:
+            shown = ", ".join(map(str, ids[:20])) + (" ..." if len(ids) > 20 else "")
+            out.append(Fact(label, f"{len(ids)}: {shown}"))
+    if p.get("seed") is not None:
+        out.append(Fact("random seed", int(p["seed"]), "", "0"))
+    if p.get("combination"):
+        out.append(Fact("how the levels are combined", str(p["combination"])))
     return out
 
 
 @dataclass(frozen=True)
 class PlanText:
     status: str
-    key: list[tuple[str, str]]
-    details: list[tuple[str, str]]
+    key: list[Fact]
+    details: list[Fact]
     explanation: list[str]
     notes: list[str]
-
-
-def _fmt(v: object) -> str:
-    if isinstance(v, bool) or v is None:
-        return {True: "yes", False: "no", None: "-"}[v]
-    if isinstance(v, float):
-        return f"{v:.6g}"
-    if isinstance(v, dict):
-        return ", ".join(f"{k}={_fmt(x)}" for k, x in list(v.items())[:20])
-    if isinstance(v, (list, tuple)):
-        return "; ".join(_fmt(x) for x in v[:20]) + (" ..." if len(v) > 20 else "")
-    return str(v)
 
 
 def _lines(v: object) -> list[str]:
@@ -383,44 +478,18 @@ def _lines(v: object) -> list[str]:
     if isinstance(v, str):
         return v.splitlines()
     if isinstance(v, (list, tuple)):
-        return [_fmt(x) for x in v]
-    return [_fmt(v)]
+        return [str(x) for x in v]
+    return [str(v)]
 
 
 def plan_text(plan_info: dict | None) -> PlanText:
-    """What a plan.json dict says, split for display: status, the key figures, the solver
-    details, the explanation lines and the solver's notes (``events``)."""
+    """What a plan.json dict says, for people: status, the key facts, the planner's details,
+    the explanation lines and the planner's notes (``events``)."""
     if not plan_info:
         return PlanText("", [], [], [], [])
-    key = plan_facts(plan_info)
-    skip = set(PLAN_KEY_FIELDS)
-    details: list[tuple[str, str]] = []
-    for k, v in plan_info.items():
-        if k in skip:
-            continue
-        if isinstance(v, dict):
-            details += [(f"{k}.{k2}", _fmt(v2)) for k2, v2 in list(v.items())[:30]]
-        elif isinstance(v, (list, tuple)) and v and all(isinstance(x, dict) for x in v):
-            details += [(f"{k}[{i + 1}]", _fmt(x)) for i, x in enumerate(v[:20])]
-        else:
-            details.append((str(k), _fmt(v)))
-    return PlanText(str(plan_info.get("status", "")), key, details[:80],
-                    _lines(plan_info.get("explanation")), _lines(plan_info.get("events")))
-
-
-def all_warnings(check: Check | ScenarioChecks) -> list[str]:
-    checks = check.checks if isinstance(check, ScenarioChecks) else (check,)
-    out = list(check.study.warnings) + list(check.warnings)
-    for c in checks:
-        out += list(c.year.notes)
-        out += [f"feeder {fl.feeder_id}: {fl.flag} ({fl.detail})" for fl in c.year.flags]
-    seen = set()
-    uniq = []
-    for w in out:
-        if w not in seen:
-            seen.add(w)
-            uniq.append(w)
-    return uniq
+    return PlanText(str(plan_info.get("status", "")), plan_facts(plan_info),
+                    plan_details(plan_info), _lines(plan_info.get("explanation")),
+                    _lines(plan_info.get("events")))
 
 
 def class_breakdown(check: Check, fc: FeederContrib) -> dict[str, object]:

@@ -1,6 +1,7 @@
 """The planner's workbook, ``report.xlsx``.
 
-Sheets: ``summary`` (verdicts, plan, worst windows, fill legend, cautions), ``blocks``
+Sheets: ``summary`` (verdicts, plan facts, worst windows, the run record with the sign-off
+cells, fill legend, cautions), ``blocks``
 (settings and the statistics of summary.json, same values), ``feeders``, ``relay_changes``
 (the field work list), ``intervals`` (the year, one row per interval), ``windows`` (runs
 outside a band), ``exports`` (armed feeders that export) and ``substations``.
@@ -16,13 +17,15 @@ from pathlib import Path
 
 import numpy as np
 import openpyxl
+import pandas as pd
 from openpyxl.formatting.rule import CellIsRule
-from openpyxl.styles import Alignment, Font, PatternFill
+from openpyxl.styles import Alignment, Border, Font, PatternFill, Side
 
-from .. import __version__
+from .. import __version__, vocab
 from ..check import Check, ScenarioChecks, by_substation, exporting_feeders, summary_dict
 from ..export import stacked
-from ..timefmt import offset_hours
+from ..runrecord import SIGN_OFF
+from ..timefmt import offset_hours, split_iso
 from . import content, palette
 from .xlsxtable import Col, Table, put, put_text, save, table_sheet
 
@@ -37,7 +40,9 @@ BOLD = Font(bold=True)
 WRAP = Alignment(wrap_text=True, vertical="top")
 
 #: blocks sheet: (summary.json key, header, kind, number format); the statistics are written
-#: with the summary.json values (same rounding), so the two files show the same numbers
+#: with the summary.json values (same rounding), so the two files show the same numbers.
+#: Kind "time": an ISO 8601 local time, written as a date cell "<header> (local)" and its
+#: "<header> UTC offset h" column (see time_cols)
 BLOCK_COLUMNS: tuple[tuple[str, str, str, str | None], ...] = (
     ("block", "block", "text", None),
     ("order", "order", "int", F_INT),
@@ -53,17 +58,19 @@ BLOCK_COLUMNS: tuple[tuple[str, str, str, str | None], ...] = (
     ("p5_share_pct", "P5 share %", "num", "0.00"),
     ("mean_share_pct", "mean share %", "num", "0.00"),
     ("p95_share_pct", "P95 share %", "num", "0.00"),
+    ("p99_share_pct", "P99 share %", "num", "0.00"),
     ("max_share_pct", "highest share %", "num", "0.00"),
     ("intervals_below_min", "intervals below min", "int", F_INT),
     ("intervals_above_max", "intervals above max", "int", F_INT),
     ("shortfall_mwh", "shortfall MWh", "num", F_MWH),
     ("excess_mwh", "excess MWh", "num", F_MWH),
     ("worst_violation_pp", "worst distance outside band pp", "num", F_PP),
-    ("min_share_local_time", "time of lowest share (local)", "text", None),
+    ("min_share_local_time", "time of lowest share", "time", None),
     ("compliant", "compliant", "bool", None),
+    ("status", "status", "text", None),
 )
 SHARE_KEYS = ("min_share_pct", "p1_share_pct", "p5_share_pct", "mean_share_pct",
-              "p95_share_pct", "max_share_pct")
+              "p95_share_pct", "p99_share_pct", "max_share_pct")
 
 SHEETS = {
     "summary": "verdicts, plan status, worst windows, what the fills mean, cautions",
@@ -85,6 +92,19 @@ SHEETS = {
     "exports": "armed feeders that export at some interval",
     "substations": "mean armed MW per substation, zone and block",
 }
+
+
+F_DATE, F_OFFSET = "yyyy-mm-dd hh:mm", "+0.00;-0.00"
+
+
+def time_cols(header: str, texts) -> list[Col]:
+    """An ISO 8601 local time (``2025-06-02T03:00+02:00``) as two columns: a real date cell
+    of the local wall-clock time, ``<header> (local)``, and ``<header> UTC offset h``.
+    SpreadsheetML date cells are serial day numbers without a zone (ECMA-376 Part 1,
+    §18.17.4), so the offset needs its own column; local − offset = UTC."""
+    wall, off = split_iso(texts)
+    return [Col(f"{header} (local)", wall, "date", F_DATE, 17),
+            Col(f"{header} UTC offset h", off, "num", F_OFFSET, 8)]
 
 
 def _cf_band(ws, rng: str, lo: str, hi: str) -> None:
@@ -115,7 +135,13 @@ def _block_cols(checks: list[Check]) -> list[Col]:
             vals = [np.nan if v is None else v for v in vals]
         else:
             vals = [r[key] for _, r in summ]
-        cols.append(Col(header, vals, kind, fmt))
+        cols += time_cols(header, vals) if kind == "time" else [Col(header, vals, kind, fmt)]
+    rp = content.rule_percentiles(checks[0].study.settings) if checks else None
+    if rp is not None and rp[0] not in ("P1", "P5"):
+        for key, name in (("rule_low_share_pct", rp[0]), ("rule_high_share_pct", rp[1])):
+            vals = [content.json_number(r[key]) for _, r in summ]
+            cols.append(Col(f"{name} share % (the rule's)", [np.nan if v is None else v
+                                                              for v in vals], "num", "0.00"))
     for key, header in (("headroom_to_min_pp", "room above band min pp"),
                         ("headroom_to_max_pp", "room below band max pp")):
         vals = [content.json_number(getattr(c.stats[i % len(c.blocks)], key))
@@ -146,6 +172,7 @@ def _blocks_sheet(wb, cs: ScenarioChecks, before: ScenarioChecks | None) -> Tabl
     lo = t.col_letter("band min %")
     hi = t.col_letter("band max %")
     share_headers = [h for k, h, _, _ in BLOCK_COLUMNS if k in SHARE_KEYS]
+    share_headers += [c.header for c in cols if c.header.endswith("share % (the rule's)")]
     if before is not None:
         share_headers += ["current allocation: lowest share %",
                           "current allocation: mean share %"]
@@ -163,12 +190,12 @@ def _scenarios_sheet(wb, cs: ScenarioChecks) -> Table:
             Col("calendar year", [c.year.calendar_year for c in cs.checks], "int", F_INT),
             Col("data source", [c.year.source for c in cs.checks], "text"),
             Col("intervals", [c.year.n_intervals for c in cs.checks], "int", F_INT),
-            Col("compliant", [c.compliant for c in cs.checks], "bool"),
+            Col("verdict", [vocab.compliance_word(c.compliant) for c in cs.checks], "text"),
             Col("worst distance outside band pp", [c.worst_violation_pp for c in cs.checks],
                 "num", F_PP),
             Col("all blocks in band % of intervals",
                 [100.0 * c.all_in_band_fraction for c in cs.checks], "num", F_PCT),
-            Col("blocks out of band", [", ".join(s.block for s in c.stats if not s.compliant)
+            Col("blocks not compliant", [", ".join(s.block for s in c.stats if not s.compliant)
                                        for c in cs.checks], "text")]
     return table_sheet(wb, "scenarios", cols, freeze="B2")
 
@@ -223,9 +250,9 @@ def _intervals_sheet(wb, cs: ScenarioChecks) -> Table:
     cols = [Col("scenario", [c.scenario for c in checks for _ in range(c.year.n_intervals)],
                 "text", None, 10),
             Col(f"local time ({tz})", cat(lambda c: c.year.local_times.tz_localize(None)
-                                          .to_numpy()), "date", "yyyy-mm-dd hh:mm", 17),
+                                          .to_numpy()), "date", F_DATE, 17),
             Col("UTC offset h", cat(lambda c: offset_hours(c.year.local_times)), "num",
-                "+0.00;-0.00", 8),
+                F_OFFSET, 8),
             Col("UTC time", cat(lambda c: c.year.timestamps_utc.tz_localize(None).to_numpy()),
                 "date", "yyyy-mm-dd hh:mm", 17),
             Col("netted demand MW", cat(lambda c: c.year.demand_mw), "num", F_MW, 11)]
@@ -240,22 +267,23 @@ def _intervals_sheet(wb, cs: ScenarioChecks) -> Table:
 
 def _windows_sheet(wb, check: ScenarioChecks) -> Table:
     w = content.windows_table(check)
-    spec = [("rank", "rank", "int", F_INT), ("scenario", "scenario", "text", None),
-            ("block", "block", "text", None),
-            ("kind", "kind", "text", None), ("start_local", "start (local)", "text", None),
-            ("end_local", "end (local)", "text", None), ("duration_h", "duration h", "num", F_H),
-            ("intervals", "intervals", "int", F_INT),
-            ("worst_share_pct", "worst share %", "num", "0.00"),
-            ("band_pct", "band limit %", "num", F_PCT),
-            ("energy_mwh", "MWh outside band", "num", F_MWH)]
     if w.empty:
-        cols = [Col(h, ["No interval lies outside any block's band."] if j == 0 else
-                    ([None] if kind == "text" else [np.nan]), "text" if j == 0 else kind, fmt,
-                    width=20 if j == 0 else None)
-                for j, (k, h, kind, fmt) in enumerate(spec)]
+        heads = ["rank", "scenario", "block", "status", "start (local)", "end (local)",
+                 "duration h", "MWh outside band"]
+        cols = [Col(h, ["No interval lies outside any block's band."] if j == 0 else [None],
+                    "text", None, width=20 if j == 0 else None) for j, h in enumerate(heads)]
         return table_sheet(wb, "windows", cols, autofilter=False)
-    cols = [Col(h, w[k].tolist() if kind == "text" else w[k].to_numpy(dtype=float), kind, fmt)
-            for k, h, kind, fmt in spec]
+    num = lambda k: w[k].to_numpy(dtype=float)  # noqa: E731
+    cols = ([Col("rank", num("rank"), "int", F_INT), Col("scenario", w["scenario"].tolist(),
+                                                         "text"),
+             Col("block", w["block"].tolist(), "text"), Col("status", w["status"].tolist(),
+                                                            "text")]
+            + time_cols("start", w["start_local"]) + time_cols("end", w["end_local"])
+            + [Col("duration h", num("duration_h"), "num", F_H),
+               Col("intervals", num("intervals"), "int", F_INT),
+               Col("worst share %", num("worst_share_pct"), "num", "0.00"),
+               Col("band limit %", num("band_pct"), "num", F_PCT),
+               Col("MWh outside band", num("energy_mwh"), "num", F_MWH)])
     t = table_sheet(wb, "windows", cols)
     # worst share: orange for below-min windows, blue for above-max ones
     rng = t.data_range("worst share %")
@@ -269,22 +297,23 @@ def _windows_sheet(wb, check: ScenarioChecks) -> Table:
 
 def _exports_sheet(wb, check: ScenarioChecks) -> Table:
     df = stacked(check, exporting_feeders)
-    spec = [("scenario", "scenario", "text", None),
-            ("feeder_id", "feeder", "text", None), ("substation", "substation", "text", None),
-            ("block", "block", "text", None), ("relay", "relay", "text", None),
-            ("exporting_intervals", "exporting intervals", "int", F_INT),
-            ("exporting_hours", "exporting hours h", "num", F_H),
-            ("most_export_mw", "largest export MW", "num", F_MW),
-            ("most_export_local_time", "time of largest export (local)", "text", None),
-            ("negative_contribution_mwh", "negative contribution MWh", "num", F_MWH)]
     if df.empty or "substation" not in df.columns:
-        cols = [Col(h, ["No armed feeder exports at any interval."] if j == 0 else
-                    ([None] if kind == "text" else [np.nan]), "text" if j == 0 else kind, fmt,
-                    width=20 if j == 0 else None)
-                for j, (k, h, kind, fmt) in enumerate(spec)]
+        heads = ["scenario", "feeder", "substation", "block", "relay", "exporting intervals",
+                 "time of largest export (local)"]
+        cols = [Col(h, ["No armed feeder exports at any interval."] if j == 0 else [None],
+                    "text", None, width=20 if j == 0 else None) for j, h in enumerate(heads)]
         return table_sheet(wb, "exports", cols, autofilter=False)
-    cols = [Col(h, df[k].tolist() if kind == "text" else df[k].to_numpy(dtype=float), kind, fmt)
-            for k, h, kind, fmt in spec]
+    num = lambda k: df[k].to_numpy(dtype=float)  # noqa: E731
+    text = lambda k: df[k].tolist()  # noqa: E731
+    cols = ([Col("scenario", text("scenario"), "text"), Col("feeder", text("feeder_id"), "text"),
+             Col("substation", text("substation"), "text"), Col("block", text("block"), "text"),
+             Col("relay", text("relay"), "text"),
+             Col("exporting intervals", num("exporting_intervals"), "int", F_INT),
+             Col("exporting hours h", num("exporting_hours"), "num", F_H),
+             Col("largest export MW", num("most_export_mw"), "num", F_MW)]
+            + time_cols("time of largest export", df["most_export_local_time"])
+            + [Col("negative contribution MWh", num("negative_contribution_mwh"), "num",
+                   F_MWH)])
     return table_sheet(wb, "exports", cols, freeze="B2")
 
 
@@ -306,190 +335,242 @@ def _substations_sheet(wb, check: ScenarioChecks) -> Table:
     return table_sheet(wb, "substations", cols)
 
 
+class _Rows:
+    """Writes the summary sheet top to bottom: ``self.r`` is the next row."""
+
+    def __init__(self, ws):
+        self.ws, self.r = ws, 1
+
+    def text(self, value: object, col: int = 1, font=None):
+        c = put_text(self.ws, self.r, col, value)
+        if font is not None:
+            c.font = font
+        return c
+
+    def line(self, value: object, font=None) -> None:
+        self.text(value, font=font)
+        self.r += 1
+
+    def heading(self, value: str) -> None:
+        self.r += 1
+        self.line(value, H2_FONT)
+
+    def pair(self, label: str, value: object, fmt: str | None = None, bold: bool = False,
+             unit: str = "") -> None:
+        """label | value (a number cell with its format, or text) | unit."""
+        self.text(label, font=BOLD)
+        c = put(self.ws, self.r, 2, value, fmt)
+        if bold:
+            c.font = BOLD
+        if unit:
+            self.text(unit, col=3)
+        self.r += 1
+
+    def fact(self, f: content.Fact, bold: bool = False) -> None:
+        if f.is_number:
+            self.pair(f.label, f.value, f.fmt, bold, f.unit)
+        else:
+            self.pair(f.label, f.text(), bold=bold)
+
+    def header_row(self, heads: list[str]) -> None:
+        for j, h in enumerate(heads, 1):
+            c = self.text(h, col=j, font=BOLD)
+            c.alignment = WRAP
+        self.ws.row_dimensions[self.r].height = 30
+        self.r += 1
+
+    def values(self, vals: list, fmts: list) -> None:
+        for j, (v, f) in enumerate(zip(vals, fmts), 1):
+            put(self.ws, self.r, j, v, f)
+        self.r += 1
+
+
 def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
-                   before: ScenarioChecks | None) -> None:
+                   before: ScenarioChecks | None, run: dict | None = None) -> None:
     check = cs.checks[0]
     s = check.study.settings
     ws.column_dimensions["A"].width = 34
-    for col in "BCDEFGHIJK":
-        ws.column_dimensions[col].width = 14
-    r = 1
-    put_text(ws, r, 1, "UFLS armed-load report").font = TITLE_FONT
-    r += 1
-    put_text(ws, r, 1, f"{s.utility} - study year {s.year} - workbook "
-                       f"{content.workbook_name(check)} - ufls-allocator {__version__}")
-    r += 1
-    put_text(ws, r, 1, "Caution: UFLS disconnects customers; protect priority sites as local "
-                       "rules require; results are indicative planning support only; verify "
-                       "relay settings before any field change. See 'Cautions' below.").font = \
-        Font(bold=True, color="8A4B00")
-    r += 2
+    for col in "BCDEFGHIJKLM":
+        ws.column_dimensions[col].width = 17  # a yyyy-mm-dd hh:mm date cell needs ~17
+    w = _Rows(ws)
+    w.line("UFLS armed-load report", TITLE_FONT)
+    w.line(f"{s.utility} - study year {s.year} - workbook {content.workbook_name(check)} - "
+           f"ufls-allocator {__version__}")
+    w.line("Caution: UFLS disconnects customers; protect priority sites as local rules "
+           "require; results are indicative planning support only; verify relay settings "
+           "before any field change. See 'Cautions' below.", Font(bold=True, color="8A4B00"))
+    w.r += 1
+    _verdict_section(w, cs, previous_idx, plan_info, before)
+    _run_section(w, run)
+    if plan_info:
+        _plan_section(w, plan_info)
+    _block_section(w, cs, before)
+    _windows_section(w, cs)
+    _legend_section(w, check)
+    warns = content.all_warnings(cs)
+    if warns:
+        w.heading(f"Warnings ({len(warns)})")
+        for text in warns[:200]:
+            w.line(text)
+        if len(warns) > 200:
+            w.line(f"... and {len(warns) - 200} more")
+    ws.sheet_view.showGridLines = False
 
-    def pair(label: str, value: object, fmt: str | None = None, bold: bool = False) -> None:
-        nonlocal r
-        put_text(ws, r, 1, label).font = BOLD
-        c = put(ws, r, 2, value, fmt)
-        if bold:
-            c.font = BOLD
-        r += 1
 
-    what = ("a planned allocation" if plan_info else
-            "a proposed assignment" if previous_idx is not None else
-            "the workbook's current allocation")
+def _verdict_section(w: _Rows, cs: ScenarioChecks, previous_idx, plan_info,
+                     before: ScenarioChecks | None) -> None:
     from ..check import verdict_covers
 
-    pair("allocation checked", what)
-    pair("overall verdict", "COMPLIANT" if cs.compliant else "NOT COMPLIANT", bold=True)
-    put_text(ws, r, 1, content.verdict_words_set(cs))
-    r += 1
-    put_text(ws, r, 1, verdict_covers(cs))
-    r += 1
+    check = cs.checks[0]
+    s = check.study.settings
+    w.pair("allocation checked", "a planned allocation" if plan_info else
+           "a proposed assignment" if previous_idx is not None else
+           "the workbook's current allocation")
+    w.pair("overall verdict", vocab.headline(cs.compliant), bold=True)
+    w.line(content.verdict_words_set(cs))
+    w.line(verdict_covers(cs))
     if before is not None:
-        pair("current allocation", "COMPLIANT" if before.compliant else "NOT COMPLIANT")
-        put_text(ws, r, 1, "Current allocation: " + content.verdict_words_set(before))
-        r += 1
-    pair("compliance rule", check.rule)
-    pair("utility", s.utility)
-    pair("study year", s.year)
-    pair("scenarios judged", ", ".join(cs.names))
-    pair("interval length min", check.year.interval_minutes, "0")
-    pair("worst distance outside a band, pp", cs.worst_violation_pp, "0.00")
-    pair("priority sites", content.priority_summary(check).words(s.priority_policy))
-    if plan_info:
-        pt = content.plan_text(plan_info)
-        r += 1
-        put_text(ws, r, 1, "Plan").font = H2_FONT
-        r += 1
-        for k, v in pt.key:
-            pair(k, v, bold=k == "result")
-        for title, lines in (("why", pt.explanation), ("planner notes", pt.notes)):
-            if lines:
-                put_text(ws, r, 1, title).font = BOLD
-                r += 1
-                for line in lines:
-                    put_text(ws, r, 1, line)
-                    r += 1
-        if pt.details:
-            put_text(ws, r, 1, "planner details (plan.json)").font = BOLD
-            r += 1
-        for k, v in pt.details:
-            pair(k, v)
-    if previous_idx is not None:
-        n_changed = int(np.sum(np.asarray(previous_idx) != check.block_idx))
-        pair("feeders whose block changes", n_changed, "0")
+        w.pair("current allocation", vocab.headline(before.compliant))
+        w.line("Current allocation: " + content.verdict_words_set(before))
+    w.pair("compliance rule", check.rule)
+    w.pair("utility", s.utility)
+    w.pair("study year", s.year, "0")
+    w.pair("scenarios judged", ", ".join(cs.names))
+    w.pair("interval length", check.year.interval_minutes, "0", unit="min")
+    w.pair("worst distance outside a band", cs.worst_violation_pp, "0.00", unit="pp")
+    w.pair("priority sites", content.priority_summary(check).words(s.priority_policy))
+    if previous_idx is not None and not plan_info:  # a plan's facts say it themselves
+        w.pair("feeders whose block changes",
+               int(np.sum(np.asarray(previous_idx) != check.block_idx)), "0")
 
-    r += 1
-    put_text(ws, r, 1, "Verdict per block (worst over every scenario)").font = H2_FONT
-    r += 1
+
+def _plan_section(w: _Rows, plan_info: dict) -> None:
+    """The plan's facts with labels, numbers as number cells and their units beside them."""
+    pt = content.plan_text(plan_info)
+    w.heading("Plan")
+    for f in pt.key:
+        w.fact(f, bold=f.label == "result")
+    for title, lines in (("why", pt.explanation), ("planner notes", pt.notes)):
+        if lines:
+            w.line(title, BOLD)
+            for line in lines:
+                w.line(line)
+    if pt.details:
+        w.line("how the planner got there", BOLD)
+        for f in pt.details:
+            w.fact(f)
+
+
+def _block_section(w: _Rows, cs: ScenarioChecks, before: ScenarioChecks | None) -> None:
+    w.heading("Verdict per block (worst over every scenario)")
     heads = ["block", "pickup Hz", "band min %", "band max %", "lowest share %",
              "scenario of lowest", "highest share %", "scenario of highest",
-             "room above min pp", "room below max pp", "verdict"]
+             "room above min pp", "room below max pp", "status"]
     if before is not None:
-        heads += ["current: lowest share %", "current: verdict"]
-    for j, h in enumerate(heads, 1):
-        c = put_text(ws, r, j, h)
-        c.font, c.alignment = BOLD, WRAP
-    ws.row_dimensions[r].height = 30
-    r += 1
-    first = r
+        heads += ["current: lowest share %", "current: status"]
+    w.header_row(heads)
+    first = w.r
     for k, v in enumerate(cs.verdicts):
         vals = [v.block, v.pickup_hz, v.min_pct, v.max_pct, v.min_share_pct,
                 v.min_share_scenario, v.max_share_pct, v.max_share_scenario,
                 v.headroom_to_min_pp, v.headroom_to_max_pp,
-                content.block_verdict(v.compliant)
-                + (f" ({', '.join(v.failing_scenarios)})" if v.failing_scenarios else "")]
+                v.status + (f" ({', '.join(v.failing_scenarios)})" if v.failing_scenarios
+                            else "")]
         fmts = [None, "0.000", "0.0", "0.0", "0.00", None, "0.00", None, "0.00", "0.00", None]
         if before is not None:
             b = before.verdicts[k]
-            vals += [b.min_share_pct, content.block_verdict(b.compliant)]
+            vals += [b.min_share_pct, b.status]
             fmts += ["0.00", None]
-        for j, (val, f) in enumerate(zip(vals, fmts), 1):
-            put(ws, r, j, val, f)
-        r += 1
-    last = r - 1
+        w.values(vals, fmts)
+    last = w.r - 1
     for col in ("E", "G") + (("L",) if before is not None else ()):
-        _cf_band(ws, f"{col}{first}:{col}{last}", f"$C{first}", f"$D{first}")
+        _cf_band(w.ws, f"{col}{first}:{col}{last}", f"$C{first}", f"$D{first}")
 
-    r += 1
-    put_text(ws, r, 1, "Worst windows outside the band").font = H2_FONT
-    r += 1
-    w = content.windows_table(cs)
-    if w.empty:
-        put_text(ws, r, 1, "No interval lies outside any block's band in any scenario.")
-        r += 1
-    else:
-        put_text(ws, r, 1, f"{len(w)} windows in all; the 10 with the most MWh outside the band "
-                           "(all of them on the 'windows' sheet):")
-        r += 1
-        heads = ["rank", "scenario", "block", "kind", "start (local)", "end (local)",
-                 "duration h", "worst share %", "MWh outside band"]
-        for j, h in enumerate(heads, 1):
-            put_text(ws, r, j, h).font = BOLD
-        r += 1
-        for row in w.head(10).itertuples():
-            vals = [row.rank, row.scenario, row.block, row.kind, row.start_local,
-                    row.end_local, row.duration_h, row.worst_share_pct, row.energy_mwh]
-            fmts = ["0", None, None, None, None, None, "0.00", "0.00", "0.0"]
-            for j, (v, f) in enumerate(zip(vals, fmts), 1):
-                put(ws, r, j, v, f)
-            r += 1
 
-    r += 1
-    put_text(ws, r, 1, "What the fills mean").font = H2_FONT
-    r += 1
-    c = put_text(ws, r, 1, "below the band's minimum")
-    c.fill = FILL_BELOW
-    put_text(ws, r, 2, "the block would shed too little netted demand in that interval "
-                       "(share % columns of 'intervals', share columns of 'blocks')")
-    r += 1
-    c = put_text(ws, r, 1, "above the band's maximum")
-    c.fill = FILL_ABOVE
-    put_text(ws, r, 2, "the block would shed too much netted demand in that interval")
-    r += 1
-    put_text(ws, r, 1, "share %")
-    put_text(ws, r, 2, "armed MW of the block / netted demand MW x 100, per interval; an "
-                       "exporting feeder on a standard relay counts negative")
-    r += 2
-    put_text(ws, r, 1, "Sheets").font = H2_FONT
-    r += 1
+def _windows_section(w: _Rows, cs: ScenarioChecks) -> None:
+    w.heading("Worst windows outside the band")
+    win = content.windows_table(cs)
+    if win.empty:
+        w.line("No interval lies outside any block's band in any scenario.")
+        return
+    w.line(f"{len(win)} windows in all; the 10 with the most MWh outside the band (all of "
+           "them on the 'windows' sheet):" if len(win) > 10 else
+           f"{vocab.count(len(win), 'window').capitalize()} in all (also on the 'windows' "
+           "sheet):")
+    w.header_row(["rank", "scenario", "block", "status", "start (local)", "start UTC offset h",
+                  "end (local)", "end UTC offset h", "duration h", "worst share %",
+                  "MWh outside band"])
+    top = win.head(10)
+    (t0, o0), (t1, o1) = split_iso(top["start_local"]), split_iso(top["end_local"])
+    for k, row in enumerate(top.itertuples()):
+        # date cells are zone-less serial numbers (ECMA-376), hence the offset columns
+        w.values([row.rank, row.scenario, row.block, row.status, t0[k], o0[k], t1[k], o1[k],
+                  row.duration_h, row.worst_share_pct, row.energy_mwh],
+                 ["0", None, None, None, F_DATE, F_OFFSET, F_DATE, F_OFFSET, "0.00", "0.00",
+                  "0.0"])
+
+
+SIGN_BORDER = Border(bottom=Side(style="thin", color="404040"))
+
+
+def _run_section(w: _Rows, run: dict | None) -> None:
+    """The run record (run.json): tool, version, run time, command line, every input file
+    with its SHA-256, and the cells to fill in when the report is prepared and checked."""
+    if not run:
+        return
+    w.heading("Run record")
+    w.pair("tool and version", f"{run.get('tool', 'ufls-allocator')} {run.get('version', '')}")
+    wall, off = split_iso([run.get("run_time", "")])
+    w.pair("run time (local)", run.get("run_time", "") if pd.isna(wall[0]) else wall[0],
+           F_DATE)
+    w.pair("run time UTC offset", off[0], F_OFFSET, unit="h")
+    w.pair("command line", run.get("command_line") or "(called from Python)")
+    w.header_row(["input", "file", "SHA-256"])
+    for f in run.get("inputs", []):
+        w.values([f["role"], f["name"], f["sha256"]], [None, None, None])
+    w.r += 1
+    w.header_row(["sign-off", "name", "date", "signature"])
+    for who in SIGN_OFF:
+        w.text(who, font=BOLD)
+        for j in (2, 3, 4):  # blank cells to fill in, underlined
+            w.ws.cell(row=w.r, column=j).border = SIGN_BORDER
+        w.ws.row_dimensions[w.r].height = 24
+        w.r += 1
+
+
+def _legend_section(w: _Rows, check: Check) -> None:
+    w.heading("What the fills mean")
+    w.text("below the band's minimum").fill = FILL_BELOW
+    w.text("the block would shed too little netted demand in that interval (share % columns "
+           "of 'intervals', share columns of 'blocks')", col=2)
+    w.r += 1
+    w.text("above the band's maximum").fill = FILL_ABOVE
+    w.text("the block would shed too much netted demand in that interval", col=2)
+    w.r += 1
+    w.text("share %")
+    w.text("armed MW of the block / netted demand MW x 100, per interval; an exporting "
+           "feeder on a standard relay counts negative", col=2)
+    w.r += 1
+    w.heading("Sheets")
     for name, text in SHEETS.items():
-        put_text(ws, r, 1, name).font = BOLD
-        put_text(ws, r, 2, text)
-        r += 1
-
-    r += 1
-    put_text(ws, r, 1, "Assumptions").font = H2_FONT
-    r += 1
+        w.text(name, font=BOLD)
+        w.text(text, col=2)
+        w.r += 1
+    w.heading("Assumptions")
     for topic, text in content.assumptions(check):
-        put_text(ws, r, 1, topic).font = BOLD
-        put_text(ws, r, 2, text)
-        r += 1
-
-    r += 1
-    put_text(ws, r, 1, "Cautions").font = H2_FONT
-    r += 1
+        w.text(topic, font=BOLD)
+        w.text(text, col=2)
+        w.r += 1
+    w.heading("Cautions")
     for text in content.CAUTIONS:
-        put_text(ws, r, 1, "! " + text)
-        r += 1
-
-    warns = content.all_warnings(cs)
-    if warns:
-        r += 1
-        put_text(ws, r, 1, f"Warnings ({len(warns)})").font = H2_FONT
-        r += 1
-        for text in warns[:200]:
-            put_text(ws, r, 1, text)
-            r += 1
-        if len(warns) > 200:
-            put_text(ws, r, 1, f"... and {len(warns) - 200} more")
-    ws.sheet_view.showGridLines = False
+        w.line("! " + text)
 
 
 def write_workbook(check: Check | ScenarioChecks, path: Path,
                    previous_idx: np.ndarray | None = None, plan_info: dict | None = None,
                    before: Check | ScenarioChecks | None = None,
-                   fc: content.FeederContrib | None = None) -> Path:
-    """Write ``report.xlsx`` to ``path`` and return it."""
+                   fc: content.FeederContrib | None = None, run: dict | None = None) -> Path:
+    """Write ``report.xlsx`` to ``path`` and return it (``run``: the run record)."""
     from ..export import as_set
 
     cs = as_set(check)
@@ -501,7 +582,7 @@ def write_workbook(check: Check | ScenarioChecks, path: Path,
     wb.properties.creator = f"ufls-allocator {__version__}"
     ws = wb.active
     ws.title = "summary"
-    _summary_sheet(ws, cs, previous_idx, plan_info, before)
+    _summary_sheet(ws, cs, previous_idx, plan_info, before, run)
     tables = [_scenarios_sheet(wb, cs), _blocks_sheet(wb, cs, before),
               _feeders_sheet(wb, first, previous_idx, fc),
               _relay_sheet(wb, first, previous_idx), _intervals_sheet(wb, cs),

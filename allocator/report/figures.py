@@ -36,9 +36,11 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
+from .. import vocab
 from ..check import Check, ScenarioChecks
 from ..domain import DAY_TYPES
 from ..safeio import safe_filename
+from ..timefmt import iso_local
 from . import content, palette
 
 DPI = 150
@@ -177,15 +179,15 @@ def share_map(check: Check, j: int) -> tuple[Figure, str, str]:
                           label=f"edge of min {b.min_pct:g} %"))
     handles.append(Line2D([], [], color=palette.INK, lw=1.0, ls="dashed",
                           label=f"edge of max {b.max_pct:g} %"))
-    handles.append(Patch(facecolor=palette.VERMILION, label="below min"))
-    handles.append(Patch(facecolor=palette.BLUE, label="above max"))
+    handles.append(Patch(facecolor=palette.VERMILION, label=vocab.BELOW_BAND))
+    handles.append(Patch(facecolor=palette.BLUE, label=vocab.ABOVE_BAND))
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(0.0, -0.12), ncols=4,
               frameon=False)
     _month_axis(ax, check.year.calendar_year)
     ax.set_ylim(0, 24)
     ax.set_yticks(range(0, 25, 3))
     ax.set_yticklabels([f"{h:02d}:00" for h in range(0, 25, 3)])
-    ax.set_xlabel("date")
+    ax.set_xlabel(f"date ({check.year.calendar_year})")
     ax.set_ylabel(f"local time of day (h, {check.year.timezone})")
     cb = fig.colorbar(im, ax=ax, extend="both", pad=0.01, fraction=0.04)
     cb.set_label("share of netted demand armed (%)")
@@ -196,7 +198,7 @@ def share_map(check: Check, j: int) -> tuple[Figure, str, str]:
     ax.set_title(f"Block {_block_title(b)}, scenario {check.scenario}: share of netted "
                  f"demand by date and local time of day\nband {b.min_pct:g}-{b.max_pct:g} % "
                  f"(target {b.target_pct:g} %); "
-                 f"{n_out} intervals outside the band; lowest {st.min_share_pct:.1f} %, "
+                 f"{vocab.count(n_out, 'interval')} outside the band; lowest {st.min_share_pct:.1f} %, "
                  f"highest {st.max_share_pct:.1f} % (colours stop at {norm.vmin:g} and "
                  f"{norm.vmax:g} %)", loc="left")
     title = f"Block {b.name}: share of demand by date and time of day ({check.scenario})"
@@ -259,7 +261,7 @@ def duration_curves(cs: ScenarioChecks, before: ScenarioChecks | None
         ax.axhline(b.min_pct, color=palette.BELOW, lw=1.1, ls="solid", label="band minimum")
         ax.axhline(b.target_pct, color=palette.TARGET, lw=0.9, ls="dotted", label="target")
         ax.axhline(b.max_pct, color=palette.ABOVE, lw=1.1, ls="dashed", label="band maximum")
-        verdict = content.block_verdict(v.compliant)
+        verdict = v.status
         ax.set_title(f"{_block_title(b)} - {verdict}\nroom to min {v.headroom_to_min_pp:+.2f} "
                      f"pp, to max {v.headroom_to_max_pp:+.2f} pp", loc="left", fontsize=9,
                      fontweight="normal" if v.compliant else "bold")
@@ -413,8 +415,8 @@ def feeder_classes(check: Check, fc: content.FeederContrib) -> tuple[Figure, str
         ax.set_xticks(x)
         if kp == "at_pos":
             lt = check.year.local_times
-            ax.set_xticklabels([f"{nm}\n{lt[int(cb['t_min'][j])]:%d %b %H:%M}"
-                                for j, nm in enumerate(names)])
+            ax.set_xticklabels([f"{nm}\n{iso_local(lt[int(cb['t_min'][j])])}"
+                                for j, nm in enumerate(names)], fontsize=7)
             ax.set_xlabel("block and the local time of its lowest share")
         else:
             ax.set_xticklabels(names)
@@ -473,7 +475,9 @@ def worst_windows(cs: ScenarioChecks) -> tuple[Figure, str, str]:
     ax = fig.add_subplot()
     year = cs.study.settings.year
     _month_axis(ax, year)
-    ax.set_xlabel("date")
+    ax.set_xlabel(f"date (months of {year}; windows of other calendar years at the same "
+                  "date and time)" if len({c.year.calendar_year for c in cs.checks}) > 1
+                  else f"date ({year})")
     if n == 0:
         ax.set_yticks([])
         ax.text(0.5, 0.5, "No interval lies outside any block's band.", transform=ax.transAxes,
@@ -491,10 +495,10 @@ def worst_windows(cs: ScenarioChecks) -> tuple[Figure, str, str]:
             ax.plot([x0, x1], [yv, yv], color=color, lw=6, solid_capstyle="butt")
             ax.plot([(x0 + x1) / 2], [yv], ls="none", color=color, mec=palette.INK, mew=0.6,
                     marker="v" if below else "^", ms=8)
-            kind = content.KIND_WORDS.get(r.kind, r.kind)
-            end = f"{t1:%H:%M}" if t1.normalize() == t0.normalize() or t1 == \
-                t0.normalize() + pd.Timedelta(days=1) else f"{t1:%a %d %b %H:%M}"
-            labels.append(f"#{r.rank} {r.scenario} {r.block} {kind}: {t0:%a %d %b %H:%M}-"
+            # the window's own ISO 8601 local times (its scenario's year, with the offset)
+            start, end = r.start_local, r.end_local
+            end = end[11:] if end[:10] == start[:10] else end
+            labels.append(f"#{r.rank} {r.scenario} {r.block} {r.status}: {start} to "
                           f"{end}, {r.duration_h:g} h, {r.energy_mwh:.1f} MWh")
         # every window, as a rug under the ranked rows
         all_x = mdates.date2num(_window_times(cs, w, year)[0])
@@ -505,27 +509,43 @@ def worst_windows(cs: ScenarioChecks) -> tuple[Figure, str, str]:
                 ax.plot(all_x[m], np.full(m.sum(), -1.3), ls="none", marker="|", ms=12,
                         mew=1.0, color=color, alpha=0.8)
         ax.set_yticks(list(range(n)) + [-1.3])
-        ax.set_yticklabels(labels[::-1] + [f"start of each of all {len(w)} windows"],
+        rug = ("start of the one window" if len(w) == 1 else
+               f"start of each of all {len(w)} windows")
+        ax.set_yticklabels(labels[::-1] + [rug],
                            fontsize=7.5)
         ax.set_ylim(-2.0, n - 0.3)
         ax.axhline(-0.65, color="#BBBBBB", lw=0.8)
         ax.grid(axis="y", visible=False)
         handles = [Line2D([], [], ls="none", marker="v", color=palette.BELOW, mec=palette.INK,
-                          label="below min (too little load shed)"),
+                          label=f"{vocab.BELOW_BAND} (too little load shed)"),
                    Line2D([], [], ls="none", marker="^", color=palette.ABOVE, mec=palette.INK,
-                          label="above max (too much load shed)")]
+                          label=f"{vocab.ABOVE_BAND} (too much load shed)")]
         fig.legend(handles=handles, loc="outside lower center", ncols=2)
-        ax.set_title(f"The {n} worst windows outside a band (most MWh outside the band first; "
+        ax.set_title("The one window outside a band" if len(w) == 1 else
+                     f"The {n} worst windows outside a band (most MWh outside the band first; "
                      f"{len(w)} windows in all)", loc="left")
     title = "Worst windows on the year's timeline"
-    caption = (f"The {min(TOP_WINDOWS, len(w))} runs of consecutive intervals outside a block's "
-               "band with the most energy outside it, placed on the year (windows of a "
-               "scenario in another calendar year at the same date and time). Each row names "
-               "the scenario, the block, the date and local time, the duration and the MWh "
-               "outside the band; "
-               "the full list is in the windows table below and on the workbook's windows "
-               "sheet.")
+    caption = _windows_caption(len(w))
     return fig, title, caption
+
+
+def _windows_caption(n_all: int) -> str:
+    """The timeline's caption, right for no window, one window and many."""
+    where = ("Each row names the scenario, the block, the local date and time, the duration "
+             "and the MWh outside the band; the full list is in the windows table and on the "
+             "workbook's windows sheet.")
+    if n_all == 0:
+        return ("No run of consecutive intervals lies outside any block's band in any "
+                "scenario, so the timeline is empty.")
+    if n_all == 1:
+        head = "The one run of consecutive intervals outside a block's band"
+    elif n_all <= TOP_WINDOWS:
+        head = f"All {n_all} runs of consecutive intervals outside a block's band"
+    else:
+        head = (f"The {TOP_WINDOWS} runs of consecutive intervals outside a block's band with "
+                f"the most energy outside it (of {n_all} in all)")
+    return (head + ", placed on the year (windows of a scenario in another calendar year at "
+            "the same date and time). " + where)
 
 
 # --------------------------------------------------------------------------------------------

@@ -14,9 +14,10 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
+from .. import __version__, vocab
 from ..check import Check, ScenarioChecks, exporting_feeders
 from ..export import as_set, stacked
+from ..runrecord import SIGN_OFF
 from . import content
 
 #: windows listed in the page (all of them are in the workbook)
@@ -63,12 +64,15 @@ ul.cautions li { margin-bottom: 5px; }
 details { margin: 6px 0 10px; }
 details summary { cursor: pointer; color: var(--muted); }
 .small { font-size: .9em; color: var(--muted); }
+.run-record { border: 1px solid var(--line); padding: 8px 12px; margin: 10px 0; }
+td.hash { font-family: ui-monospace, monospace; font-size: .85em; word-break: break-all; }
+table.sign td.blank { min-width: 14em; height: 2.2em; }
 pre.expl { white-space: pre-wrap; background: #f6f7f8; border: 1px solid var(--line);
            padding: 8px 10px; font-size: .9em; }
 @media print {
   body { max-width: none; padding: 0; font-size: 11pt; }
   h2 { break-after: avoid; }
-  figure, table, .verdict { break-inside: avoid; }
+  figure, table, .verdict, .run-record { break-inside: avoid; }
   div.wide { overflow: visible; }
   table { font-size: 8pt; }
   .caution-strip, .verdict, th, td.below, td.above { -webkit-print-color-adjust: exact;
@@ -116,7 +120,7 @@ def _verdict_box(cs: ScenarioChecks, label: str) -> str:
     from ..check import verdict_covers
 
     ok = cs.compliant
-    word = "COMPLIANT" if ok else "NOT COMPLIANT"
+    word = vocab.headline(ok)
     return (f'<div class="verdict {"ok" if ok else "bad"}"><div class="small">{esc(label)}'
             f'</div><div class="word">{word}</div><p>{esc(content.verdict_words_set(cs))}</p>'
             f'<p class="small">{esc(verdict_covers(cs))}</p></div>')
@@ -134,7 +138,8 @@ def _scenario_table(cs: ScenarioChecks) -> str:
                     f"{_td(c.year.calendar_year, 'd')}{_td(100 * c.all_in_band_fraction, '.1f')}"
                     f"{_td(c.worst_violation_pp, '.2f')}"
                     f'<td class="{"good" if c.compliant else "bad"}">'
-                    f'{"compliant" if c.compliant else "not compliant: " + esc(", ".join(bad))}'
+                    f'{vocab.compliance_word(c.compliant)}'
+                    f'{": " + esc(", ".join(bad)) if bad else ""}'
                     "</td></tr>")
     return _table(heads, rows)
 
@@ -151,11 +156,14 @@ def _settings_table(check: Check) -> str:
 
 
 def _block_table(cs: ScenarioChecks, before: ScenarioChecks | None) -> str:
-    heads = ["scenario", "block", "band %", "lowest %", "P5 %", "mean %", "P95 %", "highest %",
-             "room above min pp", "room below max pp", "intervals below min",
-             "intervals above max", "shortfall MWh", "verdict"]
+    rp = content.rule_percentiles(cs.study.settings)
+    extra = rp is not None and rp[0] != "P5"
+    heads = ["scenario", "block", "band %", "lowest %", "P5 %", "mean %", "P95 %", "highest %"]
+    heads += [f"{rp[0]} % (the rule's)", f"{rp[1]} % (the rule's)"] if extra else []
+    heads += ["room above min pp", "room below max pp", "intervals below min",
+              "intervals above max", "shortfall MWh", "status"]
     if before is not None:
-        heads += ["current: lowest %", "current: intervals below min", "current: verdict"]
+        heads += ["current: lowest %", "current: intervals below min", "current: status"]
     prev = {c.scenario: c for c in before.checks} if before is not None else {}
     rows = []
     for c in cs.checks:
@@ -163,20 +171,22 @@ def _block_table(cs: ScenarioChecks, before: ScenarioChecks | None) -> str:
             lo, hi = s.min_pct, s.max_pct
             cells = [f"<td>{esc(c.scenario)}</td><td>{esc(s.block)}</td>",
                      f'<td class="n">{_n(lo, "g")}-{_n(hi, "g")}</td>']
-            for v in (s.min_share_pct, s.p5_share_pct, s.mean_share_pct, s.p95_share_pct,
-                      s.max_share_pct):
+            shown = [s.min_share_pct, s.p5_share_pct, s.mean_share_pct, s.p95_share_pct,
+                     s.max_share_pct]
+            shown += [s.rule_low_share_pct, s.rule_high_share_pct] if extra else []
+            for v in shown:
                 cells.append(_td(v, ".2f", _band_cls(v, lo, hi)))
             cells += [_td(s.headroom_to_min_pp, "+.2f"), _td(s.headroom_to_max_pp, "+.2f"),
                       _td(s.intervals_below_min, "d"), _td(s.intervals_above_max, "d"),
                       _td(s.shortfall_mwh, ".1f"),
                       f'<td class="{"good" if s.compliant else "bad"}">'
-                      f'{content.block_verdict(s.compliant)}</td>']
+                      f'{esc(s.status)}</td>']
             if c.scenario in prev:
                 bs = prev[c.scenario].stats[k]
                 cells += [_td(bs.min_share_pct, ".2f", _band_cls(bs.min_share_pct, lo, hi)),
                           _td(bs.intervals_below_min, "d"),
                           f'<td class="{"good" if bs.compliant else "bad"}">'
-                          f'{content.block_verdict(bs.compliant)}</td>']
+                          f'{esc(bs.status)}</td>']
             elif before is not None:
                 cells += ["<td></td>"] * 3
             rows.append("<tr>" + "".join(cells) + "</tr>")
@@ -191,20 +201,20 @@ def _windows(check: ScenarioChecks) -> str:
     w = content.windows_table(check)
     if w.empty:
         return "<p>No interval lies outside any block's band in any scenario.</p>"
-    heads = ["rank", "scenario", "block", "kind", "start (local)", "end (local)", "hours",
+    heads = ["rank", "scenario", "block", "status", "start (local)", "end (local)", "hours",
              "worst share %", "band limit %", "MWh outside band"]
     rows = []
     for r in w.head(WINDOWS_SHOWN).itertuples():
-        cls = "below" if r.kind == "below min" else "above"
+        cls = "below" if r.kind == "below_min" else "above"
         rows.append(f"<tr>{_td(r.rank, 'd')}<td>{esc(r.scenario)}</td><td>{esc(r.block)}</td>"
-                    f"<td>{esc(r.kind)}</td>"
+                    f"<td>{esc(r.status)}</td>"
                     f"<td>{esc(r.start_local)}</td><td>{esc(r.end_local)}</td>"
                     f"{_td(r.duration_h, 'g')}{_td(r.worst_share_pct, '.2f', cls)}"
                     f"{_td(r.band_pct, 'g')}{_td(r.energy_mwh, '.1f')}</tr>")
     more = (f'<p class="small">{len(w)} windows in all; the {WINDOWS_SHOWN} with the most MWh '
             "outside the band are listed. The full list is on the workbook's windows sheet."
             "</p>" if len(w) > WINDOWS_SHOWN else
-            f'<p class="small">{len(w)} windows in all.</p>')
+            f'<p class="small">{vocab.count(len(w), "window")} in all.</p>')
     return _table(heads, rows) + more
 
 
@@ -222,7 +232,8 @@ def _exports(check: ScenarioChecks, limit: int = 15) -> str:
                     f"{_td(r.exporting_hours, 'g')}{_td(r.most_export_mw, '.2f')}"
                     f"<td>{esc(r.most_export_local_time)}</td>"
                     f"{_td(r.negative_contribution_mwh, '.1f')}</tr>")
-    note = (f"<p>{len(df)} (scenario, armed feeder) pairs export at some interval (PV above "
+    note = (f"<p>{vocab.count(len(df), '(scenario, armed feeder) pair')} "
+            f"{'exports' if len(df) == 1 else 'export'} at some interval (PV above "
             "load). On a standard "
             "relay an exporting feeder lowers its block's share: tripping it would raise the "
             "system's net load. A direction-blocked relay does not trip it while it exports."
@@ -245,14 +256,32 @@ def _plan(plan_info: dict | None) -> str:
         out.append("<p>Why the plan looks as it does:</p><ul>"
                    + "".join(f"<li>{esc(x)}</li>" for x in pt.explanation) + "</ul>")
     if pt.key:
-        out.append(_kv(pt.key))
+        out.append(_kv([(f.label, f.text()) for f in pt.key]))
     if pt.notes:
-        out.append("<p>Solver notes:</p><ul>"
+        out.append("<p>Planner notes:</p><ul>"
                    + "".join(f"<li>{esc(x)}</li>" for x in pt.notes) + "</ul>")
     if pt.details:
-        out.append("<details><summary>Solver details (plan.json)</summary>"
-                   + _kv(pt.details) + "</details>")
+        out.append("<details><summary>How the planner got there</summary>"
+                   + _kv([(f.label, f.text()) for f in pt.details]) + "</details>")
     return "".join(out)
+
+
+def _run_record(run: dict | None) -> str:
+    """The run record (run.json) and a printable sign-off box with blank lines."""
+    if not run:
+        return ""
+    rows = "".join(f"<tr><td>{esc(f['role'])}</td><td>{esc(f['name'])}</td>"
+                   f'<td class="hash">{esc(f["sha256"])}</td></tr>'
+                   for f in run.get("inputs", []))
+    sign = "".join(f'<tr><th>{esc(who)}</th><td class="blank"></td><td class="blank"></td>'
+                   '<td class="blank"></td></tr>' for who in SIGN_OFF)
+    return ('<div class="run-record">'
+            + _kv([("tool and version", f"{run.get('tool', '')} {run.get('version', '')}"),
+                   ("run time (local, ISO 8601)", run.get("run_time", "")),
+                   ("command line", run.get("command_line") or "(called from Python)")])
+            + _table(["input", "file", "SHA-256"], [rows])
+            + '<table class="sign"><thead><tr><th>sign-off</th><th>name</th><th>date</th>'
+            f"<th>signature</th></tr></thead><tbody>{sign}</tbody></table></div>")
 
 
 def _figures(figs) -> str:
@@ -312,16 +341,26 @@ def _frequency(freq: dict | None) -> str:
 
 def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray | None = None,
                 plan_info: dict | None = None, before: Check | ScenarioChecks | None = None,
-                frequency: dict | None = None) -> str:
+                frequency: dict | None = None, run: dict | None = None) -> str:
     cs = as_set(checks)
     before = as_set(before) if before is not None else None
-    check = cs.checks[0]
-    s = check.study.settings
     what = ("a planned allocation" if plan_info else
             "a proposed assignment" if previous_idx is not None else
             "the workbook's current allocation")
+    parts = _page_head(cs, what) + [
+        "<h2>Verdict</h2>",
+        _verdict_box(cs, "Planned allocation (after)" if before is not None
+                     else "Allocation checked"),
+    ]
+    return _render_rest(parts, cs, figs, previous_idx, plan_info, before, frequency, run)
+
+
+def _page_head(cs: ScenarioChecks, what: str) -> list[str]:
+    """The page's head, title, one-line description and caution strip."""
+    check = cs.checks[0]
+    s = check.study.settings
     title = f"UFLS armed-load report - {s.utility}, study year {s.year}"
-    parts = [
+    return [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
@@ -339,11 +378,13 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
         "local rules require. These results are indicative planning support; the system "
         "operator's requirements, local codes and licensed engineering practice govern. "
         "Verify relay settings before any change in the field. See the cautions at the end."
-        "</div>",
-        "<h2>Verdict</h2>",
-        _verdict_box(cs, "Planned allocation (after)" if before is not None
-                     else "Allocation checked"),
-    ]
+        "</div>"]
+
+
+def _render_rest(parts, cs, figs, previous_idx, plan_info, before, frequency, run) -> str:
+    """Everything after the verdict box, in page order; returns the page."""
+    check = cs.checks[0]
+    s = check.study.settings
     if before is not None:
         parts.append(_verdict_box(before, "Current allocation (before)"))
         parts.append(f"<p>Worst distance outside a band over every scenario: "
@@ -353,7 +394,9 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
     parts.append(_scenario_table(cs))
     if previous_idx is not None:
         n = int(np.sum(np.asarray(previous_idx) != check.block_idx))
-        parts.append(f"<p>{n} feeders change block compared with the current allocation.</p>")
+        parts.append(f"<p>{vocab.count(n, 'feeder').capitalize()} "
+                     f"{'changes' if n == 1 else 'change'} block compared with the current "
+                     "allocation.</p>")
     parts.append(f"<p>{esc(content.priority_summary(check).words(s.priority_policy))}</p>")
     parts.append(_plan(plan_info))
     parts.append("<h3>Per block</h3>")
@@ -380,6 +423,9 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
         parts.append(f"<h2>Warnings ({len(warns)})</h2><ul>"
                      + "".join(f"<li>{esc(w)}</li>" for w in warns[:200]) + "</ul>"
                      + (f"<p>... and {len(warns) - 200} more.</p>" if len(warns) > 200 else ""))
+    if run:
+        parts.append("<h2>Run record</h2>")
+        parts.append(_run_record(run))
     parts.append("<h2>Cautions</h2><ul class=\"cautions\">"
                  + "".join(f"<li>{esc(c)}</li>" for c in content.CAUTIONS) + "</ul>")
     parts.append("</body></html>\n")
@@ -389,8 +435,8 @@ def render_html(checks: Check | ScenarioChecks, figs, previous_idx: np.ndarray |
 def write_html(check: Check | ScenarioChecks, path: Path, figs,
                previous_idx: np.ndarray | None = None, plan_info: dict | None = None,
                before: Check | ScenarioChecks | None = None,
-               frequency: dict | None = None) -> Path:
+               frequency: dict | None = None, run: dict | None = None) -> Path:
     path = Path(path)
-    path.write_text(render_html(check, figs, previous_idx, plan_info, before, frequency),
-                    encoding="utf-8")
+    path.write_text(render_html(check, figs, previous_idx, plan_info, before, frequency,
+                                run), encoding="utf-8")
     return path

@@ -16,6 +16,7 @@ with openpyxl instead (slow but equivalent).
 
 from __future__ import annotations
 
+import datetime
 import io
 import math
 import re
@@ -30,6 +31,7 @@ from openpyxl.styles import Alignment, Border, Font, PatternFill, Side
 from openpyxl.utils import get_column_letter
 from openpyxl.worksheet.worksheet import Worksheet
 
+from .. import vocab
 from . import palette
 
 #: Excel's longest cell text
@@ -59,9 +61,20 @@ def put_text(ws: Worksheet, row: int, col: int, value: object):
 
 
 def put(ws: Worksheet, row: int, col: int, value: object, fmt: str | None = None):
-    """Write a number (None/NaN left empty) or, for anything else, text via :func:`put_text`."""
+    """Write a number (None/NaN left empty), a boolean as the text yes/no (one way for every
+    boolean a person reads: allocator.vocab), a datetime (naive wall-clock time, see
+    :mod:`allocator.timefmt`) as a date cell, or anything else as text via
+    :func:`put_text`."""
     if isinstance(value, (bool, np.bool_)):
-        cell = ws.cell(row=row, column=col, value=bool(value))
+        cell = put_text(ws, row, col, vocab.yes_no(value))
+    elif isinstance(value, (pd.Timestamp, np.datetime64, datetime.datetime)):
+        ts = pd.Timestamp(value)
+        if ts.tzinfo is not None:
+            raise ValueError("write local or UTC wall-clock times without a time zone")
+        cell = ws.cell(row=row, column=col)
+        if not pd.isna(ts):
+            cell.value = ts.to_pydatetime()
+            cell.number_format = "yyyy-mm-dd hh:mm"
     elif isinstance(value, (int, float, np.integer, np.floating)):
         f = float(value)
         cell = ws.cell(row=row, column=col)
@@ -78,7 +91,8 @@ def put(ws: Worksheet, row: int, col: int, value: object, fmt: str | None = None
 
 @dataclass
 class Col:
-    """One table column: header text, values, kind (num/int/text/date/bool), number format."""
+    """One table column: header text, values, kind (num/int/text/date/bool), number format.
+    ``bool`` columns are written as the text yes/no (:mod:`allocator.vocab`)."""
 
     header: str
     values: Sequence
@@ -134,7 +148,7 @@ def _style_proto(cell, col: Col) -> None:
         cell.number_format = col.fmt
     elif col.kind == "date":
         cell.number_format = "yyyy-mm-dd hh:mm"
-    if col.kind == "text":
+    if col.kind in ("text", "bool"):
         # quotePrefix (ECMA-376 §18.8.45 xf): Excel keeps the cell text even when edited
         cell.quotePrefix = True
 
@@ -154,10 +168,8 @@ def table_sheet(wb, title: str, cols: list[Col], freeze: str = "A2",
             HEADER_BORDER
         ws.column_dimensions[get_column_letter(j)].width = _width(c)
         proto = ws.cell(row=2, column=j)
-        if c.kind == "text":
+        if c.kind in ("text", "bool"):
             put_text(ws, 2, j, "x")
-        elif c.kind == "bool":
-            proto.value = False
         else:
             proto.value = 0
         _style_proto(proto, c)
@@ -204,16 +216,9 @@ def _cells(col: Col, letter: str, style: str, first: int) -> list[str]:
                     for r, x, g in zip(rows, vals, ok)]
         return [f'<c r="{letter}{r}"{s_attr}><v>{x!r}</v></c>' if g else ""
                 for r, x, g in zip(rows, vals, ok)]
-    if col.kind == "bool":
-        out = []
-        for r, v in zip(rows, col.values):
-            if v is None or (isinstance(v, float) and math.isnan(v)):
-                out.append("")
-            else:
-                out.append(f'<c r="{letter}{r}"{s_attr} t="b"><v>{1 if bool(v) else 0}</v></c>')
-        return out
+    values = [vocab.yes_no(v) for v in col.values] if col.kind == "bool" else col.values
     out = []
-    for r, v in zip(rows, col.values):
+    for r, v in zip(rows, values):
         if v is None or (isinstance(v, float) and math.isnan(v)):
             out.append("")
             continue
@@ -273,9 +278,14 @@ def _slow_fill(table: Table) -> None:
                     put_text(ws, 2 + k, j, v)
                     cell.quotePrefix = True
             elif c.kind == "bool":
-                cell.value = None if v is None else bool(v)
+                t = vocab.yes_no(v)
+                if t:
+                    put_text(ws, 2 + k, j, t)
+                    cell.quotePrefix = True
+                else:
+                    cell.value = None
             elif c.kind == "date":
-                cell.value = v
+                cell.value = None if pd.isna(v) else v
             else:
                 f = float(v) if v is not None else math.nan
                 cell.value = (int(f) if c.kind == "int" else f) if math.isfinite(f) else None

@@ -870,8 +870,8 @@ def _(d):
 
 
 @case("metered_duplicate_timestamp", "metered", "F03's 05:00 reading appears twice",
-      Expect(M, None, ml(6, 0), "timestamp", "second reading for feeder 'F03' at 2025-01-01 "
-             f"05:00 (local); the first is on line {ml(5, 3)}"))
+      Expect(M, None, ml(6, 0), "timestamp", "second reading for feeder 'F03' at "
+             f"2025-01-01T05:00+01:00 (local); the first is on line {ml(5, 3)}"))
 def _(d):
     rows = metered_rows()
     rows.insert(ml(6, 0) - 2, list(rows[ml(5, 3) - 2]))
@@ -961,8 +961,8 @@ def _(d):
 
 
 @case("metered_out_of_order", "metered", "F00's 06:00 and 05:00 readings swapped",
-      Expect(M, None, ml(6, 0), "timestamp", "timestamp 2025-01-01 05:00 (local) of feeder "
-             "'F00' comes after a reading for 2025-01-01 06:00; each feeder's readings must be "
+      Expect(M, None, ml(6, 0), "timestamp", "timestamp 2025-01-01T05:00+01:00 (local) of "
+             "feeder 'F00' comes after a reading for 2025-01-01T06:00+01:00; each feeder's readings must be "
              "in time order"))
 def _(d):
     rows = metered_rows()
@@ -998,7 +998,7 @@ def _(d):
       Expect(W, "settings", None, "value", "gap_fill is 'error' but the metered data has gaps "
              "in 10 series"),
       *[Expect(M, None, None, "mw", f"{f}: 1 gap (8712 intervals, 8712 h) without a reading, "
-               "local time: 2025-01-03 00:00 to 2026-01-01 00:00") for f in FIDS])
+               "local time: 2025-01-03T00:00+01:00 to 2026-01-01T00:00+01:00") for f in FIDS])
 def _(d):
     return write_m(d, settings={"gap_fill": "error"})
 
