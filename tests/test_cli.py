@@ -66,7 +66,7 @@ def test_plan_writes_files_and_check(wb, tmp_path, monkeypatch):
     assert info["feeders_changed"] == changed
     # the field files: statement with the check, work list (one row per relay changed) and
     # visit order (one row per substation visited, after the network now) beside plan.csv
-    assert (out / "check" / "statement.csv").is_file()
+    assert (out / "statement.csv").is_file()
     wl = pd.read_csv(out / "work_list.csv", keep_default_na=False)
     vo = pd.read_csv(out / "visit_order.csv", keep_default_na=False)
     assert len(wl) == info["relays_changed"]

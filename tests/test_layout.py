@@ -21,7 +21,7 @@ from allocator.cli import main
 from smallnet import write_small_study
 
 CHECK = {"summary.json", "armed_load.csv", "shortfalls.csv", "exporting_feeders.csv",
-         "by_substation.csv", "low_load.csv", "report.xlsx", "run.json"}
+         "by_substation.csv", "low_load.csv", "report.xlsx", "run.json", "statement.csv"}
 
 
 def _ls(d: Path) -> set[str]:
@@ -59,7 +59,8 @@ def test_check_folder(runs):
 
 def test_plan_folder_is_a_check_folder_plus_the_plan_and_current(runs):
     plan = runs / "plan"
-    assert _ls(plan) == CHECK | {"plan.csv", "plan.json", "current/"}
+    assert _ls(plan) == CHECK | {"plan.csv", "plan.json", "work_list.csv",
+                           "visit_order.csv", "current/"}
     assert _ls(plan / "current") == CHECK
     # the top reports the planned allocation, current/ the workbook's current one
     assert _blocks(plan) == _blocks(runs / "recheck")

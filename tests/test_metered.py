@@ -655,16 +655,16 @@ def test_problems_across_batches_keep_their_lines(tmp_path, tiny_batches):
         read_metered(write_text(tmp_path / "twice.csv", lines), study, ts)
     got = problems(ei.value)
     assert got == [
-        (74, "timestamp", "second reading for feeder 'F01' at 2025-01-01 11:00 (local); the "
+        (74, "timestamp", "second reading for feeder 'F01' at 2025-01-01T11:00+01:00 (local); the "
                           "first is on line 12"),
-        (75, "timestamp", "second reading for feeder 'F01' at 2025-01-01 12:00 (local); the "
+        (75, "timestamp", "second reading for feeder 'F01' at 2025-01-01T12:00+01:00 (local); the "
                           "first is on line 13"),
-        (76, "timestamp", "second reading for feeder 'F01' at 2025-01-01 13:00 (local); the "
+        (76, "timestamp", "second reading for feeder 'F01' at 2025-01-01T13:00+01:00 (local); the "
                           "first is on line 14"),
-        (79, "timestamp", "second reading for feeder 'F01' at 2025-01-04 06:00 (local); the "
+        (79, "timestamp", "second reading for feeder 'F01' at 2025-01-04T06:00+01:00 (local); the "
                           "first is on line 77"),
-        (78, "timestamp", "timestamp 2025-01-04 04:00 (local) of feeder 'F01' comes after a "
-                          "reading for 2025-01-04 06:00; each feeder's readings must be in "
+        (78, "timestamp", "timestamp 2025-01-04T04:00+01:00 (local) of feeder 'F01' comes after a "
+                          "reading for 2025-01-04T06:00+01:00; each feeder's readings must be in "
                           "time order")]
 
 
@@ -756,9 +756,9 @@ def test_wide_problems_name_row_and_feeder_column(tmp_path):
         (1, None, "column 6 has no name in the header; name it after its feeder"),
         (3, "F01", "mw 'abc' is not a finite number"),
         (5, "F00", "mw 'inf' is not a finite number"),
-        (4, "timestamp", "second row for 2025-01-01 02:00 (local); the first is on line 3"),
-        (5, "timestamp", "timestamp 2025-01-01 01:30 (local) comes after a row for "
-                         "2025-01-01 02:00; rows must be in time order")]
+        (4, "timestamp", "second row for 2025-01-01T02:00+01:00 (local); the first is on line 3"),
+        (5, "timestamp", "timestamp 2025-01-01T01:30+01:00 (local) comes after a row for "
+                         "2025-01-01T02:00+01:00; rows must be in time order")]
 
 
 def test_wide_blank_cells_are_gaps_not_errors(tmp_path):

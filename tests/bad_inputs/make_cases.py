@@ -855,7 +855,7 @@ def _(d):
 
 @case("metered_wide_row_twice", "metered",
       "a wide file with the row for 05:00 written twice",
-      Expect(M, None, 8, "timestamp", "second row for 2025-01-01 05:00 (local); the first is "
+      Expect(M, None, 8, "timestamp", "second row for 2025-01-01T05:00+01:00 (local); the first is "
              "on line 7"))
 def _(d):
     rows = wide_rows()
