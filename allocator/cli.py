@@ -116,8 +116,11 @@ def _checked_allocation(args, console, leaf: str):
     return out, study, years, run_checks(study, years, block_idx, warns), warns
 
 
-def cmd_check(args, console) -> int:
-    from .console import statement_table, verdict_table, warnings, worst_windows
+def write_check(args, console):
+    """The ``check`` command without its console output (``review`` runs it once per study
+    on a Dask worker): read, check, and write the check folder atomically (check files,
+    field files when ``--assignment`` moves relays, reports per ``--format``, run.json).
+    Returns (out, years, the ScenarioChecks, warnings, the VisitOrder or None)."""
     from .export import write_check_files
     from .safeio import atomic_dir
 
@@ -133,6 +136,13 @@ def cmd_check(args, console) -> int:
         _reports(args, chk, tmp,
                  previous_idx=study.current_assignment if args.assignment else None, run=rec)
         _write_run(tmp, rec)
+    return out, years, chk, warns, order
+
+
+def cmd_check(args, console) -> int:
+    from .console import statement_table, verdict_table, warnings, worst_windows
+
+    out, years, chk, warns, order = write_check(args, console)
     verdict_table(console, chk)
     worst_windows(console, chk)
     statement_table(console, chk)
@@ -476,6 +486,68 @@ def cmd_demo(args, console) -> int:
     return EXIT_OK
 
 
+def cmd_review(args, console) -> int:
+    """Every study of FOLDER checked on a Dask cluster into OUT/studies/NAME/, then the
+    fleet summary (fleet_summary.csv/.xlsx, fleet.html) and run.json at the top of OUT.
+    Exit 0 when every study was checked, 1 when any was not (listed with its message)."""
+    from .fleet import find_studies, review
+    from .report import parse_formats
+    from .safeio import atomic_dir, check_out_dir
+
+    if args.workers < 1:
+        from .errors import Problem
+
+        raise InputError([Problem("--workers", f"{args.workers}: give 1 or more")])
+    parse_formats(args.format)  # a bad --format is bad input before anything runs
+    out = Path(args.out) if args.out else Path("outputs") / Path(args.folder).name / "review"
+    studies, _ = find_studies(args.folder)
+    check_out_dir(out, [Path(p) for s in studies for p in (s.workbook, s.metered) if p])
+    with atomic_dir(out) as tmp:
+        with _status(console, f"checking {len(studies)} studies on the cluster", args.quiet):
+            fr = review(args.folder, tmp, args.format, args.scheduler, args.workers)
+        _write_review(fr, tmp, args)
+    _print_review(console, fr)
+    console.print(f"Wrote {out}/")
+    return EXIT_OK if fr.all_checked else EXIT_INTERNAL
+
+
+def _write_review(fr, folder: Path, args) -> None:
+    from .report.fleet import write_fleet_files
+    from .runrecord import review_record
+
+    rec = review_record([e for r in fr.results for e in r.inputs], args.argv,
+                        cluster=fr.cluster, studies=len(fr.results),
+                        studies_not_checked=[r.name for r in fr.results
+                                             if r.status != vocab.STUDY_CHECKED],
+                        wall_seconds=round(fr.seconds, 3), notes=list(fr.notes))
+    write_fleet_files(fr.summary, folder, rec)
+    _write_run(folder, rec)
+
+
+def _print_review(console, fr) -> None:
+    """One row per study: status, verdict, blocks outside their band, the lowest share."""
+    from rich.markup import escape
+
+    from .console import print_table, warnings
+
+    rows = []
+    for r in fr.results:
+        out_of_band = [row["block"] for row in r.rows if row["block_status"] != vocab.IN_BAND]
+        lowest = min(r.rows, key=lambda row: row["min_share_pct"], default=None)
+        rows.append((escape(r.name), escape(r.status),
+                     escape(vocab.compliance_word(r.compliant)) if r.rows else "",
+                     escape(", ".join(out_of_band) or ("none" if r.rows else "")),
+                     "" if lowest is None else f"{lowest['min_share_pct']:.1f}",
+                     f"{r.seconds:.1f}" if r.seconds == r.seconds else ""))
+    print_table(console, f"Fleet review: {len(fr.results)} studies on {escape(fr.cluster)} "
+                f"({fr.seconds:.1f} s)", ["study", "status", "verdict", "blocks out of band",
+                                          "lowest share %", "check s"], rows, right={4, 5})
+    for r in fr.results:
+        if r.status != vocab.STUDY_CHECKED:
+            console.print(f"[red]{escape(r.name)}[/red]: {escape(r.message)}")
+    warnings(console, list(fr.notes))
+
+
 def _demo_inputs(console, step, tmp: Path):
     """The demo's first three stages: the workbook (into tmp/input/ when rebuilt), every
     scenario's year (year_summary.csv) and the current allocation's check (tmp/current/).
@@ -668,6 +740,24 @@ def build_parser() -> argparse.ArgumentParser:
                     help="also examine this local time, e.g. '2025-04-20 13:00' (repeatable)")
     fq.add_argument("--format", help="'none' to skip pictures (default: pictures)")
     fq.set_defaults(func=cmd_frequency)
+
+    rv = sub.add_parser("review", parents=[common], help="check every study of a folder "
+                        "on a Dask cluster",
+                        description="Check every study of FOLDER (NAME.xlsx with an optional "
+                                    "NAME.metered.csv or NAME.metered.parquet) as independent "
+                                    "tasks on Dask, each into OUT/studies/NAME/ as 'check' "
+                                    "writes it, then one fleet summary. Exit 0 when every "
+                                    "study was checked, 1 when any was not.")
+    rv.add_argument("folder", help="folder of study workbooks and their metered files")
+    rv.add_argument("--out", help="output folder (default outputs/<folder>/review/)")
+    rv.add_argument("--workers", type=int, default=2,
+                    help="worker processes of the local cluster (default 2)")
+    rv.add_argument("--scheduler", metavar="ADDRESS",
+                    help="an existing Dask scheduler, e.g. tcp://host:8786 (workers must see "
+                         "the same file paths); default: a local cluster")
+    rv.add_argument("--format", help="each study's reports, as for check (default all; "
+                                     "'none' for CSV/JSON only)")
+    rv.set_defaults(func=cmd_review)
 
     d = sub.add_parser("demo", parents=[common], help="run the whole job on the demo network",
                        description="Run the whole job on the invented demo network.")

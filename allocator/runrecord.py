@@ -73,4 +73,19 @@ def run_record(study, years=(), argv: list[str] | None = None, metered: str | No
     }
 
 
-__all__ = ["run_record", "input_files", "sha256_of", "command_line", "SIGN_OFF"]
+def review_record(inputs, argv: list[str] | None = None, run_time: str | None = None,
+                  **extra) -> dict:
+    """The ``run.json`` of a fleet review: the same fields, ``inputs`` every study's files
+    (each entry names its ``study``), plus ``extra`` (where it ran, how long)."""
+    return {
+        "tool": "ufls-allocator",
+        "version": __version__,
+        "run_time": run_time or iso_now(),
+        "command_line": command_line(argv),
+        "inputs": list(inputs),
+        **extra,
+        **{k.replace(" ", "_"): "" for k in SIGN_OFF},
+    }
+
+
+__all__ = ["run_record", "review_record", "input_files", "sha256_of", "command_line", "SIGN_OFF"]

@@ -34,6 +34,10 @@ WINDOW_KINDS = {"below_min": BELOW_BAND, "above_max": ABOVE_BAND}
 
 YES, NO = "yes", "no"
 
+#: a study of a fleet review (``review``, fleet_summary.csv ``status``): checked, refused
+#: for bad input (its messages follow), or failed (an exception, or its worker was lost)
+STUDY_CHECKED, STUDY_BAD_INPUT, STUDY_FAILED = "checked", "bad input", "failed"
+
 
 def band_status(below: bool, above: bool, compliant: bool | None = None) -> str:
     """``in band`` / ``below band`` / ``above band`` / ``below and above band``.  With

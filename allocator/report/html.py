@@ -373,12 +373,16 @@ def _page_head(cs: ScenarioChecks, what: str) -> list[str]:
         f"{esc(what)}; rule {esc(check.rule)}; scenarios {esc(', '.join(cs.names))}; "
         f"intervals of {check.year.interval_minutes} min; ufls-allocator "
         f"{esc(__version__)}.</p>",
-        '<div class="caution-strip"><strong>Caution:</strong> UFLS disconnects customers. '
-        "Protect priority sites (hospitals, life-support customers, water pumping) as your "
-        "local rules require. These results are indicative planning support; the system "
-        "operator's requirements, local codes and licensed engineering practice govern. "
-        "Verify relay settings before any change in the field. See the cautions at the end."
-        "</div>"]
+        CAUTION_STRIP + " See the cautions at the end.</div>"]
+
+
+#: the caution strip at the top of every page (closed by the caller, which may add a line)
+CAUTION_STRIP = (
+    '<div class="caution-strip"><strong>Caution:</strong> UFLS disconnects customers. '
+    "Protect priority sites (hospitals, life-support customers, water pumping) as your "
+    "local rules require. These results are indicative planning support; the system "
+    "operator's requirements, local codes and licensed engineering practice govern. "
+    "Verify relay settings before any change in the field.")
 
 
 def _render_rest(parts, cs, figs, previous_idx, plan_info, before, frequency, run) -> str:
