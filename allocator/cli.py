@@ -504,7 +504,7 @@ def cmd_review(args, console) -> int:
     check_out_dir(out, [Path(p) for s in studies for p in (s.workbook, s.metered) if p])
     with atomic_dir(out) as tmp:
         with _status(console, f"checking {len(studies)} studies on the cluster", args.quiet):
-            fr = review(args.folder, tmp, args.format, args.scheduler, args.workers)
+            fr = review(args.folder, tmp, args.format, args.scheduler, args.workers, out)
         _write_review(fr, tmp, args)
     _print_review(console, fr)
     console.print(f"Wrote {out}/")

@@ -111,11 +111,13 @@ def find_studies(folder: str | Path) -> tuple[list[StudyFiles], list[str]]:
 # --------------------------------------------------------------------------------------------
 # one task (runs on a worker)
 # --------------------------------------------------------------------------------------------
-def check_args(study: StudyFiles, out: Path, fmt: str | None) -> Namespace:
+def check_args(study: StudyFiles, out: Path, fmt: str | None,
+               shown_out: Path | None = None) -> Namespace:
     """The ``check`` command's arguments for one study, as argparse would give them
-    (``argv`` is the equivalent command line, kept in the study's run.json)."""
+    (``argv`` is the equivalent command line, kept in the study's run.json; it names
+    ``shown_out``, the folder's final place, when ``out`` is inside a temporary folder)."""
     argv = ["check", study.workbook] + (["--metered", study.metered] if study.metered else [])
-    argv += ["--out", str(out)] + (["--format", fmt] if fmt is not None else [])
+    argv += ["--out", str(shown_out or out)] + (["--format", fmt] if fmt is not None else [])
     return Namespace(command="check", workbook=study.workbook, metered=study.metered,
                      assignment=None, scenarios=None, out=str(out), format=fmt, quiet=True,
                      debug=False, argv=argv)
@@ -145,9 +147,11 @@ def _inputs_of(study: StudyFiles) -> tuple[dict, ...]:
     return tuple(out)
 
 
-def check_one(study: StudyFiles, out_root: str, fmt: str | None) -> StudyResult:
-    """Check one study into ``out_root/NAME/`` with the ``check`` command's code.  Bad input
-    and exceptions become a StudyResult with their message; nothing is raised."""
+def check_one(study: StudyFiles, out_root: str, fmt: str | None,
+              shown_root: str | None = None) -> StudyResult:
+    """Check one study into ``out_root/NAME/`` with the ``check`` command's code (run.json
+    names ``shown_root/NAME``).  Bad input and exceptions become a StudyResult with their
+    message; nothing is raised."""
     import json
 
     from .cli import write_check
@@ -160,7 +164,9 @@ def check_one(study: StudyFiles, out_root: str, fmt: str | None) -> StudyResult:
         return failed(vocab.STUDY_BAD_INPUT, study.problem)
     out = Path(out_root) / study.name
     try:
-        _, _, chk, _, _ = write_check(check_args(study, out, fmt), make_console(quiet=True))
+        shown = Path(shown_root) / study.name if shown_root else None
+        _, _, chk, _, _ = write_check(check_args(study, out, fmt, shown),
+                                      make_console(quiet=True))
     except InputError as exc:
         return failed(vocab.STUDY_BAD_INPUT, exc.render())
     except Exception as exc:  # noqa: BLE001 - one study's failure must not stop the others
@@ -175,6 +181,18 @@ def check_one(study: StudyFiles, out_root: str, fmt: str | None) -> StudyResult:
 # --------------------------------------------------------------------------------------------
 # the cluster
 # --------------------------------------------------------------------------------------------
+def _connect(scheduler: str, timeout_s: int = 30):
+    """A Client to a running scheduler; an address that does not answer is bad input."""
+    from dask.distributed import Client
+
+    try:
+        return Client(scheduler, timeout=f"{timeout_s}s")
+    except (OSError, ValueError, TypeError) as exc:
+        raise InputError([Problem("--scheduler", f"{scheduler}: no Dask scheduler answered "
+                                  f"within {timeout_s} s ({type(exc).__name__}); give its "
+                                  "address as tcp://host:8786")]) from exc
+
+
 @contextlib.contextmanager
 def fleet_client(scheduler: str | None = None, workers: int = 2):
     """A dask.distributed Client: to the scheduler at ``scheduler`` (e.g.
@@ -183,7 +201,7 @@ def fleet_client(scheduler: str | None = None, workers: int = 2):
     from dask.distributed import Client, LocalCluster
 
     if scheduler:
-        with Client(scheduler, timeout="30s") as client:
+        with _connect(scheduler) as client:
             yield client
         return
     with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
@@ -198,11 +216,12 @@ def _lost(study: StudyFiles, exc: BaseException) -> StudyResult:
                        inputs=_inputs_of(study))
 
 
-def run_review(client, studies: list[StudyFiles], out_root: Path,
-               fmt: str | None) -> tuple[StudyResult, ...]:
+def run_review(client, studies: list[StudyFiles], out_root: Path, fmt: str | None,
+               shown_root: Path | None = None) -> tuple[StudyResult, ...]:
     """One task per study on ``client``; results in the order of ``studies``."""
+    shown = str(Path(shown_root).resolve()) if shown_root else None
     futures = client.map(check_one, studies, out_root=str(Path(out_root).resolve()), fmt=fmt,
-                         pure=False, key=[f"check-{s.name}-{i}" for i, s in enumerate(studies)])
+                         shown_root=shown, pure=False, key=[f"check-{s.name}-{i}" for i, s in enumerate(studies)])
     out = []
     for s, f in zip(studies, futures):
         try:
@@ -233,13 +252,14 @@ def summary_frame(results) -> pd.DataFrame:
 
 
 def review(folder: str | Path, out: Path, fmt: str | None = None, scheduler: str | None = None,
-           workers: int = 2) -> FleetReview:
-    """Find the studies of ``folder`` and check each into ``out/studies/NAME/``
-    (``out`` must exist; the caller makes it atomic)."""
+           workers: int = 2, final_out: Path | None = None) -> FleetReview:
+    """Find the studies of ``folder`` and check each into ``out/studies/NAME/`` (the
+    caller makes ``out`` atomic; ``final_out`` is where it will be, for the run records)."""
     studies, notes = find_studies(folder)
     t0 = time.perf_counter()
     with fleet_client(scheduler, workers) as client:
         where = scheduler or f"local cluster, {workers} worker processes"
-        results = run_review(client, studies, out / "studies", fmt)
+        results = run_review(client, studies, out / "studies", fmt,
+                             final_out / "studies" if final_out else None)
     return FleetReview(results, summary_frame(results), time.perf_counter() - t0, where,
                        tuple(notes))

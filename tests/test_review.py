@@ -135,6 +135,8 @@ def test_fleet_files_and_run_record(fleet):
     out = d / "out"
     assert {p.name for p in out.iterdir()} == {"fleet_summary.csv", "fleet_summary.xlsx",
                                                "fleet.html", "run.json", "studies"}
+    one = json.loads((out / "studies" / "gamma" / "run.json").read_text(encoding="utf-8"))
+    assert f"--out {out / 'studies' / 'gamma'} " in one["command_line"]  # not the temp folder
     rec = json.loads((out / "run.json").read_text(encoding="utf-8"))
     assert rec["command_line"].startswith("ufls-allocator review ")
     assert rec["studies_not_checked"] == ["broken", "twin"]
