@@ -4,7 +4,8 @@ No arithmetic lives here; every command is a thin shell over functions a noteboo
 call directly (``read_study``, ``build_year``, ``run_check``, ...).
 
 Exit codes: 0 success, 2 bad input (every problem listed, nothing written), 1 internal
-error (one line; the traceback only with ``--debug``), 130 interrupted.
+error (one line; the traceback only with ``--debug``), 130 interrupted.  ``review`` returns 1
+also when any study of the folder could not be checked (the others are written).
 """
 
 from __future__ import annotations

@@ -55,8 +55,12 @@ def _row_html(r: dict, linked: set[str]) -> str:
             f"<td>{esc(r['block'] or '')}</td><td>{esc(r['block_status'] or '')}</td>"
             + _td(r["min_share_pct"]) + f"<td>{esc(r['min_share_scenario'] or '')}</td>"
             f"<td>{esc(r['min_share_local_time'] or '')}</td>" + _td(r["shortfall_mwh"])
-            + f"<td><pre class=\"expl\">{esc(r['message'])}</pre></td>" * bool(r["message"])
-            + "<td></td>" * (not r["message"]) + "</tr>")
+            + _message_td(r["message"]) + "</tr>")
+
+
+def _message_td(message: str | None) -> str:
+    """The study's messages as preformatted text (bad input lists one problem a line)."""
+    return f'<td><pre class="expl">{esc(message)}</pre></td>' if message else "<td></td>"
 
 
 def render_fleet_html(df: pd.DataFrame, run: dict, out: Path) -> str:
