@@ -148,3 +148,33 @@ def test_fleet_files_and_run_record(fleet):
 
     ws = openpyxl.load_workbook(out / "fleet_summary.xlsx")["fleet"]
     assert ws.max_row == len(_summary(d)) + 1
+
+
+def test_existing_scheduler_and_only_failing_studies(tmp_path):
+    """--scheduler ADDRESS: a cluster started beforehand (here a LocalCluster of one
+    process); a folder whose every study fails still writes the summary and exits 1."""
+    from dask.distributed import LocalCluster
+
+    (tmp_path / "s").mkdir()
+    (tmp_path / "s" / "empty.xlsx").write_bytes(b"")
+    with LocalCluster(n_workers=1, threads_per_worker=1, dashboard_address=None) as cl:
+        rc = main(["review", str(tmp_path / "s"), "--out", str(tmp_path / "o"),
+                   "--scheduler", cl.scheduler_address] + FMT)
+    assert rc == 1
+    df = pd.read_csv(tmp_path / "o" / "fleet_summary.csv", keep_default_na=False)
+    assert list(df["study"]) == ["empty"] and list(df["status"]) == ["bad input"]
+    rec = json.loads((tmp_path / "o" / "run.json").read_text(encoding="utf-8"))
+    assert rec["cluster"] == cl.scheduler_address
+
+
+def test_an_exception_in_a_check_is_a_failed_row(tmp_path, monkeypatch):
+    """check_one turns an exception into a 'failed' result with its type and message."""
+    import allocator.cli
+    from allocator.fleet import StudyFiles, check_one
+
+    def boom(*a, **k):
+        raise RuntimeError("disk full\nsecond line")
+    monkeypatch.setattr(allocator.cli, "write_check", boom)
+    r = check_one(StudyFiles("x", str(write_small_study(tmp_path))), str(tmp_path / "o"), None)
+    assert (r.status, r.message, r.rows) == ("failed", "RuntimeError: disk full", ())
+    assert [e["name"] for e in r.inputs] == ["small.xlsx"]
