@@ -272,7 +272,7 @@ def build_year(study: Study, metered: "MeteredData | None" = None,
     span = None if metered is None else metered.span
     if span is not None:
         info.update(_coverage(cal, span, s.timezone))
-        notes.append(_coverage_note(name, info))
+        notes += [n for n in (_coverage_note(info),) if n]
     return Year(cal.timestamps_utc, s.timezone, s.interval_minutes, study.feeder_ids, net,
                 demand, cal.pv_pu, cal.season_index, cal.day_type_index, source,
                 tuple(flags), tuple(notes), name, info, span)
@@ -292,12 +292,12 @@ def _coverage(cal: Calendar, span: tuple[int, int], tz: str) -> dict:
             "judged_to": iso_local(ts[max(b, 1) - 1] + step, tz)}
 
 
-def _coverage_note(name: str, info: dict) -> str:
+def _coverage_note(info: dict) -> str | None:
     if not info["partial"]:
-        return f"{name}: metered data over the whole calendar year {info['year']}"
-    return (f"{name}: partial year, judged only on its metered data span from "
-            f"{info['judged_from']} to {info['judged_to']} ({info['judged_intervals']:,} "
-            f"intervals, {info['coverage_pct']:.1f} % of {info['year']})")
+        return None
+    return (f"partial year: judged only on its metered data span from {info['judged_from']} "
+            f"to {info['judged_to']} ({info['judged_intervals']:,} intervals, "
+            f"{info['coverage_pct']:.1f} % of {info['year']})")
 
 
 def year_summary(study: Study, year: Year) -> pd.DataFrame:

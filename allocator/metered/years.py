@@ -216,10 +216,11 @@ def _pair_overlap(study, a, b, pa, pb, grid) -> list[Problem]:
     la = _lines_at(pa, study, grid, rows[shown], end)
     lb = _lines_at(pb, study, grid, rows[shown], end)
     ids = series_ids(study)
+    year = grid[0].tz_convert(study.settings.timezone).year
     at = local_text(ts[c0[shown]], study.settings.timezone)
     probs = [Problem(str(pb), f"{ids[r]}: the interval from {t} has a reading in {pa} "
                      f"(line {x}) and in {pb} (line {y}); {k} interval{'s' if k != 1 else ''} "
-                     f"of {ids[r]} in {grid[0].year} are in both files; a series' interval "
+                     f"of {ids[r]} in {year} are in both files; a series' interval "
                      "may come from one file only", None, y, "timestamp")
              for r, t, x, y, k in zip(rows[shown], at, la, lb, n[shown])]
     if len(rows) > MAX_LISTED:
