@@ -187,7 +187,10 @@ class Check:
             cols[f"{b.name}_mw"] = self.armed_mw[j]
             cols[f"{b.name}_pct"] = self.share_pct[j]
             cols[f"{b.name}_cum_pct"] = self.cum_share_pct[j]
-        return pd.DataFrame(cols)
+        df = pd.DataFrame(cols)
+        if y.judged_span is not None:  # a partial metered year: its data span only
+            df = df.iloc[slice(*y.judged_span)].reset_index(drop=True)
+        return df
 
 
 def band_violation_relative(share: np.ndarray, blocks: tuple[Block, ...]) -> np.ndarray:

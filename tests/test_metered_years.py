@@ -174,6 +174,8 @@ def test_partial_year_judged_on_its_data_span(files, tmp_path):
     assert chk.checks[0].valid.sum() == n_judged
     assert not any(f.flag == "gaps_filled" for f in y24.flags)  # outside the span: no gap
     assert not years[1].scenario_info["partial"]
+    table = chk.checks[0].armed_load_table()  # armed_load.csv: the judged span only
+    assert len(table) == n_judged and table.local_time.iloc[0] == "2024-07-01T00:00+02:00"
 
 
 def test_stray_reading_of_next_year_keeps_the_one_year_path(tmp_path):
