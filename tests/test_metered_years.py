@@ -96,6 +96,26 @@ def test_one_file_over_two_years_equals_two_files(files):
     assert [s["intervals"] for s in one["scenarios"]] == [8784, 8760]  # leap year 2024
 
 
+def test_scenario_names_select_metered_years(files):
+    study = read_study(files["wb"])
+    mets = read_metered_years([files["y24"], files["y25"]], study)
+    assert [m.year for m in mets] == [2024, 2025]
+    assert [y.scenario for y in build_years(study, mets, ["metered 2025"])] == \
+        ["metered 2025"]
+    assert [y.scenario for y in build_years(study, mets, ["no_pv", "metered"])] == \
+        ["no_pv", "metered 2024", "metered 2025"]
+
+
+def test_run_record_lists_every_metered_file(files, tmp_path):
+    out = tmp_path / "o"
+    assert main(["check", files["wb"], "--metered", files["y24"], "--metered", files["y25"],
+                 "--scenarios", "metered", "--format", "none", "--out", str(out),
+                 "--quiet"]) == 0
+    run = json.loads((out / "run.json").read_text())
+    assert [i["name"] for i in run["inputs"] if i["role"] == "metered data"] == \
+        ["y24.csv", "y25.csv"]
+
+
 def test_each_year_as_if_checked_on_its_own(files, tmp_path):
     both = files["dir"] / "out_both"
     assert main(["check", files["wb"], "--metered", files["both"], "--scenarios", "metered",

@@ -54,6 +54,8 @@ def read_metered_years(paths, study: Study) -> tuple[MeteredData, ...]:
     years, dropped = data_years(study, [m.reading_span_ns for m in first])
     if len(paths) == 1 and set(years) <= {s.year}:
         return (first[0],)
+    if s.year not in years:
+        first = [None] * len(first)  # the study year's arrays are not needed: release them
     _require_total(study, years)
     out, probs = [], []
     for y in years:
