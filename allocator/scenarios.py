@@ -64,14 +64,27 @@ def build_years(study: Study, metered=None,
     years = [build_year(study, scenario=sc) for sc in selected_scenarios(study, names)]
     mets = () if metered is None else (metered,) if not isinstance(metered, (tuple, list)) \
         else tuple(metered)
-    for m in mets:
-        if _metered_wanted(m, names):
-            years.append(build_year(study, m))
+    years += _metered_years(study, [m for m in mets if _metered_wanted(m, names)])
     if not years:
         from .errors import InputError, Problem
 
         raise InputError([Problem("--scenarios", "no scenario selected")])
     return tuple(years)
+
+
+def _metered_years(study: Study, mets: list) -> list[Year]:
+    """Each metered year built; the problems of every year (gap_fill = error) in one list."""
+    from .errors import InputError
+
+    out, probs = [], []
+    for m in mets:
+        try:
+            out.append(build_year(study, m))
+        except InputError as e:
+            probs += e.problems
+    if probs:
+        raise InputError(probs)
+    return out
 
 
 def scenario_rows(years: tuple[Year, ...]) -> list[dict]:

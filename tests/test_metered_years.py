@@ -209,6 +209,20 @@ def test_stray_reading_of_next_year_keeps_the_one_year_path(tmp_path):
     assert any("outside the study year 2025 ignored" in n for n in years[0].notes)
 
 
+def test_gap_fill_error_lists_the_gaps_of_every_year(tmp_path):
+    feeders = base_feeders(N_F)
+    wb = write_workbook(tmp_path / "e.xlsx", settings=dict(BASE_SETTINGS, gap_fill="error"),
+                        feeders=feeders, profiles=flat_profiles(value=0.7))
+    df = _readings("2024-01-01", "2026-01-01")
+    gone = (df.feeder_id == "F02") & df.timestamp.str.startswith(("2024-05-01", "2025-05-01"))
+    p = _csv(tmp_path / "g.csv", df[~gone])
+    study = read_study(wb)
+    with pytest.raises(InputError) as e:
+        build_years(study, read_metered_years(p, study), ["metered"])
+    text = e.value.render()
+    assert "2024-05-01T00:00+02:00" in text and "2025-05-01T00:00+02:00" in text
+
+
 def test_plan_holds_every_metered_year(files):
     out = files["dir"] / "plan"
     assert main(["plan", files["wb"], "--metered", files["both"], "--scenarios", "metered",
