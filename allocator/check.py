@@ -187,7 +187,10 @@ class Check:
             cols[f"{b.name}_mw"] = self.armed_mw[j]
             cols[f"{b.name}_pct"] = self.share_pct[j]
             cols[f"{b.name}_cum_pct"] = self.cum_share_pct[j]
-        return pd.DataFrame(cols)
+        df = pd.DataFrame(cols)
+        if y.judged_span is not None:  # a partial metered year: its data span only
+            df = df.iloc[slice(*y.judged_span)].reset_index(drop=True)
+        return df
 
 
 def band_violation_relative(share: np.ndarray, blocks: tuple[Block, ...]) -> np.ndarray:
@@ -227,7 +230,7 @@ def run_check(study: Study, year: Year, block_idx: np.ndarray,
     armed = armed_mw(year.net_mw, study.relay_code, block_idx, nb)
     share = share_pct(armed, year.demand_mw)
     cum = np.cumsum(share, axis=0)
-    valid = year.demand_mw > 0
+    valid = (year.demand_mw > 0) & year.judged  # judged: see Year.judged_span
     h = year.interval_h
     s_rule = study.settings
     local = year.local_times
@@ -474,7 +477,7 @@ def summary_dict(check: Check) -> dict:
         "blocks": blocks,
         "intervals": int(y.n_intervals),
         "interval_minutes": y.interval_minutes,
-        "demand_nonpositive_intervals": int((~check.valid).sum()),
+        "demand_nonpositive_intervals": int(((y.demand_mw <= 0) & y.judged).sum()),
         "worst_violation_pp": check.worst_violation_pp,
         "all_blocks_in_band_pct": 100.0 * check.all_in_band_fraction,
         "data_source": y.source,
@@ -632,13 +635,20 @@ class ScenarioChecks:
         return df.reset_index(drop=True)
 
 
+def statement_checks(checks: ScenarioChecks) -> tuple[Check, ...]:
+    """The scenarios the annual statement is made from: the metered year(s) when there are
+    any (what the scheme really held; one statement per calendar year of metered data),
+    otherwise the first scenario."""
+    met = tuple(c for c in checks.checks if c.year.source == "metered")
+    return met or (checks.checks[0],)
+
+
 def statement_check(checks: ScenarioChecks) -> Check:
-    """The scenario the annual statement is made from: the metered year when there is one
-    (what the scheme really held), otherwise the first scenario."""
-    for c in checks.checks:
-        if c.year.source == "metered":
-            return c
-    return checks.checks[0]
+    """The one statement scenario (work list): the metered year of the study year, else the
+    latest metered year, else the first scenario."""
+    cs = statement_checks(checks)
+    same = [c for c in cs if c.year.calendar_year == checks.study.settings.year]
+    return same[0] if same else cs[-1]
 
 
 def run_checks(study: Study, years, block_idx: np.ndarray,
@@ -658,6 +668,9 @@ def verdict_covers(checks: ScenarioChecks) -> str:
         extra = [f"PV ×{i['pv_scale']:g}"] if i.get("pv_scale", 1.0) != 1.0 else []
         if i.get("load_scale", 1.0) != 1.0:
             extra.append(f"load ×{i['load_scale']:g}")
+        if i.get("partial"):
+            extra.append(f"partial: {i['coverage_pct']:.1f} % of the year judged, "
+                         f"{i['judged_from']} to {i['judged_to']}")
         parts.append(f"{c.scenario} ({pv}, {c.year.calendar_year}"
                      + (", " + ", ".join(extra) if extra else "") + ")")
     return ("The verdict covers these scenarios and no other year: " + "; ".join(parts)

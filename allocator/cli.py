@@ -29,10 +29,10 @@ CURRENT, FREQUENCY = "current", "frequency"
 # --------------------------------------------------------------------------------------------
 # shared steps
 # --------------------------------------------------------------------------------------------
-def _load(workbook: str, metered: str | None, console, quiet: bool,
+def _load(workbook: str, metered, console, quiet: bool,
           scenarios: str | None = None):
-    """Read the workbook (and metered file) and build every scenario's year, with a
-    spinner.  Returns (study, years)."""
+    """Read the workbook (and the metered file or files: a path or a list) and build every
+    scenario's year, with a spinner.  Returns (study, years)."""
     from .scenarios import build_years
     from .workbook import read_study
 
@@ -40,13 +40,10 @@ def _load(workbook: str, metered: str | None, console, quiet: bool,
         study = read_study(workbook)
     met = None
     if metered:
-        from .metered import read_metered
-        from .year import study_intervals
+        from .metered.years import read_metered_years
 
-        s = study.settings
         with _status(console, "reading metered data", quiet):
-            met = read_metered(metered, study,
-                               study_intervals(s.year, s.timezone, s.interval_minutes))
+            met = read_metered_years(metered, study)
     names = [n.strip() for n in scenarios.split(",") if n.strip()] if scenarios else None
     with _status(console, "building the scenarios' years of net load", quiet):
         years = build_years(study, met, names)
@@ -80,8 +77,13 @@ def _default_out(workbook: str, leaf: str) -> Path:
     return Path("outputs") / Path(workbook).stem / leaf
 
 
+def _metered_paths(args) -> list[str]:
+    m = getattr(args, "metered", None)
+    return [] if not m else [m] if isinstance(m, str) else list(m)
+
+
 def _inputs(args) -> list[Path]:
-    return [Path(p) for p in (getattr(args, "workbook", None), getattr(args, "metered", None),
+    return [Path(p) for p in (getattr(args, "workbook", None), *_metered_paths(args),
                               getattr(args, "assignment", None)) if p]
 
 
@@ -171,7 +173,7 @@ def _record(args, study, years) -> dict:
     from .runrecord import run_record
 
     return run_record(study, years, getattr(args, "argv", None),
-                      metered=getattr(args, "metered", None),
+                      metered=_metered_paths(args),
                       assignment=getattr(args, "assignment", None))
 
 
@@ -689,7 +691,9 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("workbook", help="study workbook (.xlsx)")
     c.add_argument("--assignment", help="CSV feeder_id,block (blank = unarmed); default: the "
                                         "workbook's current_block")
-    c.add_argument("--metered", help="metered net load (CSV or Parquet: timestamp,feeder_id,mw)")
+    c.add_argument("--metered", action="append", help="metered net load (CSV or Parquet: "
+                   "timestamp,feeder_id,mw); repeat for several files, each calendar year of "
+                   "the data is a scenario 'metered YYYY'")
     c.add_argument("--scenarios", metavar="NAMES",
                    help="comma list of scenarios to judge (default: all of the workbook's, "
                         "plus 'metered' with --metered)")
@@ -705,7 +709,8 @@ def build_parser() -> argparse.ArgumentParser:
                                     "(mixed-integer model, rounds over the worst intervals), "
                                     "then check the plan.")
     pl.add_argument("workbook", help="study workbook (.xlsx)")
-    pl.add_argument("--metered", help="metered net load (CSV or Parquet)")
+    pl.add_argument("--metered", action="append",
+                    help="metered net load (CSV or Parquet; repeatable)")
     pl.add_argument("--scenarios", metavar="NAMES",
                     help="comma list of scenarios to hold (default: all)")
     pl.add_argument("--objective", choices=("fewest_changes", "closest_to_target"),
@@ -733,7 +738,8 @@ def build_parser() -> argparse.ArgumentParser:
                                     "operator's dynamic studies govern.")
     fq.add_argument("workbook", help="study workbook (.xlsx); optional sheet 'system'")
     fq.add_argument("--assignment", help="CSV feeder_id,block (default: current_block)")
-    fq.add_argument("--metered", help="metered net load (CSV or Parquet)")
+    fq.add_argument("--metered", action="append",
+                    help="metered net load (CSV or Parquet; repeatable)")
     fq.add_argument("--scenarios", metavar="NAMES",
                     help="comma list of scenarios (default: all)")
     fq.add_argument("--out", help="output folder (default outputs/<workbook>/frequency/)")

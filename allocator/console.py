@@ -203,11 +203,14 @@ def statement_table(console: Console, checks) -> None:
     from .statement import statement_table as table
 
     cs = as_set(checks)
-    rows = [(escape(r.block), f"{r.pickup_hz:.2f}", f"{r.delay_s:.2f}",
+    tab = table(cs)
+    several = tab["scenario"].nunique() > 1  # several metered years: name each row's year
+    rows = [(escape(r.block) + (f"\n{escape(r.scenario)}" if several else ""),
+             f"{r.pickup_hz:.2f}", f"{r.delay_s:.2f}",
              f"{r.armed_mean_pct:.1f}", f"{r.armed_min_pct:.1f}", f"{r.armed_p5_pct:.1f}",
              f"{r.armed_p95_pct:.1f}", f"{r.cumulative_mean_pct:.1f}",
              f"{r.lowest_cumulative_pct:.1f}")
-            for r in table(cs).itertuples()]
+            for r in tab.itertuples()]
     print_table(console, "Annual statement to the system operator: pickup frequency and % of "
                 "netted demand armed (Regulation (EU) 2017/2196 Art. 50(1))",
                 ["block", "pickup Hz", "delay s", "mean %", "lowest %", "P5 %", "P95 %",

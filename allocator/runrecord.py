@@ -34,13 +34,13 @@ def file_entry(role: str, path: str | Path) -> dict:
     return {"role": role, "name": p.name, "sha256": sha256_of(p)}
 
 
-def input_files(study, years=(), metered: str | None = None,
+def input_files(study, years=(), metered=None,
                 assignment: str | None = None) -> list[dict]:
     """Every input the run read: the workbook, the metered file, the assignment CSV and the
     weather file of each scenario judged (``study.scenarios[i].weather_file``)."""
     out = [file_entry("workbook", study.path)]
-    if metered:
-        out.append(file_entry("metered data", metered))
+    for m in [metered] if isinstance(metered, (str, Path)) else (metered or ()):
+        out.append(file_entry("metered data", m))
     if assignment:
         out.append(file_entry("assignment", assignment))
     judged = {y.scenario for y in years} or {sc.name for sc in study.scenarios}

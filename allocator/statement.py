@@ -9,9 +9,9 @@ the published text before a statement is sent.)
 
 One function, :func:`statement_table`, builds the table; ``statement.csv``, the ``statement``
 sheet of report.xlsx, the HTML section and the console all show it.  The statement is made
-from one scenario (:func:`allocator.check.statement_check`): the metered year when there is
-one (what the scheme really held), otherwise the first scenario judged; every output says
-which.
+from the metered year when there is one (what the scheme really held; with several metered
+years one statement per calendar year, :func:`allocator.check.statement_checks`), otherwise
+the first scenario judged; every output says which.
 
 Per block: pickup frequency, time delay, RoCoF setting and its arming frequency, and the
 share of netted demand armed over the valid intervals (demand > 0) of that year: mean,
@@ -28,7 +28,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .check import Check, ScenarioChecks, annual_statement, statement_check
+from .check import Check, ScenarioChecks, annual_statement, statement_checks
 from .timefmt import iso_local
 
 CITATION = ("Commission Regulation (EU) 2017/2196, Art. 50(1): the yearly update of the "
@@ -70,12 +70,22 @@ LABELS = dict(COLUMNS)
 
 def statement_basis(checks: ScenarioChecks) -> str:
     """Which scenario the statement is made from and why, in one sentence."""
-    c = statement_check(checks)
+    cs = statement_checks(checks)
+    c = cs[0]
+    if len(cs) > 1:
+        return ("Made from the metered years, one statement per calendar year (scenarios "
+                + ", ".join(f"'{k.scenario}'" + _partial(k) for k in cs)
+                + "): what the scheme really held.")
     if c.year.source == "metered":
         return (f"Made from the metered year (scenario '{c.scenario}', "
                 f"{c.year.calendar_year}): what the scheme really held.")
     return (f"Made from scenario '{c.scenario}' ({c.year.calendar_year}), the first scenario "
             "judged: no metered year was given.")
+
+
+def _partial(c: Check) -> str:
+    i = c.year.scenario_info
+    return f" (partial, {i['coverage_pct']:.1f} % of the year)" if i.get("partial") else ""
 
 
 def _lowest_cumulative_times(check: Check) -> list[str]:
@@ -96,18 +106,18 @@ def statement_table(checks: Check | ScenarioChecks) -> pd.DataFrame:
     :func:`allocator.check.annual_statement`'s."""
     from .export import as_set
 
-    c = statement_check(as_set(checks))
-    why = ("metered year" if c.year.source == "metered" else
-           "first scenario judged (no metered year)")
-    cum = annual_statement(c)
     rows = []
-    for b, s, a, t in zip(c.blocks, c.stats, cum, _lowest_cumulative_times(c)):
-        rows.append((c.scenario, why, b.name, b.order, b.pickup_hz, b.delay_s,
-                     np.nan if b.rocof_hz_per_s is None else b.rocof_hz_per_s,
-                     np.nan if b.rocof_arm_hz is None else b.rocof_arm_hz,
-                     s.mean_share_pct, s.min_share_pct, s.min_share_local_time,
-                     s.p5_share_pct, s.p95_share_pct, a["cumulative_mean_pct"],
-                     a["cumulative_min_pct"], t))
+    for c in statement_checks(as_set(checks)):
+        why = ("metered year" if c.year.source == "metered" else
+               "first scenario judged (no metered year)")
+        cum = annual_statement(c)
+        for b, s, a, t in zip(c.blocks, c.stats, cum, _lowest_cumulative_times(c)):
+            rows.append((c.scenario, why, b.name, b.order, b.pickup_hz, b.delay_s,
+                         np.nan if b.rocof_hz_per_s is None else b.rocof_hz_per_s,
+                         np.nan if b.rocof_arm_hz is None else b.rocof_arm_hz,
+                         s.mean_share_pct, s.min_share_pct, s.min_share_local_time,
+                         s.p5_share_pct, s.p95_share_pct, a["cumulative_mean_pct"],
+                         a["cumulative_min_pct"], t))
     return pd.DataFrame(rows, columns=[k for k, _ in COLUMNS])
 
 

@@ -47,10 +47,24 @@ class Year:
     scenario: str = "clear_sky"
     #: how the scenario was made, for reports: pv kind, scales, calendar year
     scenario_info: dict = field(default_factory=dict)
+    #: ``(first, end)`` intervals judged (a partial metered year, see
+    #: :mod:`allocator.metered.years`); None = every interval
+    judged_span: tuple[int, int] | None = None
 
     @property
     def n_intervals(self) -> int:
         return len(self.timestamps_utc)
+
+    @property
+    def judged(self) -> np.ndarray:
+        """``[interval]`` True where the check judges (all but outside a partial year's
+        data span)."""
+        out = np.ones(self.n_intervals, dtype=bool)
+        if self.judged_span is not None:
+            a, b = self.judged_span
+            out[:a] = False
+            out[b:] = False
+        return out
 
     @property
     def interval_h(self) -> float:
@@ -215,7 +229,8 @@ def build_year(study: Study, metered: "MeteredData | None" = None,
     """
     s = study.settings
     if metered is not None:
-        scenario = None
+        scenario = None if metered.year is None else Scenario(
+            f"metered {metered.year}", "clear_sky", metered.year)
     sc = scenario or REFERENCE_SCENARIO
     cal = study_calendar(study, scenario)
     flags: tuple[FeederFlag, ...] = ()
@@ -249,19 +264,45 @@ def build_year(study: Study, metered: "MeteredData | None" = None,
     net.setflags(write=False)
     demand = np.asarray(demand, dtype=float)
     demand.setflags(write=False)
-    name = "metered" if metered is not None else sc.name
-    info = ({"pv": "metered", "pv_scale": 1.0, "load_scale": 1.0, "year": s.year}
-            if metered is not None else
+    name = sc.name if metered is None or metered.year is not None else "metered"
+    info = ({"pv": "metered", "pv_scale": 1.0, "load_scale": 1.0, "year": sc.year
+             if scenario is not None else s.year} if metered is not None else
             {"pv": sc.pv_text, "pv_scale": sc.pv_scale, "load_scale": sc.load_scale,
              "year": sc.year if scenario is not None else s.year})
+    span = None if metered is None else metered.span
+    if span is not None:
+        info.update(_coverage(cal, span, s.timezone))
+        notes += [n for n in (_coverage_note(info),) if n]
     return Year(cal.timestamps_utc, s.timezone, s.interval_minutes, study.feeder_ids, net,
                 demand, cal.pv_pu, cal.season_index, cal.day_type_index, source,
-                tuple(flags), tuple(notes), name, info)
+                tuple(flags), tuple(notes), name, info, span)
+
+
+def _coverage(cal: Calendar, span: tuple[int, int], tz: str) -> dict:
+    """A metered year's data span for reports: judged intervals, coverage %, first and end
+    local times (ISO 8601 with offset), partial or not."""
+    from .timefmt import iso_local
+
+    a, b = span
+    ts = cal.timestamps_utc
+    step = ts[1] - ts[0]
+    return {"judged_intervals": b - a, "coverage_pct": 100.0 * (b - a) / len(ts),
+            "partial": b - a < len(ts),
+            "judged_from": iso_local(ts[min(a, len(ts) - 1)], tz),
+            "judged_to": iso_local(ts[max(b, 1) - 1] + step, tz)}
+
+
+def _coverage_note(info: dict) -> str | None:
+    if not info["partial"]:
+        return None
+    return (f"partial year: judged only on its metered data span from {info['judged_from']} "
+            f"to {info['judged_to']} ({info['judged_intervals']:,} intervals, "
+            f"{info['coverage_pct']:.1f} % of {info['year']})")
 
 
 def year_summary(study: Study, year: Year) -> pd.DataFrame:
     """One row per feeder: mean/min/max net MW, exporting hours, flags - for the summary CSV."""
-    net = year.net_mw
+    net = year.net_mw if year.judged_span is None else year.net_mw[:, slice(*year.judged_span)]
     h = year.interval_h
     flag_map: dict[str, list[str]] = {}
     for fl in year.flags:

@@ -43,7 +43,8 @@ line numbers; :mod:`.long` / :mod:`.wide` decode a batch (feeder ids by dictiona
 distinct text, :mod:`.columns`, :mod:`.timestamps`) and check its rows (:mod:`.rowchecks`);
 :mod:`.sequence` checks order and duplicates per series; :mod:`.accumulate` scatters the
 readings into the ``[series, interval]`` arrays; :mod:`.align` and :mod:`.quality` finish
-them; :mod:`.merge` fills the gaps into the study year.  Memory: the arrays (10 bytes per
+them; :mod:`.merge` fills the gaps into the study year; :mod:`.years` turns data over several
+calendar years (one file or several) into one result per year.  Memory: the arrays (10 bytes per
 series and interval while reading, 8 after) plus a fixed batch size, whatever the file size.
 """
 

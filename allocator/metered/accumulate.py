@@ -53,6 +53,8 @@ class Accumulator:
         self.pre_mw = np.zeros(n_series)
         self.n_pre = self.n_post = 0
         self.off = OffGrid(z.copy())
+        #: first and last reading start in the file, inside the grid or not (UTC ns)
+        self.t_first, self.t_last = np.iinfo(np.int64).max, NAT
 
     def add(self, code, t, mw, pos, line, first, text) -> None:
         """Good readings grouped by series (time order within a series); ``first`` marks
@@ -60,6 +62,8 @@ class Accumulator:
         ``text(rows)`` the timestamp texts of batch rows (for the off-grid listing)."""
         if not len(code):
             return
+        self.t_first = min(self.t_first, int(t.min()))
+        self.t_last = max(self.t_last, int(t.max()))
         self._spacing(code, t, first)
         i0 = (t - self.ts0) // self.iv_ns
         self._off_grid(code, t - self.ts0 - i0 * self.iv_ns, pos, line, text)

@@ -122,10 +122,14 @@ def merge_metered(study: Study, metered: MeteredData, timestamps_utc: pd.Datetim
     rows_of = _profile_source(profile_net_mw, len(study.feeder_ids), n_iv)
     vals, has = _working_values(study, metered, n_iv)
     runs = metered.gap_runs if metered.gap_runs is not None else gap_runs(vals, has)
+    span = metered.span or (0, n_iv)
+    runs = clip_runs(runs, span)
+    _fill_outside(vals, span, rows_of)
     st = metered.reading_stats
     if st is None:
         st = stats_from_aligned(study, vals, has, ts_ns, iv_ns)
     total, t_r = _total(metered)
+    t_r = clip_runs(t_r, span)
     t_err = t_r if s.demand_basis == "metered_total" else (np.zeros(0, np.int64),) * 3
     if s.gap_fill == "error" and (len(runs[0]) or len(t_err[0])):
         _raise_gaps(study, metered.file, runs, t_err, ts_ns, iv_ns)
@@ -140,6 +144,28 @@ def merge_metered(study: Study, metered: MeteredData, timestamps_utc: pd.Datetim
     notes += q_notes
     flags.sort(key=lambda x: (x[0], x[1]))
     return vals, total, [f for _, _, f in flags], notes
+
+
+def clip_runs(runs, span: tuple[int, int]):
+    """Runs ``(row, first, end)`` cut to the intervals ``span = (first, end)``."""
+    r, c0, c1 = runs
+    a, b = span
+    c0, c1 = np.maximum(c0, a), np.minimum(c1, b)
+    keep = c1 > c0
+    return r[keep], c0[keep], c1[keep]
+
+
+def _fill_outside(vals, span: tuple[int, int], rows_of: ProfileRows) -> None:
+    """A partial year (:mod:`.years`): the intervals outside its data span take the
+    profile-built values (not gaps: they are not judged), FILL_ROWS rows at a time."""
+    a, b = span
+    if a == 0 and b == vals.shape[1]:
+        return
+    for r in range(0, vals.shape[0], FILL_ROWS):
+        rows = np.arange(r, min(r + FILL_ROWS, vals.shape[0]))
+        prof = rows_of(rows)
+        vals[rows, :a] = prof[:, :a]
+        vals[rows, b:] = prof[:, b:]
 
 
 def _fill(vals, has, gap_n, rows_of: ProfileRows, gap_fill: str) -> str:

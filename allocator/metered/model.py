@@ -46,6 +46,11 @@ class MeteredData:
     ``Year.net_mw`` (read-only from then on; ``gap_runs`` still says where the gaps were).
     This keeps a metered year at one ``[feeder, interval]`` array.  Pass
     ``dataclasses.replace(m, values_mw=m.values_mw.copy())`` to keep the raw readings.
+
+    Several metered years (:mod:`.years`): ``year`` is the calendar year of the arrays (None:
+    the study year, the one-year case) and ``span`` the ``(first, end)`` intervals of the
+    data in it, the only ones judged (None: the whole year).  ``reading_span_ns`` = the
+    first and last reading start in the file(s), inside the year or not (UTC ns).
     """
 
     file: str
@@ -60,6 +65,9 @@ class MeteredData:
     gap_runs: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
     layout: str = "long"  # "long" | "wide"
     owns_values: bool = False
+    year: int | None = None
+    span: tuple[int, int] | None = None
+    reading_span_ns: tuple[int, int] | None = None
 
     @property
     def n_feeders_with_data(self) -> int:

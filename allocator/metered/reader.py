@@ -30,8 +30,10 @@ BATCH_OVERHEAD_BYTES = 256 << 20
 
 
 def read_metered(path: str | os.PathLike, study: Study,
-                 timestamps_utc: pd.DatetimeIndex) -> MeteredData:
-    """Read, validate and align a metered file to ``timestamps_utc`` (the study intervals).
+                 timestamps_utc: pd.DatetimeIndex, outside_note: bool = True) -> MeteredData:
+    """Read, validate and align a metered file to ``timestamps_utc`` (the study intervals,
+    or one calendar year of several, :mod:`.years`; ``outside_note`` False drops the note on
+    readings outside it).
 
     Raises :class:`~allocator.errors.InputError` listing every problem found in the file,
     or when the arrays would not fit in the memory available.
@@ -40,10 +42,10 @@ def read_metered(path: str | os.PathLike, study: Study,
     src = open_source(p, Collector(str(p)))
     with memory.reuse_freed_memory():
         try:
-            return _read(src, study, timestamps_utc, exact=False)
+            return _read(src, study, timestamps_utc, False, outside_note)
         except RestartExact:
             pass  # read again below, once the first pass's arrays are released
-        return _read(src, study, timestamps_utc, exact=True)
+        return _read(src, study, timestamps_utc, True, outside_note)
 
 
 class _Plan:
@@ -64,7 +66,8 @@ class _Plan:
                        self.probs.shape, exact, self.wide)
 
 
-def _read(src: Source, study: Study, timestamps_utc, exact: bool) -> MeteredData:
+def _read(src: Source, study: Study, timestamps_utc, exact: bool,
+          outside_note: bool) -> MeteredData:
     pl = _Plan(src, study, timestamps_utc)
     memory.require(pl.ns * pl.n_iv * BYTES_PER_CELL + BATCH_OVERHEAD_BYTES,
                    f"the metered data ({pl.ns:,} series × {pl.n_iv:,} intervals × "
@@ -88,7 +91,7 @@ def _read(src: Source, study: Study, timestamps_utc, exact: bool) -> MeteredData
     seq.emit(col)
     _off_grid(pl, acc, res).emit(col)
     col.raise_if_any()
-    return _finish(pl, acc, res, timestamps_utc)
+    return _finish(pl, acc, res, timestamps_utc, outside_note)
 
 
 def _grouped(code: np.ndarray) -> np.ndarray | None:
@@ -194,14 +197,15 @@ def _off_grid(pl: _Plan, acc: Accumulator, res: np.ndarray) -> Listing:
     return out
 
 
-def _finish(pl: _Plan, acc: Accumulator, res: np.ndarray, timestamps_utc) -> MeteredData:
+def _finish(pl: _Plan, acc: Accumulator, res: np.ndarray, timestamps_utc,
+            outside_note: bool) -> MeteredData:
     study, nf = pl.study, pl.ns - 1
     vals = means_in_place(acc)
     acc.cnt = None
     flat = flat_runs(vals)  # coarse series: measured again with their reading starts
     n_pre_in = hold_coarse(acc, vals, res, study.settings.timezone, flat)
     has_all = acc.n_in > 0
-    notes = _notes(pl, res, has_all, acc.n_pre + acc.n_post - n_pre_in)
+    notes = _notes(pl, res, has_all, (acc.n_pre + acc.n_post - n_pre_in) * outside_note)
     stats = reading_stats(series_ids(study), acc.n_in, acc.min, acc.max, acc.n_high,
                           acc.n_low, flat, pl.ts0, pl.iv_ns)
     values = vals[:nf]
@@ -209,7 +213,8 @@ def _finish(pl: _Plan, acc: Accumulator, res: np.ndarray, timestamps_utc) -> Met
     return MeteredData(pl.file, tuple(study.feeder_ids), values, total, has_all[:nf].copy(),
                        timestamps_utc, study.settings.interval_minutes, tuple(notes), stats,
                        gap_runs(values, has_all[:nf]), "wide" if pl.wide else "long",
-                       owns_values=True)
+                       owns_values=True, reading_span_ns=(
+                           (acc.t_first, acc.t_last) if acc.t_last != NAT else None))
 
 
 def _notes(pl: _Plan, res: np.ndarray, has: np.ndarray, n_out: int) -> list[str]:

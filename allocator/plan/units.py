@@ -133,7 +133,7 @@ def _contributions(study: Study, years: tuple[Year, ...], owner: np.ndarray, n_u
     """``pp[unit, column]`` over every year's valid intervals, written chunk by chunk into
     one preallocated array; also the column → (year, interval) maps and which units hold a
     standard relay that exports in some interval of some year."""
-    valid = [np.flatnonzero(y.demand_mw > 0) for y in years]
+    valid = [np.flatnonzero((y.demand_mw > 0) & y.judged) for y in years]
     n_c = int(sum(v.size for v in valid))
     big = n_u * n_c * 8 > PP_FLOAT64_MAX_BYTES
     pp = np.zeros((n_u, n_c), dtype=np.float32 if big else np.float64)

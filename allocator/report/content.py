@@ -304,7 +304,7 @@ def assumptions(check: Check) -> list[tuple[str, str]]:
                           "day) scaled by each feeder's peak MW",
               "metered": "metered feeder data, with gaps filled from the profiles "
                          f"(gap_fill '{s.gap_fill}')"}
-    nonpos = int((~check.valid).sum())
+    nonpos = int(((check.year.demand_mw <= 0) & check.year.judged).sum())
     return [
         ("PV", f"per scenario (see the scenarios table), multiplied by pv_derate "
                f"{s.pv_derate:g} and the scenario's pv_scale: clear_sky = clear-sky output on "

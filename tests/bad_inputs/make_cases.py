@@ -836,6 +836,17 @@ def _(d):
     return write_m(d, rows)
 
 
+@case("metered_two_files_overlap", "metered",
+      "--metered given twice; the second file repeats F03's readings at 10:00 and 11:00",
+      Expect("m2.csv", None, 2, "timestamp", "F03: the interval from 2025-01-01T10:00+01:00 "
+             f"has a reading in m.csv (line {ml(10, 3)}) and in m2.csv (line 2); 2 intervals "
+             "of F03 in 2025 are in both files"))
+def _(d):
+    rows = [r for r in metered_rows() if r[1] == "F03"][10:12]
+    write_csv_rows(d / "m2.csv", ["timestamp", "feeder_id", "mw"], rows)
+    return write_m(d) + ["--metered", "m2.csv"]
+
+
 @case("metered_wide_unknown_column", "metered",
       "a wide file (timestamp and one column per feeder) with a column F99 not in the study",
       Expect(M, None, 1, "F99", "feeder_id 'F99' is not a feeder of the study and not TOTAL"))
