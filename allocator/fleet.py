@@ -118,7 +118,7 @@ def check_args(study: StudyFiles, out: Path, fmt: str | None,
     ``shown_out``, the folder's final place, when ``out`` is inside a temporary folder)."""
     argv = ["check", study.workbook] + (["--metered", study.metered] if study.metered else [])
     argv += ["--out", str(shown_out or out)] + (["--format", fmt] if fmt is not None else [])
-    return Namespace(command="check", workbook=study.workbook, metered=study.metered,
+    return Namespace(command="check", workbook=study.workbook, metered=[study.metered] if study.metered else None,
                      assignment=None, scenarios=None, out=str(out), format=fmt, quiet=True,
                      debug=False, argv=argv)
 
