@@ -115,7 +115,26 @@ def period_index(local_times: pd.DatetimeIndex, day_type_idx: np.ndarray,
     owner, _ = owner_table(periods)
     month = local_times.month.to_numpy() - 1
     minute = local_times.hour.to_numpy() * 60 + local_times.minute.to_numpy()
-    return owner[month, np.asarray(day_type_idx, dtype=np.intp), minute].astype(np.intp)
+    out = owner[month, np.asarray(day_type_idx, dtype=np.intp), minute].astype(np.intp)
+    return _hold_repeated_hour(local_times, out)
+
+
+def _hold_repeated_hour(local_times: pd.DatetimeIndex, per: np.ndarray) -> np.ndarray:
+    """In the repeated autumn hour the wall clock goes back; its second pass keeps the
+    period in force at the end of the first, so a boundary inside that hour switches once
+    (at its first occurrence) rather than twice.  A boundary at a spring wall time that
+    does not exist takes effect at the first interval after the jump (by construction: that
+    interval's wall time is already in the new period)."""
+    wall = local_times.tz_localize(None).asi8
+    if wall.size < 2:
+        return per
+    fold = np.r_[False, wall[1:] <= np.maximum.accumulate(wall)[:-1]]
+    if not fold.any():
+        return per
+    last = np.maximum.accumulate(np.where(~fold, np.arange(wall.size), 0))
+    out = per.copy()
+    out[fold] = per[last[fold]]
+    return out
 
 
 __all__ = ["minute_mask", "owner_table", "coverage_problems", "describe_cells",

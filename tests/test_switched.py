@@ -268,3 +268,62 @@ def test_switched_plan_matches_brute_force(tmp_path, profiles, switch, current):
     k = key(got.schedule)
     assert abs(k[0] - best[0]) < 1e-6 and k[1:] == best[1:], (k, best)
     assert (got.relays_changed, got.switch_ops_per_year) == k[1:]
+
+
+# ---- the switching calendar across both DST changes ----------------------------------------
+AM_PM = [{"period": "a", "months": "1,2,3,4,5,6,7,8,9,10,11,12", "from": "02:00", "to": "12:00"},
+         {"period": "b", "months": "1,2,3,4,5,6,7,8,9,10,11,12", "from": "12:00", "to": "02:00"}]
+
+
+def _calendar(tmp_path, tz, periods, interval=60):
+    from allocator.switching import switching_table
+
+    s = {"timezone": tz, "interval_minutes": interval, "holiday_country": None}
+    st = read_study(_study(tmp_path, periods=periods, switch=(0,), settings=s))
+    y = build_years(st)[0]
+    sched = np.full((len(st.feeders), 2), -1)
+    sched[0] = [0, 1]  # F00: S1 in a, S2 in b
+    return switching_table(st, y, sched)
+
+
+def _on(df, day):
+    return [(r.instant_local, r.from_block, r.to_block) for r in df.itertuples()
+            if r.instant_local.startswith(day)]
+
+
+def test_switching_instants_berlin(tmp_path):
+    # IANA zone Europe/Berlin (EU rule): summer time from the last Sunday of March to the
+    # last Sunday of October, changing at 01:00 UTC (2025: 30 March and 26 October)
+    df = _calendar(tmp_path, "Europe/Berlin", AM_PM)
+    assert len(df) == 2 * 365 and set(df.feeders) == {"F00"}
+    assert _on(df, "2025-01-15") == [("2025-01-15T02:00+01:00", "S2", "S1"),
+                                     ("2025-01-15T12:00+01:00", "S1", "S2")]
+    # 02:00 does not exist on 30 March: the switch comes at the jump, 03:00 summer time
+    assert _on(df, "2025-03-30")[0] == ("2025-03-30T03:00+02:00", "S2", "S1")
+    # 02:00 happens twice on 26 October: one switch, at the first (summer-time) 02:00
+    assert _on(df, "2025-10-26") == [("2025-10-26T02:00+02:00", "S2", "S1"),
+                                     ("2025-10-26T12:00+01:00", "S1", "S2")]
+
+
+def test_switching_instants_new_york(tmp_path):
+    # IANA zone America/New_York (US rule since 2007): daylight time from the second Sunday
+    # of March to the first Sunday of November, changing at 02:00 local (2025: 9 March and
+    # 2 November)
+    df = _calendar(tmp_path, "America/New_York", AM_PM)
+    assert len(df) == 2 * 365
+    assert _on(df, "2025-03-09")[0] == ("2025-03-09T03:00-04:00", "S2", "S1")
+    # 01:00 happens twice on 2 November; 02:00 standard time comes once, after both
+    assert _on(df, "2025-11-02") == [("2025-11-02T02:00-05:00", "S2", "S1"),
+                                     ("2025-11-02T12:00-05:00", "S1", "S2")]
+    assert _on(df, "2025-07-04") == [("2025-07-04T02:00-04:00", "S2", "S1"),
+                                     ("2025-07-04T12:00-04:00", "S1", "S2")]
+
+
+def test_boundary_inside_repeated_hour_switches_once(tmp_path):
+    # Europe/Berlin as above; 30-minute intervals, a boundary at 02:30 (inside the hour
+    # repeated on 26 October 2025 and the hour skipped on 30 March 2025)
+    per = [dict(AM_PM[0], **{"from": "02:30"}), dict(AM_PM[1], to="02:30")]
+    df = _calendar(tmp_path, "Europe/Berlin", per, interval=30)
+    assert _on(df, "2025-10-26")[0] == ("2025-10-26T02:30+02:00", "S2", "S1")
+    assert len(_on(df, "2025-10-26")) == 2
+    assert _on(df, "2025-03-30")[0] == ("2025-03-30T03:00+02:00", "S2", "S1")
