@@ -524,7 +524,8 @@ def cmd_demo(args, console) -> int:
             if fixed is not None:
                 from .safeio import write_json
 
-                info["switching"]["fixed_plan"] = fixed
+                info["switching"]["fixed_plan"] = {k: v for k, v in fixed.items()
+                                                   if k != "_check"}
                 write_json(info, tmp / "plan.json")
         with step("check the plan"):
             from .export import write_check_files
@@ -538,6 +539,10 @@ def cmd_demo(args, console) -> int:
         visit_order_table(console, order)
         if fixed is not None:
             _fixed_vs_switched(console, fixed, info, chk)
+            if "png" in fmts or "html" in fmts:
+                from .report.figures import write_switched_vs_fixed
+
+                write_switched_vs_fixed(chk, fixed["_check"], tmp / "figures")
         with step("frequency indication"):
             fs_b, fsum_b = _frequency_into(study, before, tmp / CURRENT / FREQUENCY, None,
                                            True, console)
@@ -577,7 +582,7 @@ def _fixed_comparison(args, study, years) -> dict:
     out = plan_allocation(fixed_study, years, time_limit_s=args.time_limit,
                           seed=getattr(args, "seed", 0))
     c = run_checks(study, years, out.block_idx)
-    return {"relays_changed": out.relays_changed, "solve_seconds": out.seconds,
+    return {"_check": c, "relays_changed": out.relays_changed, "solve_seconds": out.seconds,
             "worst_violation_pp": float(c.worst_violation_pp),
             "smallest_headroom_pp": _headroom(c), "compliant": c.compliant,
             "lowest_share_pct": {v.block: v.min_share_pct for v in c.verdicts},

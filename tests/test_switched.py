@@ -327,3 +327,41 @@ def test_boundary_inside_repeated_hour_switches_once(tmp_path):
     assert _on(df, "2025-10-26")[0] == ("2025-10-26T02:30+02:00", "S2", "S1")
     assert len(_on(df, "2025-10-26")) == 2
     assert _on(df, "2025-03-30")[0] == ("2025-03-30T03:00+02:00", "S2", "S1")
+
+
+@pytest.mark.parametrize("caps", [{"max_switch_operations_per_year": 0},
+                                  {"max_switched_feeders": 1},
+                                  {"max_switch_operations_per_year": 100}])
+def test_caps_are_met(tmp_path, caps):
+    """The caps hold after the pass, whatever the start: a start schedule where both
+    switchable feeders switch every day and night (2 × 730 operations by the calendar)."""
+    from dataclasses import replace
+
+    from allocator.plan.heuristic import Band
+    from allocator.plan.solve import band_of
+    from allocator.plan.switched import (_Pass, column_periods, enforce_caps, expand,
+                                         switch_ops, switchable_units, transitions,
+                                         unit_schedule)
+    from allocator.plan.units import build_units
+
+    st = read_study(_study(tmp_path, periods=DAY_EVENING, settings={"holiday_country": None}))
+    st = replace(st, settings=replace(st.settings, **caps))
+    years = build_years(st)
+    units = build_units(st, years)
+    sw = switchable_units(st, units)
+    cp = column_periods(st, years, units)
+    ex = expand(units, cp, sw, 2)
+    opt = np.full(ex.units.n, 2)
+    opt[(ex.period == 0)] = 0  # switchable: S1 by day, S2 in the evening
+    opt[(ex.period == 1)] = 1
+    n_trans = transitions(st, years[0])
+    assert n_trans[0, 1] == n_trans[1, 0] == 365  # one change each way per day
+    state = _Pass(ex, opt, band_of(st), n_trans, cp)
+    assert sum(state.ops(u) for u in state.copies) == 4 * 365
+    assert enforce_caps(state, st, np.ones(units.n, dtype=int))
+    ops = switch_ops(unit_schedule(ex, state.opt), n_trans)
+    switched = int((ops > 0).sum())
+    if "max_switch_operations_per_year" in caps:
+        assert ops.sum() <= caps["max_switch_operations_per_year"]
+    if "max_switched_feeders" in caps:
+        assert switched <= caps["max_switched_feeders"]

@@ -34,7 +34,7 @@ import numpy as np
 from ..check import year_period_index
 from ..domain import UNARMED, Study
 from ..year import Year
-from .heuristic import Band, shares, violation_rel
+from .heuristic import Band, evaluate, shares, violation_rel
 from .solve import PlanOutcome, band_of, plan_allocation
 from .units import Units, build_units
 
@@ -144,35 +144,40 @@ def feeder_schedule(units: Units, sched_u: np.ndarray) -> np.ndarray:
 class _Pass:
     """The state of the switching pass: expanded option, shares, and the unit schedule."""
 
-    def __init__(self, ex: Expanded, option: np.ndarray, band: Band, n_trans: np.ndarray):
+    def __init__(self, ex: Expanded, option: np.ndarray, band: Band, n_trans: np.ndarray,
+                 col_period: np.ndarray):
         self.ex, self.band, self.n_trans = ex, band, n_trans
         self.opt = np.array(option, dtype=np.intp)
         self.s = shares(ex.units, self.opt).copy()
         self.nb = ex.units.n_blocks
         self.copies = {int(u): np.flatnonzero(ex.base == u) for u in np.unique(
             ex.base[ex.period >= 0])}
+        self.cols = {p: np.flatnonzero(col_period == p) for p in range(ex.n_periods)}
 
     def z(self) -> float:
         return float(violation_rel(self.s, self.band).max(initial=0.0))
 
     def move_z(self, k: int, v: int) -> float:
-        """Worst relative violation of the two rows period unit k leaves and joins."""
-        old, row = int(self.opt[k]), self.ex.units.pp[k].astype(float)
+        """Worst relative violation of the two rows period unit k leaves and joins, on its
+        period's columns (the only ones it moves)."""
+        cols = self.cols[int(self.ex.period[k])]
+        old, row = int(self.opt[k]), self.ex.units.pp[k, cols].astype(float)
         worst = 0.0
         for b, sign in ((old, -1.0), (v, 1.0)):
             if b < self.nb:
-                r = self.s[b] + sign * row
+                r = self.s[b, cols] + sign * row
                 worst = max(worst, float(violation_rel(r[None], Band(
                     self.band.target[b:b + 1], self.band.lo[b:b + 1],
                     self.band.hi[b:b + 1])).max(initial=0.0)))
         return worst
 
     def apply(self, k: int, v: int) -> None:
-        old, row = int(self.opt[k]), self.ex.units.pp[k].astype(float)
+        cols = self.cols[int(self.ex.period[k])]
+        old, row = int(self.opt[k]), self.ex.units.pp[k, cols].astype(float)
         if old < self.nb:
-            self.s[old] -= row
+            self.s[old, cols] -= row
         if v < self.nb:
-            self.s[v] += row
+            self.s[v, cols] += row
         self.opt[k] = v
 
     def ops(self, u: int) -> int:
@@ -190,34 +195,40 @@ def _candidates(st: _Pass, u: int, fix_all: bool):
     return [[(int(k), v)] for k in ks for v in sorted(used) if v != st.opt[k]]
 
 
-def _try(st: _Pass, moves) -> tuple[float, int]:
-    """(worst violation after, operations saved) of a move list; undone afterwards."""
+def _try(st: _Pass, moves, need_saving: bool = True) -> tuple[float, int]:
+    """(worst violation after, operations saved) of a move list, nothing applied: period
+    units of one unit move on disjoint columns, so each move is judged on its own.  With
+    ``need_saving`` a move list that saves nothing is not judged (worst = inf)."""
     u = int(st.ex.base[moves[0][0]])
-    before, done = st.ops(u), []
-    worst = 0.0
+    ks = st.copies[u]
+    new = st.opt[ks].copy()
+    pos = {int(k): i for i, k in enumerate(ks)}
     for k, v in moves:
-        worst = max(worst, st.move_z(k, v))
-        done.append((k, int(st.opt[k])))
-        st.apply(k, v)
-    after = st.ops(u)
-    for k, v in reversed(done):
-        st.apply(k, v)
-    return worst, before - after
+        new[pos[k]] = v
+    saved = st.ops(u) - int(switch_ops(new[None], st.n_trans)[0])
+    if need_saving and saved <= 0:
+        return float("inf"), saved
+    return max(st.move_z(k, v) for k, v in moves), saved
 
 
 def reduce_switching(st: _Pass, z_cap: float, deadline: float) -> None:
-    """Moves that save operations and keep every row within ``z_cap`` (best first)."""
-    while time.perf_counter() < deadline:
-        best = None
+    """Sweeps over the switchable units: each takes its move that saves the most operations
+    and keeps the rows it touches within ``z_cap``, until a sweep changes nothing."""
+    changed = True
+    while changed and time.perf_counter() < deadline:
+        changed = False
         for u in st.copies:
+            if time.perf_counter() >= deadline:
+                return
+            best = None
             for moves in _candidates(st, u, fix_all=False):
                 worst, saved = _try(st, moves)
                 if saved > 0 and worst <= z_cap and (best is None or saved > best[0]):
                     best = (saved, moves)
-        if best is None:
-            return
-        for k, v in best[1]:
-            st.apply(k, v)
+            if best is not None:
+                for k, v in best[1]:
+                    st.apply(k, v)
+                changed = True
 
 
 def _over_caps(st: _Pass, study: Study, sizes: np.ndarray) -> tuple[bool, bool]:
@@ -238,13 +249,13 @@ def enforce_caps(st: _Pass, study: Study, sizes: np.ndarray) -> bool:
         feeders_over, ops_over = _over_caps(st, study, sizes)
         if not (feeders_over or ops_over):
             return moved
-        best = None
+        best, z_now = None, st.z()
         for u in st.copies:
             if len(set(st.opt[st.copies[u]].tolist())) < 2:
                 continue
             for moves in _candidates(st, u, fix_all=feeders_over):
                 worst, saved = _try(st, moves)
-                key = (max(worst, st.z()), -saved)
+                key = (max(worst, z_now), -saved)
                 if saved > 0 and (best is None or key < best[0]):
                     best = (key, moves)
         if best is None:
@@ -277,11 +288,12 @@ def plan_switched(study: Study, years, pass_time_s: float | None = None,
     years = (years,) if isinstance(years, Year) else tuple(years)
     units = build_units(study, years)
     sw = switchable_units(study, units)
-    ex = expand(units, column_periods(study, years, units), sw, len(study.periods))
+    cp = column_periods(study, years, units)
+    ex = expand(units, cp, sw, len(study.periods))
     out = plan_allocation(study, years, units=ex.units, **kw)
     band = band_of(study, out.margin_pp + ex.units.guard_pp)
     n_trans = transitions(study, _calendar_year(study, years))
-    st = _Pass(ex, out.option, band, n_trans)
+    st = _Pass(ex, out.option, band, n_trans, cp)
     z_cap = st.z() + Z_TOL
     budget = pass_time_s if pass_time_s is not None else max(
         2.0, 0.1 * float(kw.get("time_limit_s") or study.settings.solver_time_limit_s))
@@ -302,7 +314,10 @@ def plan_switched(study: Study, years, pass_time_s: float | None = None,
         out = replace(out, proven=False, levels=[dict(i, proven_optimal=False)
                                                  for i in out.levels])
     fc = field_changes(study, units, sw, schedule)
-    out = replace(out, option=st.opt, block_idx=schedule[:, 0], relays_changed=fc,
+    k = evaluate(ex.units, st.opt, band)
+    out = replace(out, full_year=dict(zip(("worst_violation_rel", "mad_pp", "changes"), k)),
+                  status="in_band" if k[0] <= 1e-9 and out.status == "in_band" else
+                  "out_of_band", option=st.opt, block_idx=schedule[:, 0], relays_changed=fc,
                   feeders_changed=int((np.where(sw[units.owner_and_first()[0]],
                                                 study.current_assignment, schedule[:, 0])
                                        != study.current_assignment).sum()))
