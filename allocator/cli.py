@@ -127,9 +127,7 @@ def cmd_check(args, console) -> int:
     with atomic_dir(out) as tmp:
         write_check_files(chk, tmp)
         if args.assignment and (chk.block_idx != study.current_assignment).any():
-            from .export import write_field_files
-
-            order = write_field_files(chk, study.current_assignment, tmp)
+            order = _field_files(chk, study, _schedule_extra(study, years, chk), tmp)
         _reports(args, chk, tmp,
                  previous_idx=study.current_assignment if args.assignment else None, run=rec)
         _write_run(tmp, rec)
@@ -273,11 +271,9 @@ def _switched_files(study, years, sw, chk, out_tmp: Path) -> dict:
     """schedule.csv and switching.csv; the field check (switchable relays left at their
     current block, the state before the schedule is switched on) and plan.json's
     ``switching`` section with the shares if the switching fails."""
-    import numpy as np
     import pandas as pd
 
     from .assignment import schedule_rows
-    from .check import run_checks
     from .plan.switched import _calendar_year
     from .safeio import write_csv
     from .switching import switching_table
@@ -286,8 +282,6 @@ def _switched_files(study, years, sw, chk, out_tmp: Path) -> dict:
                            columns=["feeder_id", "period", "block"]), out_tmp / "schedule.csv")
     cal = _calendar_year(study, years)
     write_csv(switching_table(study, cal, sw.schedule), out_tmp / "switching.csv")
-    varies = (sw.schedule != sw.schedule[:, :1]).any(axis=1)
-    field = np.where(varies, study.current_assignment, sw.schedule[:, 0])
     stuck = [_stuck(study, years, sw.schedule[:, k], name)
              for k, name in enumerate(study.period_names)]
     worst = max(stuck, key=lambda d: (d["worst_violation_pp"], -d["smallest_headroom_pp"]))
@@ -296,8 +290,7 @@ def _switched_files(study, years, sw, chk, out_tmp: Path) -> dict:
             "calendar_year": cal.calendar_year, "field_relays_changed": sw.relays_changed,
             "smallest_headroom_pp": _headroom(chk), "caps_forced_moves": sw.caps_bound,
             "notes": sw.notes, "if_switching_fails": {"worst": worst, "per_period": stuck}}
-    return {"info": info, "schedule": sw.schedule,
-            "field_check": run_checks(study, years, field)}
+    return {"info": info, **_schedule_extra(study, years, chk)}
 
 
 def _headroom(chk) -> float:
@@ -349,6 +342,21 @@ def _field_files(chk, study, extra, tmp: Path):
         return write_field_files(chk, study.current_assignment, tmp)
     return write_field_files(extra["field_check"], study.current_assignment, tmp,
                              schedule=extra["schedule"])
+
+
+def _schedule_extra(study, years, chk) -> dict | None:
+    """For a checked schedule: the field check (switchable relays left as they are now) and
+    the schedule, as :func:`_field_files` takes them; None for a fixed allocation."""
+    import numpy as np
+
+    from .check import run_checks
+
+    sched = chk.schedule
+    if sched is None:
+        return None
+    varies = (sched != sched[:, :1]).any(axis=1)
+    field = np.where(varies, study.current_assignment, sched[:, 0])
+    return {"schedule": sched, "field_check": run_checks(study, years, field)}
 
 
 def cmd_plan(args, console) -> int:
