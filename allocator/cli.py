@@ -389,32 +389,8 @@ def cmd_plan(args, console) -> int:
         _write_run(tmp, rec)
     _print_plan(console, outcome, chk, info)
     visit_order_table(console, order)
-    if "switching" in info:
-        _print_switching(console, info["switching"])
     console.print(f"Wrote {out}/")
     return EXIT_OK
-
-
-def _print_switching(console, sw: dict) -> None:
-    """The switched plan's facts: operations, feeders, field changes, and the shares if
-    the switching fails (labelled pairs, 80 columns)."""
-    from rich.markup import escape
-
-    from .console import print_pairs
-
-    fail = sw["if_switching_fails"]["worst"]
-    print_pairs(console, "Switched arming (schedule.csv, switching.csv)", [
-        ("periods", escape(", ".join(sw["periods"]))),
-        ("feeders switched by schedule", str(sw["switched_feeders"])),
-        ("switching operations per year", f"{sw['switch_operations_per_year']} "
-         f"(calendar {sw['calendar_year']})"),
-        ("relays changed in the field", str(sw["field_relays_changed"])),
-        ("smallest headroom", f"{sw['smallest_headroom_pp']:.2f} pp"),
-        ("if the switching fails", f"worst when stuck in {escape(fail['stuck_in_period'])}: "
-         f"headroom {fail['smallest_headroom_pp']:.2f} pp, worst violation "
-         f"{fail['worst_violation_pp']:.2f} pp"),
-        ("caution", "remote switching depends on the control system being available; "
-         "agree the schedule and its fallback with the system operator")])
 
 
 def _frequency_into(study, checks, out_tmp: Path, at, quiet, console):
