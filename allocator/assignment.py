@@ -112,6 +112,8 @@ def read_assignment(path: str | os.PathLike, study: Study) -> tuple[np.ndarray, 
         col.add(f"not readable as CSV: {exc}", row=1)
         col.raise_if_any()
     header = [h.strip().lower() for h in header]
+    if "period" in header and "feeder_id" in header and "block" in header:
+        return _read_schedule(p, col, reader, header, study)
     for c in ("feeder_id", "block"):
         if c not in header:
             col.add(f"missing column '{c}' in the header line (found: {', '.join(header)})",
@@ -163,6 +165,103 @@ def read_assignment(path: str | os.PathLike, study: Study) -> tuple[np.ndarray, 
     return out, warnings
 
 
+def _lookups(study: Study) -> tuple[dict, dict, dict]:
+    return ({f: i for i, f in enumerate(study.feeder_ids)},
+            {n: i for i, n in enumerate(study.period_names)},
+            {b: i for i, b in enumerate(study.block_names)})
+
+
+def _schedule_line(col: Collector, rec: list[str], idx: tuple[int, int, int], line_no: int,
+                   study: Study, look: tuple[dict, dict, dict]
+                   ) -> tuple[int, int | None, int] | None:
+    """(feeder, period or None = every period, block) of one schedule line, or None."""
+    fid, per, blk = (rec[i].strip() if i < len(rec) else "" for i in idx)
+    fidx, pidx, bidx = look
+    ok = True
+    if not fid or fid not in fidx:
+        col.add("blank feeder_id" if not fid else f"unknown feeder '{fid[:60]}' (not in the "
+                "workbook's feeders sheet)", row=line_no, column="feeder_id")
+        ok = False
+    if per and per not in pidx:
+        col.add(f"unknown period '{per[:40]}'; the workbook's periods are "
+                f"{', '.join(study.period_names)} (blank = every period)", row=line_no,
+                column="period")
+        ok = False
+    b = UNARMED
+    if blk and blk.lower() not in ("unarmed", "none"):
+        if blk not in bidx:
+            col.add(f"unknown block '{blk[:40]}'; blocks are {', '.join(study.block_names)} "
+                    "(blank = unarmed)", row=line_no, column="block")
+            ok = False
+        else:
+            b = bidx[blk]
+    return (fidx[fid], pidx[per] if per else None, b) if ok else None
+
+
+def _read_schedule(p: Path, col: Collector, reader, header: list[str],
+                   study: Study) -> tuple[np.ndarray, list[str]]:
+    """The rest of a ``feeder_id,period,block`` file → ``[feeder, period]`` block index."""
+    n_p = len(study.periods)
+    idx = (header.index("feeder_id"), header.index("period"), header.index("block"))
+    out = np.full((len(study.feeders), n_p), UNARMED, dtype=np.intp)
+    line_of = np.zeros((len(study.feeders), n_p), dtype=np.int64)  # 0: not listed
+    look = _lookups(study)
+    try:
+        for line_no, rec in enumerate(reader, start=2):
+            if not rec or all(not c.strip() for c in rec):
+                continue
+            got = _schedule_line(col, rec, idx, line_no, study, look)
+            if got is None:
+                continue
+            f, per, b = got
+            cols = np.arange(n_p) if per is None else np.array([per])
+            twice = line_of[f, cols]
+            if twice.any():
+                col.add(f"feeder '{study.feeder_ids[f]}' listed twice for period "
+                        f"{study.period_names[cols[np.argmax(twice > 0)]]} (also line "
+                        f"{int(twice.max())})", row=line_no, column="period")
+                continue
+            out[f, cols], line_of[f, cols] = b, line_no
+    except csv.Error as exc:
+        col.add(f"not readable as CSV: {exc}", row=reader.line_num)
+    col.extend(_schedule_problems(study, out, line_of, str(p)))
+    col.raise_if_any()
+    missing = int((line_of == 0).all(axis=1).sum())
+    warnings = [f"{p.name}: {missing} feeder(s) of the workbook are not listed and are taken "
+                "as unarmed"] if missing else []
+    return out, warnings
+
+
+def _schedule_problems(study: Study, sched: np.ndarray, line_of: np.ndarray,
+                       file: str) -> list[Problem]:
+    """Partly listed feeders, non-switchable feeders with two blocks, and the hard rules
+    in every period."""
+    out: list[Problem] = []
+    names = study.period_names
+    listed = line_of > 0
+    for f in np.flatnonzero(listed.any(axis=1) & ~listed.all(axis=1)):
+        gone = ", ".join(names[k] for k in np.flatnonzero(~listed[f]))
+        out.append(Problem(file=file, row=int(line_of[f][listed[f]][0]), column="period",
+                           message=f"feeder '{study.feeder_ids[f]}' has no line for period(s) "
+                           f"{gone}; list every period or leave period blank for all"))
+    two = (sched != sched[:, :1]).any(axis=1) & ~study.is_switchable
+    for f in np.flatnonzero(two):
+        lines = ", ".join(str(int(x)) for x in sorted(set(line_of[f][listed[f]].tolist())))
+        out.append(Problem(file=file, row=int(line_of[f][listed[f]][0]), column="block",
+                           message=f"feeder '{study.feeder_ids[f]}' has different blocks in "
+                           f"different periods (lines {lines}) but is not remote_switch yes "
+                           "in the workbook; its block is set in the field, once for the year"))
+    seen: set[tuple] = set()
+    for k in range(sched.shape[1]):
+        rows = {int(f): int(line_of[f, k]) for f in np.flatnonzero(listed[:, k])}
+        for pr in rule_problems(study, sched[:, k], file, rows=rows):
+            key = (pr.row, pr.message)
+            if key not in seen:
+                seen.add(key)
+                out.append(pr)
+    return out
+
+
 def current_assignment(study: Study) -> tuple[np.ndarray, list[str]]:
     """The workbook's ``current_block`` allocation and its rule violations as warnings
     (the check reports the allocation as it is; the planner never returns such a plan)."""
@@ -170,6 +269,16 @@ def current_assignment(study: Study) -> tuple[np.ndarray, list[str]]:
     warns = [str(p.message) for p in rule_problems(study, a, study.path, sheet="feeders",
                                                     column="current_block")]
     return a, warns
+
+
+def schedule_rows(study: Study, schedule: np.ndarray) -> list[dict[str, str]]:
+    """Rows for ``schedule.csv`` (feeder_id, period, block): one row per feeder and period,
+    feeder order then period order; blank block = unarmed."""
+    names = study.block_names
+    return [{"feeder_id": fid, "period": per,
+             "block": names[int(schedule[i, k])] if schedule[i, k] >= 0 else ""}
+            for i, fid in enumerate(study.feeder_ids)
+            for k, per in enumerate(study.period_names)]
 
 
 def assignment_rows(study: Study, block_idx: np.ndarray,
@@ -188,5 +297,5 @@ def assignment_rows(study: Study, block_idx: np.ndarray,
     return rows
 
 
-__all__ = ["read_assignment", "current_assignment", "rule_problems", "assignment_rows",
+__all__ = ["read_assignment", "schedule_rows", "current_assignment", "rule_problems", "assignment_rows",
            "InputError"]

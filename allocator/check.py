@@ -66,6 +66,36 @@ def armed_mw(net_mw: np.ndarray, relay_code: np.ndarray, block_idx: np.ndarray,
     return out
 
 
+def armed_mw_scheduled(net_mw: np.ndarray, relay_code: np.ndarray, schedule: np.ndarray,
+                       period_of: np.ndarray, n_blocks: int) -> np.ndarray:
+    """Armed MW ``[block, interval]`` for a schedule ``schedule[feeder, period]`` (block in
+    force in each period, −1 unarmed) with ``period_of[interval]`` the period index.
+
+    Feeders with one block in every period are summed once over the year
+    (:func:`armed_mw`); the others are added period by period on that period's columns
+    (a loop over the few periods, each an array slice).
+    """
+    schedule = np.asarray(schedule, dtype=np.intp)
+    fixed = (schedule == schedule[:, :1]).all(axis=1)
+    out = armed_mw(net_mw, relay_code, np.where(fixed, schedule[:, 0], UNARMED), n_blocks)
+    sw = np.flatnonzero(~fixed)
+    if sw.size == 0:
+        return out
+    rows = net_mw[sw]
+    for p in range(schedule.shape[1]):
+        cols = np.flatnonzero(period_of == p)
+        if cols.size:
+            out[:, cols] += armed_mw(rows[:, cols], relay_code[sw], schedule[sw, p], n_blocks)
+    return out
+
+
+def year_period_index(study: Study, year: Year) -> np.ndarray:
+    """``[interval]`` period in force at each interval of ``year`` (study.periods)."""
+    from .periods import period_index
+
+    return period_index(year.local_times, year.day_type_index, study.periods)
+
+
 def share_pct(armed: np.ndarray, demand_mw: np.ndarray) -> np.ndarray:
     """``100 · armed / demand`` ``[block, interval]``; NaN where demand ≤ 0."""
     ok = demand_mw > 0
@@ -142,6 +172,10 @@ class Check:
     compliant: bool
     rule: str
     warnings: tuple[str, ...] = ()
+    #: ``[feeder, period]`` block in force per period when the allocation switches
+    #: (None: one block per feeder all year; then ``block_idx`` is the allocation, else
+    #: ``block_idx`` is the first period's column)
+    schedule: np.ndarray | None = None
 
     @property
     def blocks(self) -> tuple[Block, ...]:
@@ -224,10 +258,17 @@ def rule_statistics(rule: str, p: float | None, s: np.ndarray) -> tuple[float, f
 
 def run_check(study: Study, year: Year, block_idx: np.ndarray,
               warnings: tuple[str, ...] | list[str] = ()) -> Check:
-    """Run the armed-load check of assignment ``block_idx[feeder]`` on ``year``."""
+    """Run the armed-load check of assignment ``block_idx[feeder]`` on ``year``; a 2-D
+    ``block_idx[feeder, period]`` is a schedule (the block in force in each period)."""
     block_idx = np.asarray(block_idx, dtype=np.intp)
     nb = len(study.blocks)
-    armed = armed_mw(year.net_mw, study.relay_code, block_idx, nb)
+    schedule = None
+    if block_idx.ndim == 2:
+        schedule, block_idx = block_idx, block_idx[:, 0]
+        armed = armed_mw_scheduled(year.net_mw, study.relay_code, schedule,
+                                   year_period_index(study, year), nb)
+    else:
+        armed = armed_mw(year.net_mw, study.relay_code, block_idx, nb)
     share = share_pct(armed, year.demand_mw)
     cum = np.cumsum(share, axis=0)
     valid = (year.demand_mw > 0) & year.judged  # judged: see Year.judged_span
@@ -269,7 +310,8 @@ def run_check(study: Study, year: Year, block_idx: np.ndarray,
             rule_high_share_pct=high, below_band=is_below, above_band=is_above,
         ))
     return Check(study, year, block_idx, armed, share, cum, valid, tuple(stats),
-                 all(st.compliant for st in stats), s_rule.rule_text, tuple(warnings))
+                 all(st.compliant for st in stats), s_rule.rule_text, tuple(warnings),
+                 schedule)
 
 
 # --------------------------------------------------------------------------------------------
@@ -581,6 +623,11 @@ class ScenarioChecks:
     @property
     def block_idx(self) -> np.ndarray:
         return self.checks[0].block_idx
+
+    @property
+    def schedule(self) -> np.ndarray | None:
+        """``[feeder, period]`` when the allocation switches by schedule, else None."""
+        return self.checks[0].schedule
 
     @property
     def blocks(self) -> tuple[Block, ...]:

@@ -133,9 +133,7 @@ def write_check(args, console):
     with atomic_dir(out) as tmp:
         write_check_files(chk, tmp)
         if args.assignment and (chk.block_idx != study.current_assignment).any():
-            from .export import write_field_files
-
-            order = write_field_files(chk, study.current_assignment, tmp)
+            order = _field_files(chk, study, _schedule_extra(study, years, chk), tmp)
         _reports(args, chk, tmp,
                  previous_idx=study.current_assignment if args.assignment else None, run=rec)
         _write_run(tmp, rec)
@@ -251,19 +249,78 @@ def _plan_into(args, console, study, years, out_tmp: Path, quiet: bool):
             w = "" if worst != worst else f", worst {100 * worst:.2f} % of target"
             prog.update(task, description=f"planning: {level} round {round}, "
                         f"{intervals} intervals{w}")
-        outcome = plan_allocation(study, years, solver=getattr(args, "solver", "highs"),
-                                  time_limit_s=tl, max_changes=mc,
-                                  seed=getattr(args, "seed", 0), progress=cb,
-                                  objective=getattr(args, "objective", None),
-                                  margin_pp=getattr(args, "margin", None))
-    chk = run_checks(study, years, outcome.block_idx)
+        kw = dict(solver=getattr(args, "solver", "highs"), time_limit_s=tl, max_changes=mc,
+                  seed=getattr(args, "seed", 0), progress=cb,
+                  objective=getattr(args, "objective", None),
+                  margin_pp=getattr(args, "margin", None))
+        if switched_applies(study):
+            from .plan.switched import plan_switched
+
+            sw = plan_switched(study, years, **kw)
+            outcome = sw.plan
+        else:
+            sw, outcome = None, plan_allocation(study, years, **kw)
+    chk = run_checks(study, years, outcome.block_idx if sw is None else sw.schedule)
     rows = assignment_rows(study, outcome.block_idx, previous=study.current_assignment)
     write_csv(pd.DataFrame(rows, columns=["feeder_id", "block", "previous_block", "changed"]),
               out_tmp / "plan.csv")
     info = plan_json(outcome, chk, {"seed": getattr(args, "seed", 0), "time_limit_s": tl,
                                     "max_changes": mc})
+    extra = None
+    if sw is not None:
+        extra = _switched_files(study, years, sw, chk, out_tmp)
+        info["switching"] = extra["info"]
     write_json(info, out_tmp / "plan.json")
-    return outcome, chk, info
+    return outcome, chk, info, extra
+
+
+def switched_applies(study) -> bool:
+    """The switched plan runs when some feeder is remote_switch yes and the workbook has
+    more than one period; otherwise the fixed plan runs unchanged."""
+    return bool(study.is_switchable.any()) and len(study.periods) > 1
+
+
+def _switched_files(study, years, sw, chk, out_tmp: Path) -> dict:
+    """schedule.csv and switching.csv; the field check (switchable relays left at their
+    current block, the state before the schedule is switched on) and plan.json's
+    ``switching`` section with the shares if the switching fails."""
+    import pandas as pd
+
+    from .assignment import schedule_rows
+    from .plan.switched import _calendar_year
+    from .safeio import write_csv
+    from .switching import switching_table
+
+    write_csv(pd.DataFrame(schedule_rows(study, sw.schedule),
+                           columns=["feeder_id", "period", "block"]), out_tmp / "schedule.csv")
+    cal = _calendar_year(study, years)
+    write_csv(switching_table(study, cal, sw.schedule), out_tmp / "switching.csv")
+    stuck = [_stuck(study, years, sw.schedule[:, k], name)
+             for k, name in enumerate(study.period_names)]
+    worst = max(stuck, key=lambda d: (d["worst_violation_pp"], -d["smallest_headroom_pp"]))
+    info = {"periods": list(study.period_names), "switched_feeders": sw.switched_feeders,
+            "switch_operations_per_year": sw.switch_ops_per_year,
+            "calendar_year": cal.calendar_year, "field_relays_changed": sw.relays_changed,
+            "smallest_headroom_pp": _headroom(chk), "caps_forced_moves": sw.caps_bound,
+            "notes": sw.notes, "if_switching_fails": {"worst": worst, "per_period": stuck}}
+    return {"info": info, **_schedule_extra(study, years, chk)}
+
+
+def _headroom(chk) -> float:
+    return float(min(min(v.headroom_to_min_pp, v.headroom_to_max_pp) for v in chk.verdicts))
+
+
+def _stuck(study, years, alloc, period: str) -> dict:
+    """The shares if the switching stops in ``period``: every switchable feeder stays in
+    that period's block all year."""
+    from .check import run_checks
+
+    c = run_checks(study, years, alloc)
+    return {"stuck_in_period": period, "compliant": c.compliant,
+            "worst_violation_pp": float(c.worst_violation_pp),
+            "smallest_headroom_pp": _headroom(c),
+            "lowest_share_pct": {v.block: v.min_share_pct for v in c.verdicts},
+            "highest_share_pct": {v.block: v.max_share_pct for v in c.verdicts}}
 
 
 def _print_plan(console, outcome, chk, info) -> None:
@@ -288,6 +345,33 @@ def _print_plan(console, outcome, chk, info) -> None:
         console.print(f"  [dim]note:[/dim] {escape(line)}")
 
 
+def _field_files(chk, study, extra, tmp: Path):
+    """work_list.csv / visit_order.csv: field visits from the current allocation; with a
+    schedule, the visits leave switchable relays alone and "set remote schedule" rows
+    follow."""
+    from .export import write_field_files
+
+    if extra is None:
+        return write_field_files(chk, study.current_assignment, tmp)
+    return write_field_files(extra["field_check"], study.current_assignment, tmp,
+                             schedule=extra["schedule"])
+
+
+def _schedule_extra(study, years, chk) -> dict | None:
+    """For a checked schedule: the field check (switchable relays left as they are now) and
+    the schedule, as :func:`_field_files` takes them; None for a fixed allocation."""
+    import numpy as np
+
+    from .check import run_checks
+
+    sched = chk.schedule
+    if sched is None:
+        return None
+    varies = (sched != sched[:, :1]).any(axis=1)
+    field = np.where(varies, study.current_assignment, sched[:, 0])
+    return {"schedule": sched, "field_check": run_checks(study, years, field)}
+
+
 def cmd_plan(args, console) -> int:
     """plan.csv, plan.json and the planned allocation's check files and reports at the top
     of the folder, the current allocation's under current/ (the layout of outputs/README)."""
@@ -307,9 +391,9 @@ def cmd_plan(args, console) -> int:
 
     rec = _record(args, study, years)
     with atomic_dir(out) as tmp:
-        outcome, chk, info = _plan_into(args, console, study, years, tmp, args.quiet)
+        outcome, chk, info, extra = _plan_into(args, console, study, years, tmp, args.quiet)
         write_check_files(chk, tmp)
-        order = write_field_files(chk, study.current_assignment, tmp)
+        order = _field_files(chk, study, extra, tmp)
         _reports(args, chk, tmp, previous_idx=study.current_assignment,
                  plan_info=info, before=before, run=rec)
         write_check_files(before, tmp / CURRENT)
@@ -452,7 +536,18 @@ def cmd_demo(args, console) -> int:
         args.solver = "highs"
         args.max_changes = None
         with step("plan a new allocation"):
-            outcome, chk, info = _plan_into(args, console, study, years, tmp, True)
+            fixed = None
+            if switched_applies(study):  # half the time each: the fixed plan, then switched
+                tl = args.time_limit or study.settings.solver_time_limit_s
+                args.time_limit = max(2.0, tl / 2.0)
+                fixed = _fixed_comparison(args, study, years)
+            outcome, chk, info, extra = _plan_into(args, console, study, years, tmp, True)
+            if fixed is not None:
+                from .safeio import write_json
+
+                info["switching"]["fixed_plan"] = {k: v for k, v in fixed.items()
+                                                   if k != "_check"}
+                write_json(info, tmp / "plan.json")
         with step("check the plan"):
             from .export import write_check_files
 
@@ -460,9 +555,15 @@ def cmd_demo(args, console) -> int:
             from .export import write_field_files
             from .fieldconsole import visit_order_table
 
-            order = write_field_files(chk, study.current_assignment, tmp)
+            order = _field_files(chk, study, extra, tmp)
         _print_plan(console, outcome, chk, info)
         visit_order_table(console, order)
+        if fixed is not None:
+            _fixed_vs_switched(console, fixed, info, chk)
+            if "png" in fmts or "html" in fmts:
+                from .report.figures import write_switched_vs_fixed
+
+                write_switched_vs_fixed(chk, fixed["_check"], tmp / "figures")
         with step("frequency indication"):
             fs_b, fsum_b = _frequency_into(study, before, tmp / CURRENT / FREQUENCY, None,
                                            True, console)
@@ -549,6 +650,54 @@ def _print_review(console, fr) -> None:
         if r.status != vocab.STUDY_CHECKED:
             console.print(f"[red]{escape(r.name)}[/red]: {escape(r.message)}")
     warnings(console, list(fr.notes))
+
+
+def _fixed_comparison(args, study, years) -> dict:
+    """The best fixed plan of the same workbook (remote_switch ignored), for the demo's
+    side-by-side view: its numbers only (plan.json ``switching.fixed_plan``)."""
+    from dataclasses import replace
+
+    from .check import run_checks
+    from .plan import plan_allocation
+
+    fixed_study = replace(study, feeders=tuple(replace(f, remote_switch=False)
+                                               for f in study.feeders))
+    out = plan_allocation(fixed_study, years, time_limit_s=args.time_limit,
+                          seed=getattr(args, "seed", 0))
+    c = run_checks(study, years, out.block_idx)
+    return {"_check": c, "relays_changed": out.relays_changed, "solve_seconds": out.seconds,
+            "worst_violation_pp": float(c.worst_violation_pp),
+            "smallest_headroom_pp": _headroom(c), "compliant": c.compliant,
+            "lowest_share_pct": {v.block: v.min_share_pct for v in c.verdicts},
+            "highest_share_pct": {v.block: v.max_share_pct for v in c.verdicts}}
+
+
+def _fixed_vs_switched(console, fixed: dict, info: dict, chk) -> None:
+    """The demo's fixed and switched plans side by side (80 columns)."""
+    from rich.markup import escape
+
+    from .console import print_table
+
+    sw = info["switching"]
+    rows = [(escape(v.block), f"{v.min_pct:g}–{v.max_pct:g}",
+             f"{fixed['lowest_share_pct'][v.block]:.1f}", f"{v.min_share_pct:.1f}",
+             f"{fixed['highest_share_pct'][v.block]:.1f}", f"{v.max_share_pct:.1f}")
+            for v in chk.verdicts]
+    print_table(console, "Fixed plan and switched plan (worst over every scenario)",
+                ["block", "band %", "fixed lowest %", "switched lowest %",
+                 "fixed highest %", "switched highest %"], rows, right={1, 2, 3, 4, 5})
+    fail = sw["if_switching_fails"]["worst"]
+    facts = [("smallest headroom, pp", f"{fixed['smallest_headroom_pp']:.2f}",
+              f"{sw['smallest_headroom_pp']:.2f}"),
+             ("relays changed in the field", str(fixed["relays_changed"]),
+              str(sw["field_relays_changed"])),
+             ("switching operations per year", "0", str(sw["switch_operations_per_year"])),
+             ("feeders switched by schedule", "0", str(sw["switched_feeders"])),
+             ("solve time, s", f"{fixed['solve_seconds']:.1f}", f"{info['solve_seconds']:.1f}"),
+             ("headroom if switching fails, pp", "", f"{fail['smallest_headroom_pp']:.2f} "
+              f"(stuck in {escape(fail['stuck_in_period'])})")]
+    print_table(console, "Fixed and switched: the numbers", ["", "fixed", "switched"],
+                facts, right={1, 2})
 
 
 def _demo_inputs(console, step, tmp: Path):

@@ -112,7 +112,10 @@ def study_overview(console: Console, study: Study) -> None:
         ("calendar", f"{s.timezone}, {s.interval_minutes}-minute intervals, holidays {hol}"),
         ("scenarios", escape(", ".join(sc.name for sc in study.scenarios))),
         ("rule", f"{s.rule_text}; priority sites: {s.priority_policy}"),
-    ])
+    ] + ([("switched arming", escape(
+        f"{int(study.is_switchable.sum())} feeder(s) remote_switch; periods "
+        f"{', '.join(study.period_names)}"))] if study.period_list or
+        study.is_switchable.any() else []))
 
 
 def warnings(console: Console, items: list[str] | tuple[str, ...], limit: int = 15) -> None:

@@ -70,6 +70,17 @@ SEASONS = pd.DataFrame(
     columns=["season", "months"],
 )
 SEASON_NAMES = list(SEASONS["season"])
+# Switching periods for the remotely switchable feeders: two seasons × day/night (invented).
+PERIODS = pd.DataFrame(
+    [("summer_day", "4,5,6,7,8,9", "", "07:00", "19:00"),
+     ("summer_night", "4,5,6,7,8,9", "", "19:00", "07:00"),
+     ("winter_day", "10,11,12,1,2,3", "", "07:00", "19:00"),
+     ("winter_night", "10,11,12,1,2,3", "", "19:00", "07:00")],
+    columns=["period", "months", "day_types", "from", "to"],
+)
+#: feeders whose relay the control room can switch by schedule (chosen without the random
+#: stream, so the rest of the workbook is unchanged): the PV-richest plain feeders
+N_REMOTE = 12
 DAY_TYPES = ["workday", "saturday", "sunday"]
 
 # (name, code, zone, character, number of feeders)
@@ -346,6 +357,17 @@ SYSTEM = pd.DataFrame([
 ], columns=["key", "value"])
 
 
+def mark_remote_switch(df: pd.DataFrame) -> None:
+    """``remote_switch`` yes for the :data:`N_REMOTE` feeders with the largest PV per peak
+    among standard relays outside trip groups and priority sites (invented)."""
+    ok = (df.relay == "standard") & df.trip_group.isna() & df.priority.isna() \
+        & df.allowed_blocks.isna()
+    ratio = (df.pv_mw / df.peak_mw).where(ok, -1.0)
+    pick = ratio.sort_values(ascending=False, kind="stable").index[:N_REMOTE]
+    df["remote_switch"] = None
+    df.loc[pick, "remote_switch"] = "yes"
+
+
 def write_demo_workbook(folder: Path) -> Path:
     """Write ``<folder>/lindmark.xlsx`` and return its path."""
     folder = Path(folder)
@@ -355,6 +377,7 @@ def write_demo_workbook(folder: Path) -> Path:
     prof = build_profiles()
     feeders = build_feeders(rng, prof)
     spreadsheet_allocation(rng, feeders, prof)
+    mark_remote_switch(feeders)
     feeders = feeders.drop(columns="_heavy")
 
     settings = pd.DataFrame(SETTINGS, columns=["key", "value"])
@@ -365,6 +388,7 @@ def write_demo_workbook(folder: Path) -> Path:
         profiles_sheet(prof).to_excel(xl, sheet_name="profiles", index=False)
         SEASONS.to_excel(xl, sheet_name="seasons", index=False)
         SYSTEM.to_excel(xl, sheet_name="system", index=False)
+        PERIODS.to_excel(xl, sheet_name="periods", index=False)
         # fixed document dates so a rebuild is byte-for-byte the same file
         import datetime as _dt
 

@@ -64,6 +64,10 @@ class Settings:
     #: fixed plane of the weather-year PV (degrees; azimuth None = equator-facing)
     pv_tilt_deg: float = 0.0
     pv_azimuth_deg: float | None = None
+    #: hard caps on the switched plan (None = no cap): feeders given more than one block
+    #: over the periods, and switching operations per calendar year
+    max_switched_feeders: int | None = None
+    max_switch_operations_per_year: int | None = None
 
     @property
     def rule_text(self) -> str:
@@ -137,6 +141,26 @@ class Feeder:
     current_block: str | None
     customers: int | None
     row: int = 0  # row in the feeders sheet (header = 1)
+    #: the control room can change this feeder's block by schedule (``remote_switch`` yes)
+    remote_switch: bool = False
+
+
+@dataclass(frozen=True)
+class Period:
+    """One row of the ``periods`` sheet: the months, day types (indices into DAY_TYPES)
+    and local wall-clock minutes ``[from_min, to_min)`` it covers; ``to_min <= from_min``
+    wraps past midnight (equal: the whole day)."""
+
+    name: str
+    months: tuple[int, ...]
+    day_types: tuple[int, ...]
+    from_min: int
+    to_min: int
+    row: int | None = None  # row in the periods sheet (None: the implicit single period)
+
+
+#: without a ``periods`` sheet: one period covering the whole year
+WHOLE_YEAR = Period("all_year", tuple(range(1, 13)), (0, 1, 2), 0, 0)
 
 
 @dataclass(frozen=True)
@@ -172,6 +196,22 @@ class Study:
     warnings: tuple[str, ...] = ()
     #: the years a plan is judged on; empty = :func:`default_scenarios` of the study year
     scenario_list: tuple[Scenario, ...] = ()
+    #: the ``periods`` sheet; empty = one period, the whole year
+    period_list: tuple[Period, ...] = ()
+
+    @cached_property
+    def periods(self) -> tuple[Period, ...]:
+        return self.period_list or (WHOLE_YEAR,)
+
+    @cached_property
+    def period_names(self) -> tuple[str, ...]:
+        return tuple(p.name for p in self.periods)
+
+    @cached_property
+    def is_switchable(self) -> np.ndarray:
+        """``[feeder]`` bool: ``remote_switch`` yes and a relay that can be armed."""
+        return np.array([f.remote_switch and f.relay != "none" for f in self.feeders],
+                        dtype=bool)
 
     @cached_property
     def scenarios(self) -> tuple[Scenario, ...]:

@@ -57,16 +57,25 @@ def write_check_files(checks: Check | ScenarioChecks, out: Path) -> dict[str, Pa
     return paths
 
 
-def write_field_files(checks: Check | ScenarioChecks, previous_idx, out: Path):
+def write_field_files(checks: Check | ScenarioChecks, previous_idx, out: Path,
+                      schedule=None):
     """work_list.csv and visit_order.csv from ``previous_idx`` (in service now) to the
-    checked allocation (see :mod:`allocator.worklist`, :mod:`allocator.visits`).
+    checked allocation (see :mod:`allocator.worklist`, :mod:`allocator.visits`); with a
+    ``schedule[feeder, period]`` the "set remote schedule" rows follow the field visits.
     Returns the :class:`~allocator.visits.VisitOrder`."""
+    import pandas as pd
+
     from .visits import visit_order, visit_order_table
-    from .worklist import work_list_table
+    from .worklist import remote_schedule_rows, work_list_table
 
     cs = as_set(checks)
     order = visit_order(cs, previous_idx)
     out.mkdir(parents=True, exist_ok=True)
-    write_csv(work_list_table(cs, previous_idx, order), out / FIELD_FILES[0])
+    table = work_list_table(cs, previous_idx, order)
+    if schedule is not None:
+        extra = remote_schedule_rows(cs.study, schedule)
+        if not extra.empty:
+            table = pd.concat([table, extra], ignore_index=True) if not table.empty else extra
+    write_csv(table, out / FIELD_FILES[0])
     write_csv(visit_order_table(order), out / FIELD_FILES[1])
     return order

@@ -25,6 +25,7 @@ from .domain import (
     RELAY_KINDS,
     Block,
     Feeder,
+    Period,
     PV_KINDS,
     Profiles,
     Scenario,
@@ -42,7 +43,10 @@ REQUIRED_SHEETS = ("settings", "blocks", "feeders", "profiles", "seasons")
 BLOCK_COLUMNS = ("block", "order", "pickup_hz", "delay_s", "target_pct", "min_pct", "max_pct")
 BLOCK_OPTIONAL = ("rocof_hz_per_s", "rocof_arm_hz")
 FEEDER_COLUMNS = ("feeder_id", "substation", "profile", "peak_mw", "pv_mw", "relay")
-FEEDER_OPTIONAL = ("zone", "priority", "allowed_blocks", "trip_group", "current_block", "customers")
+FEEDER_OPTIONAL = ("zone", "priority", "allowed_blocks", "trip_group", "current_block", "customers",
+                   "remote_switch")
+PERIOD_COLUMNS = ("period", "months")
+PERIOD_OPTIONAL = ("day_types", "from", "to")
 PROFILE_COLUMNS = ("profile", "season", "day_type", "time", "value")
 SEASON_COLUMNS = ("season", "months")
 #: longest relay delay + breaker time, s, from the frequency crossing to load disconnected,
@@ -57,7 +61,8 @@ SETTING_KEYS_OPTIONAL = ("holiday_country", "holiday_subdivision", "pv_derate", 
                          "solver_time_limit_s", "mip_gap", "gap_fill",
                          "max_substation_share_pct", "deviation_tolerance_pct",
                          "band_margin_pp", "objective", "exporting_standard_relays",
-                         "pv_tilt_deg", "pv_azimuth_deg")
+                         "pv_tilt_deg", "pv_azimuth_deg", "max_switched_feeders",
+                         "max_switch_operations_per_year")
 SCENARIO_COLUMNS = ("scenario", "pv")
 SCENARIO_OPTIONAL = ("pv_scale", "load_scale", "year")
 OBJECTIVES = ("fewest_changes", "closest_to_target")
@@ -433,6 +438,12 @@ def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, l
                what="a tilt in degrees 0..90")
     azimuth = num("pv_azimuth_deg", required=False, minimum=0, maximum=360,
                   what="an azimuth in degrees 0..360 (180 = south)")
+    caps = {}
+    for k in ("max_switched_feeders", "max_switch_operations_per_year"):
+        caps[k] = num(k, required=False, minimum=0, what="a whole number ≥ 0")
+        if caps[k] is not None and not float(caps[k]).is_integer():
+            bad(k, f"expected a whole number, found {caps[k]}")
+        caps[k] = int(caps[k]) if caps[k] is not None else None
     if len(col.problems) > n_before or any(
             v is None for v in (utility, year, tz, nominal, interval, lat, lon, basis, policy,
                                 rule)):
@@ -451,6 +462,7 @@ def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, l
         band_margin_pp=0.0 if margin is None else float(margin), objective=objective,
         exporting_standard_relays=exporting,
         pv_tilt_deg=0.0 if tilt is None else float(tilt), pv_azimuth_deg=azimuth,
+        **caps,
     ), warnings
 
 
@@ -522,6 +534,79 @@ def _parse_time(v: object) -> int | None:
         if m and int(m.group(1)) < 24 and int(m.group(2)) < 60:
             return int(m.group(1)) * 60 + int(m.group(2))
     return None
+
+
+def _split_list(raw: str) -> list[str]:
+    return [t for t in re.split(r"[,;\s]+", raw.strip()) if t]
+
+
+def _period_row(col: Collector, cells: "_Cells", r: Row,
+                interval: int | None) -> Period | None:
+    """One row of the ``periods`` sheet, or None (its problems collected)."""
+    sheet, n0 = "periods", len(col.problems)
+    name = cells.text(r, "period")
+    months_raw = cells.text(r, "months")
+    months = []
+    for tok in _split_list(months_raw or ""):
+        if not tok.isdigit() or not 1 <= int(tok) <= 12:
+            col.add(f"expected month numbers 1..12 separated by commas, found '{tok[:20]}'",
+                    sheet, r.number, "months")
+        else:
+            months.append(int(tok))
+    days_raw = cells.text(r, "day_types", required=False)
+    days = [0, 1, 2]
+    if days_raw is not None:
+        toks = [t.lower() for t in _split_list(days_raw)]
+        bad = [t for t in toks if t not in DAY_TYPES]
+        if bad:
+            col.add(f"unknown day type(s) {', '.join(b[:20] for b in bad)}; expected "
+                    "workday, saturday or sunday separated by commas (blank = all)",
+                    sheet, r.number, "day_types")
+        days = sorted({DAY_TYPES.index(t) for t in toks if t in DAY_TYPES})
+    mins = []
+    for c in ("from", "to"):
+        v = r.values.get(c)
+        m = 0 if _blank(v) else _parse_time(v)
+        if m is None:
+            col.add(f"expected a local time HH:MM (00:00..23:59), found {str(v)[:20]!r}",
+                    sheet, r.number, c)
+        elif interval and m % interval:
+            col.add(f"{_text(v)} is not on the {interval}-minute interval grid; a period "
+                    "must start and end at an interval boundary", sheet, r.number, c)
+        mins.append(m)
+    if len(col.problems) > n0 or name is None or not months:
+        return None
+    return Period(name, tuple(sorted(set(months))), tuple(days), mins[0], mins[1], r.number)
+
+
+def _parse_periods(col: Collector, rows: list[Row], interval: int | None) -> list[Period]:
+    """The optional ``periods`` sheet: every row, then coverage (each cell of
+    month × day type × minute in exactly one period)."""
+    from .periods import coverage_problems
+
+    sheet, cells = "periods", _Cells(col, "periods")
+    out: list[Period] = []
+    seen: dict[str, int] = {}
+    ok = True
+    for r in rows:
+        p = _period_row(col, cells, r, interval)
+        if p is None:
+            ok = False
+            continue
+        if p.name in seen:
+            col.add(f"period '{p.name}' appears twice (also row {seen[p.name]})", sheet,
+                    r.number, "period")
+            ok = False
+            continue
+        seen[p.name] = r.number
+        out.append(p)
+    if not rows:
+        col.add("the periods sheet has no rows; delete it for one period (the whole year)",
+                sheet, None, None)
+    elif ok:
+        for msg in coverage_problems(tuple(out)):
+            col.add(msg, sheet, None, "months")
+    return out
 
 
 def _parse_seasons(col: Collector, rows: list[Row]) -> tuple[list[str], np.ndarray]:
@@ -659,6 +744,10 @@ def _parse_feeders(col: Collector, rows: list[Row], block_names: set[str] | None
         tg = cells.text(r, "trip_group", required=False)
         cur = cells.text(r, "current_block", required=False)
         cust = cells.number(r, "customers", required=False, minimum=0, what="a count ≥ 0")
+        remote = cells.text(r, "remote_switch", required=False)
+        if remote is not None and remote.lower() not in ("yes", "no"):
+            col.add(f"expected 'yes' or blank, found '{remote[:40]}'", sheet, r.number,
+                    "remote_switch")
         if fid is not None:
             if fid in seen:
                 col.add(f"duplicate feeder_id '{fid}' (also row {seen[fid]})", sheet, r.number,
@@ -696,7 +785,8 @@ def _parse_feeders(col: Collector, rows: list[Row], block_names: set[str] | None
         if len(col.problems) > n0:
             continue
         feeders.append(Feeder(fid, sub, zone, prof, peak, pv or 0.0, relay, prio, allowed, tg,
-                              cur, int(cust) if cust is not None else None, r.number))
+                              cur, int(cust) if cust is not None else None, r.number,
+                              remote_switch=remote is not None and remote.lower() == "yes"))
     if not rows:
         col.add("no feeders", sheet, None, None)
     return feeders
@@ -739,6 +829,11 @@ def _cross_checks(col: Collector, settings: Settings | None, blocks: list[Block]
             col.add(f"trip group '{g}' is split across blocks in current_block ({where}); one "
                     "relay trips them all, so they sit in one block or are all unarmed",
                     sheet, members[0].row, "current_block")
+        if len({m.remote_switch for m in members}) > 1:
+            rows = ", ".join(str(m.row) for m in members)
+            col.add(f"trip group '{g}' mixes remote_switch yes and blank (rows {rows}); one "
+                    "relay trips them all, so it is switched by schedule for all or none",
+                    sheet, members[0].row, "remote_switch")
         if len({m.substation for m in members}) > 1:
             warnings.append(f"trip group {g} spans several substations")
     return warnings
@@ -890,6 +985,11 @@ def read_study(path: str | os.PathLike) -> Study:
             scenarios = _parse_scenarios(col, rows, settings.year if settings else None,
                                          p.resolve().parent)
             _weather_problems(col, scenarios)
+    periods: list[Period] = []
+    if "periods" in sheets:
+        h, rows = sheets["periods"]
+        if _require_columns(col, "periods", h, PERIOD_COLUMNS):
+            periods = _parse_periods(col, rows, settings.interval_minutes if settings else None)
     _explain_formula_blanks(p, col, {name: h for name, (h, _) in sheets.items()})
     col.raise_if_any()
     assert settings is not None and profiles is not None
@@ -897,11 +997,14 @@ def read_study(path: str | os.PathLike) -> Study:
                         profiles.resolution_minutes)
     study = Study(str(p), settings, tuple(blocks), tuple(feeders), profiles,
                   system={"values": system, "rows": system_rows}, warnings=(),
-                  scenario_list=tuple(scenarios))
+                  scenario_list=tuple(scenarios), period_list=tuple(periods))
     warnings += _scheme_warnings(study)
+    if any(f.remote_switch for f in feeders) and not periods:
+        warnings.append("feeders have remote_switch yes but there is no periods sheet: with "
+                        "one period they keep one block all year")
     return Study(study.path, settings, study.blocks, study.feeders, profiles,
                  system=study.system, warnings=tuple(warnings),
-                 scenario_list=study.scenario_list)
+                 scenario_list=study.scenario_list, period_list=study.period_list)
 
 
 def _scheme_warnings(study: Study) -> list[str]:

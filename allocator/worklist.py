@@ -153,5 +153,39 @@ def work_list_table(checks: Check | ScenarioChecks, previous_idx: np.ndarray,
     return df.reset_index(drop=True)
 
 
-__all__ = ["RelayChange", "relay_changes", "moved_mw", "work_list_table",
+REMOTE_ACTION = "set remote schedule"
+
+
+def schedule_text(study: Study, blocks: np.ndarray) -> str:
+    """'day: S1; night: S2' for one feeder's ``[period]`` blocks."""
+    names = study.block_names
+    return FEEDER_SEP.join(f"{p}: {names[int(b)] if b >= 0 else UNARMED_WORD}"
+                           for p, b in zip(study.period_names, blocks))
+
+
+def remote_schedule_rows(study: Study, schedule: np.ndarray) -> pd.DataFrame:
+    """One work-list row per relay switched by schedule (blocks differ between periods):
+    action "set remote schedule", ``new_block`` the schedule text; done in the control
+    system, so no visit."""
+    sw = np.flatnonzero((schedule != schedule[:, :1]).any(axis=1))
+    rel = study.relay_index
+    rows = []
+    for r in dict.fromkeys(rel[sw].tolist()):
+        members = np.flatnonzero(rel == r)
+        fs = [study.feeders[int(i)] for i in members]
+        cust = [f.customers for f in fs if f.customers is not None]
+        cur = int(study.current_assignment[members[0]])
+        rows.append(("", "", FEEDER_SEP.join(dict.fromkeys(f.substation for f in fs)),
+                     FEEDER_SEP.join(f.feeder_id for f in fs),
+                     "/".join(dict.fromkeys(f.relay for f in fs)), REMOTE_ACTION,
+                     *_setting(study, cur), schedule_text(study, schedule[members[0]]),
+                     np.nan, np.nan, np.nan, np.nan, "", np.nan, np.nan, "",
+                     sum(cust) if cust else np.nan,
+                     FEEDER_SEP.join(dict.fromkeys(f.priority for f in fs if f.priority)),
+                     "", "", ""))
+    return pd.DataFrame(rows, columns=list(WORK_LIST_COLUMNS))
+
+
+__all__ = ["remote_schedule_rows", "schedule_text", "REMOTE_ACTION",
+           "RelayChange", "relay_changes", "moved_mw", "work_list_table",
            "WORK_LIST_COLUMNS", "UNARMED_WORD"]

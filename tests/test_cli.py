@@ -86,7 +86,8 @@ def test_demo_whole_job(tmp_path, monkeypatch, capsys):
     out = tmp_path / "outputs" / "demo"
     for name in ("report.html", "report.xlsx", "summary.json", "plan.csv", "plan.json",
                  "year_summary.csv", "armed_load.csv", "statement.csv", "work_list.csv",
-                 "visit_order.csv"):
+                 "visit_order.csv", "schedule.csv", "switching.csv",
+                 "figures/switched_vs_fixed.png"):
         assert (out / name).is_file(), name
     import openpyxl
 
@@ -95,4 +96,10 @@ def test_demo_whole_job(tmp_path, monkeypatch, capsys):
     assert any((out / "figures").glob("*.png"))
     text = capsys.readouterr().out
     assert "Verdict before: NOT COMPLIANT" in text and "Visit order" in text
+    # the demo's remotely switchable feeders: the fixed and the switched plan side by side
+    assert "Fixed plan and switched plan" in text and "switching operations per year" in text
+    sw = json.loads((out / "plan.json").read_text(encoding="utf-8"))["switching"]
+    n_rows = len((out / "switching.csv").read_text(encoding="utf-8").splitlines()) - 1
+    assert n_rows == sw["switch_operations_per_year"]
+    assert "fixed_plan" in sw and "worst" in sw["if_switching_fails"]
     assert "report.html" in text and "report.xlsx" in text

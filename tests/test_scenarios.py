@@ -214,7 +214,8 @@ def test_demo_plan_for_clear_sky_alone_fails_the_overcast_year(tmp_path):
     assert main(["plan", str(DEMO), "--scenarios", "clear_sky", "--max-changes", "12",
                  "--time-limit", "20", "--out", str(tmp_path / "p"), "--format", "none",
                  "--quiet"]) == 0
-    assert main(["check", str(DEMO), "--assignment", str(tmp_path / "p" / "plan.csv"),
+    # the demo has remotely switchable feeders: its plan is a schedule (schedule.csv)
+    assert main(["check", str(DEMO), "--assignment", str(tmp_path / "p" / "schedule.csv"),
                  "--out", str(tmp_path / "c"), "--format", "none", "--quiet"]) == 0
     summ = json.loads((tmp_path / "c" / "summary.json").read_text())
     assert summ["compliant"] is False and summ["failing_scenarios"] == ["no_pv"]

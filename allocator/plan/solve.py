@@ -437,20 +437,22 @@ def plan_allocation(study: Study, years, solver: str = "highs",
                     time_limit_s: float | None = None, max_changes: int | None = None,
                     seed: int = 0, progress=None, mip_gap: float | None = None,
                     n_mad_sample: int | None = None, objective: str | None = None,
-                    margin_pp: float | None = None) -> PlanOutcome:
+                    margin_pp: float | None = None, units: Units | None = None
+                    ) -> PlanOutcome:
     """Plan an allocation of feeders to blocks that holds every interval of every scenario.
 
     ``years``: one :class:`Year` or the scenarios' years (:func:`allocator.scenarios.
     build_years`).  ``objective`` and ``margin_pp`` default to the settings ``objective``
     and ``band_margin_pp``.  Returns a :class:`PlanOutcome`; the caller runs the armed-load
     check on ``outcome.block_idx`` for every scenario (the reported figures are the check's).
+    ``units``: prebuilt units (the switched plan passes its period units).
     """
     t_start = time.perf_counter()
     years = (years,) if isinstance(years, Year) else tuple(years)
     s = study.settings
     objective = objective or s.objective
     margin = float(s.band_margin_pp if margin_pp is None else margin_pp)
-    units = build_units(study, years)
+    units = build_units(study, years) if units is None else units
     mask = None
     if s.exporting_standard_relays == "avoid":
         units, mask = _restrict_exporting(study, units)

@@ -410,7 +410,28 @@ def plan_facts(p: dict) -> list[Fact]:
                         "", "0"))
     if p.get("solver_version"):
         out.append(Fact("solver", str(p["solver_version"])))
-    return out
+    return out + switching_facts(p.get("switching"))
+
+
+def switching_facts(sw: dict | None) -> list[Fact]:
+    """A switched plan's facts (plan.json ``switching``): operations, feeders, field
+    changes and the shares if the switching fails; none for a fixed plan."""
+    if not sw:
+        return []
+    fail = sw["if_switching_fails"]["worst"]
+    return [Fact("switching periods", ", ".join(sw["periods"])),
+            Fact("feeders switched by schedule", int(sw["switched_feeders"]), "", "0"),
+            Fact("switching operations per year", int(sw["switch_operations_per_year"]),
+                 "", "0"),
+            Fact("relays changed in the field", int(sw["field_relays_changed"]), "", "0"),
+            Fact("smallest headroom to a band", float(sw["smallest_headroom_pp"]), "pp",
+                 "0.00"),
+            Fact("if the switching fails: worst period to be stuck in",
+                 str(fail["stuck_in_period"])),
+            Fact("if the switching fails: smallest headroom",
+                 float(fail["smallest_headroom_pp"]), "pp", "0.00"),
+            Fact("remote switching", "depends on the control system being available; agree "
+                 "the schedule and its fallback with the system operator")]
 
 
 def plan_details(p: dict) -> list[Fact]:

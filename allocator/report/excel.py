@@ -335,6 +335,23 @@ def _substations_sheet(wb, check: ScenarioChecks) -> Table:
     return table_sheet(wb, "substations", cols)
 
 
+def _schedule_sheet(wb, cs: ScenarioChecks) -> Table | None:
+    """A switched allocation's schedule: one row per feeder, one column per period (the
+    block in force; blank = unarmed), and whether it switches."""
+    sched = cs.schedule
+    if sched is None:
+        return None
+    st = cs.study
+    names = np.array(st.block_names + ("",), dtype=object)
+    cols = [Col("feeder_id", list(st.feeder_ids), "text", None),
+            Col("substation", [f.substation for f in st.feeders], "text", None)]
+    cols += [Col(f"block in {p}", names[sched[:, k]].tolist(), "text", None)
+             for k, p in enumerate(st.period_names)]
+    cols.append(Col("switched by schedule",
+                    (sched != sched[:, :1]).any(axis=1).tolist(), "bool", None))
+    return table_sheet(wb, "schedule", cols)
+
+
 class _Rows:
     """Writes the summary sheet top to bottom: ``self.r`` is the next row."""
 
@@ -588,6 +605,9 @@ def write_workbook(check: Check | ScenarioChecks, path: Path,
               _relay_sheet(wb, first, previous_idx), _intervals_sheet(wb, cs),
               _windows_sheet(wb, cs), _exports_sheet(wb, cs),
               _substations_sheet(wb, cs)]
+    sched = _schedule_sheet(wb, cs)
+    if sched is not None:
+        tables.append(sched)
     from .fieldsheets import field_sheets
 
     field_sheets(wb, cs, previous_idx)

@@ -644,3 +644,63 @@ def render_figures(check: Check | ScenarioChecks, out_dir: Path | None,
                 path.write_bytes(data)
             out.append(FigureFile(name, title, caption, size, data, path))
     return out
+
+
+# --------------------------------------------------------------------------------------------
+# switched plan against the fixed plan
+# --------------------------------------------------------------------------------------------
+def _daily_extremes(cs: ScenarioChecks, k: int) -> tuple[pd.DatetimeIndex, np.ndarray,
+                                                          np.ndarray]:
+    """Per local day: the lowest and highest share of block k over every scenario that
+    shares the first scenario's calendar (pp)."""
+    first = cs.checks[0]
+    same = [c for c in cs.checks if c.year.n_intervals == first.year.n_intervals]
+    share = np.fmin.reduce([c.share_pct[k] for c in same])
+    high = np.fmax.reduce([c.share_pct[k] for c in same])
+    day = first.year.local_times.tz_localize(None).normalize()
+    lo = pd.Series(share).groupby(day).min()
+    hi = pd.Series(high).groupby(day).max()
+    return pd.DatetimeIndex(lo.index), lo.to_numpy(), hi.to_numpy()
+
+
+def switched_vs_fixed(switched: ScenarioChecks, fixed: ScenarioChecks
+                      ) -> tuple[Figure, str, str]:
+    """Each block's daily lowest and highest share over the year: the fixed plan (grey)
+    and the switched plan (black), the band behind."""
+    check = switched.checks[0]
+    nb = len(check.blocks)
+    fig = _new(_snap(11.0, 1.0 + 1.9 * nb))
+    axes = fig.subplots(nb, 1, squeeze=False, sharex=True)
+    for k, b in enumerate(check.blocks):
+        ax = axes[k][0]
+        ax.axhspan(b.min_pct, b.max_pct, color=palette.BAND_SHADE, alpha=0.5, lw=0)
+        for cs, colour, ls, name in ((fixed, palette.BEFORE, (0, (4, 2)), "fixed plan"),
+                                     (switched, palette.INK, "solid", "switched plan")):
+            d, lo, hi = _daily_extremes(cs, k)
+            x = mdates.date2num(d)
+            ax.plot(x, lo, color=colour, lw=1.0, ls=ls, label=f"{name}: daily lowest")
+            ax.plot(x, hi, color=colour, lw=0.7, ls=ls, alpha=0.7,
+                    label=f"{name}: daily highest")
+        ax.axhline(b.min_pct, color=palette.BELOW, lw=1.0, label="band minimum")
+        ax.axhline(b.max_pct, color=palette.ABOVE, lw=1.0, ls="dashed", label="band maximum")
+        ax.set_title(_block_title(b), loc="left", fontsize=9)
+        ax.set_ylabel("share (%)")
+        _month_axis(ax, check.year.calendar_year)
+    h, lab = axes[0][0].get_legend_handles_labels()
+    fig.legend(h, lab, loc="outside lower center", ncols=3)
+    title = "Block shares over the year: fixed plan and switched plan"
+    caption = ("For each block, the lowest and highest share of netted demand on each day of "
+               "the year (over every scenario on the study calendar): grey dashed for the best "
+               "fixed plan, black for the plan whose remotely switchable feeders follow the "
+               "schedule. The grey band is the allowed range.")
+    return fig, title, caption
+
+
+def write_switched_vs_fixed(switched: ScenarioChecks, fixed: ScenarioChecks,
+                            folder: Path) -> Path:
+    """``folder/switched_vs_fixed.png``."""
+    fig, _, _ = switched_vs_fixed(switched, fixed)
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / "switched_vs_fixed.png"
+    path.write_bytes(_png(fig))
+    return path

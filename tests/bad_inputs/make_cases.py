@@ -1158,6 +1158,59 @@ def _(d):
     return write_a(d, with_a(F08="stage3", F04="S1", F02="S1") + [("F77", "S1")])
 
 
+# ---- switched arming: the periods sheet and schedule files --------------------------------
+ALL_MONTHS = "1,2,3,4,5,6,7,8,9,10,11,12"
+
+
+def day_night(day_to: str = "22:00") -> list[dict]:
+    return [{"period": "day", "months": ALL_MONTHS, "from": "06:00", "to": day_to},
+            {"period": "night", "months": ALL_MONTHS, "from": "22:00", "to": "06:00"}]
+
+
+@case("workbook_periods_gap_and_overlap", "workbook",
+      "periods leave 21:00-22:00 uncovered; a July-Sunday period overlaps day and night",
+      Expect(W, "periods", None, "months", "times in no period: months 1-12, "
+             "workday/saturday/sunday, 21:00-22:00"),
+      Expect(W, "periods", None, "months", "periods 'day' and 'x' both cover month 7, "
+             "sunday, 06:00-07:00"),
+      Expect(W, "periods", None, "months", "periods 'night' and 'x' both cover month 7, "
+             "sunday, 05:00-06:00"))
+def _(d):
+    per = day_night("21:00") + [{"period": "x", "months": "7", "day_types": "sunday",
+                                 "from": "05:00", "to": "07:00"}]
+    write_wb(d, extra_sheets={"periods": per})
+    return std_argv()
+
+
+@case("workbook_periods_bad_cells", "workbook", "month 13, day type 'weekday', a time off the grid",
+      Expect(W, "periods", 2, "months", "expected month numbers 1..12"),
+      Expect(W, "periods", 3, "day_types", "unknown day type(s) weekday"),
+      Expect(W, "periods", 3, "from", "not on the 60-minute interval grid"))
+def _(d):
+    per = day_night()
+    per[0]["months"] = "1,13"
+    per[1]["day_types"] = "weekday"
+    per[1]["from"] = "22:30"
+    write_wb(d, extra_sheets={"periods": per})
+    return std_argv()
+
+
+@case("assignment_schedule_bad_rows", "assignment",
+      "a schedule naming period 'dusk', a feeder without its night line, and a feeder "
+      "without remote_switch given two blocks",
+      Expect(A, None, 3, "period", "unknown period 'dusk'"),
+      Expect(A, None, 2, "period", "feeder 'F00' has no line for period(s) night"),
+      Expect(A, None, 4, "block", "feeder 'F01' has different blocks in different periods "
+             "(lines 4, 5)"))
+def _(d):
+    fs = feeders()
+    fs[0]["remote_switch"] = "yes"
+    write_wb(d, feeders_=fs, extra_sheets={"periods": day_night()})
+    (d / A).write_text("feeder_id,period,block\nF00,day,S1\nF00,dusk,S2\nF01,day,S1\n"
+                       "F01,night,S2\n")
+    return std_argv("--assignment", A)
+
+
 # ============================================================================================
 # not errors: inputs that look suspicious but are valid (exit 0)
 # ============================================================================================

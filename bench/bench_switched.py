@@ -1,0 +1,112 @@
+"""Benchmark the switched plan against the best fixed plan (not a pytest test).
+
+Run:  python bench/bench_switched.py                   # demo and 1000x6, 60 s per plan
+      python bench/bench_switched.py --time-limit 30 --instances demo
+
+Instances (invented data):
+
+* ``demo``: the demo workbook (240 feeders, 5 blocks, hourly 2025, clear_sky and no_pv), its
+  12 remote_switch feeders and its four periods;
+* ``1000x6``: a :mod:`synthetic` network of 1,000 feeders and 6 blocks, hourly, on
+  {clear_sky, no_pv}, current_block the spreadsheet practice, every fifth feeder outside a
+  trip group marked remote_switch (20 %), and the four periods of the demo (two seasons ×
+  day/night).
+
+Per instance, side by side in one run: the smallest headroom to the band over every block
+and scenario (pp; negative = outside), worst violation (pp), relays changed in the field,
+switching operations per year, feeders switched, solve seconds.  The issue's target: the
+switched plan's solve time ≤ 2 × the fixed plan's at the same size.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "bench"))
+
+from allocator.check import run_checks  # noqa: E402
+from allocator.domain import Period  # noqa: E402
+from allocator.plan import plan_allocation  # noqa: E402
+from allocator.plan.switched import plan_switched  # noqa: E402
+
+SEED = 7
+SUMMER, WINTER = (4, 5, 6, 7, 8, 9), (10, 11, 12, 1, 2, 3)
+PERIODS = (Period("summer_day", SUMMER, (0, 1, 2), 420, 1140),
+           Period("summer_night", SUMMER, (0, 1, 2), 1140, 420),
+           Period("winter_day", WINTER, (0, 1, 2), 420, 1140),
+           Period("winter_night", WINTER, (0, 1, 2), 1140, 420))
+
+
+def load(instance: str):
+    if instance == "demo":
+        from allocator.scenarios import build_years
+        from allocator.workbook import read_study
+
+        study = read_study(ROOT / "inputs_demo" / "lindmark.xlsx")
+        return study, build_years(study)
+    from synthetic import make_network, spreadsheet_practice, with_current
+
+    n, nb = (int(x) for x in instance.split("x"))
+    study, years = make_network(n, nb, SEED, ("clear_sky", "no_pv"))
+    study = with_current(study, spreadsheet_practice(study, years[0]))
+    feeders = tuple(replace(f, remote_switch=(i % 5 == 0 and f.trip_group is None))
+                    for i, f in enumerate(study.feeders))
+    return replace(study, feeders=feeders, period_list=PERIODS), years
+
+
+def headroom(chk) -> float:
+    return float(min(min(v.headroom_to_min_pp, v.headroom_to_max_pp) for v in chk.verdicts))
+
+
+def run(instance: str, tl: float) -> list[tuple]:
+    study, years = load(instance)
+    fixed_study = replace(study, feeders=tuple(replace(f, remote_switch=False)
+                                               for f in study.feeders))
+    t0 = time.perf_counter()
+    fx = plan_allocation(fixed_study, years, time_limit_s=tl)
+    t_fx = time.perf_counter() - t0
+    c_fx = run_checks(study, years, fx.block_idx)
+    t0 = time.perf_counter()
+    sw = plan_switched(study, years, time_limit_s=tl)
+    t_sw = time.perf_counter() - t0
+    c_sw = run_checks(study, years, sw.schedule)
+    n_sw = int(study.is_switchable.sum())
+    return [(instance, "fixed", headroom(c_fx), c_fx.worst_violation_pp, fx.relays_changed,
+             0, 0, t_fx, n_sw),
+            (instance, "switched", headroom(c_sw), c_sw.worst_violation_pp,
+             sw.relays_changed, sw.switch_ops_per_year, sw.switched_feeders, t_sw, n_sw)]
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--time-limit", type=float, default=60.0)
+    ap.add_argument("--instances", default="demo,1000x6")
+    a = ap.parse_args()
+    rows = []
+    for inst in a.instances.split(","):
+        rows += run(inst, a.time_limit)
+    print(f"time limit {a.time_limit:g} s per plan; load average "
+          f"{open('/proc/loadavg').read().split()[0]}")
+    print("| instance | plan | smallest headroom pp | worst violation pp | field changes | "
+          "switching ops/yr | feeders switched (of switchable) | solve s |")
+    print("|---|---|---|---|---|---|---|---|")
+    for r in rows:
+        print(f"| {r[0]} | {r[1]} | {r[2]:.3f} | {r[3]:.3f} | {r[4]} | {r[5]} | "
+              f"{r[6]} of {r[8]} | {r[7]:.1f} |")
+    for k in range(0, len(rows), 2):
+        ratio = rows[k + 1][7] / max(rows[k][7], 1e-9)
+        print(f"{rows[k][0]}: switched solve time {ratio:.2f} × fixed (target ≤ 2): "
+              f"{'met' if ratio <= 2 else 'not met'}")
+
+
+if __name__ == "__main__":
+    np.seterr(all="ignore")
+    main()
