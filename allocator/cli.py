@@ -386,7 +386,6 @@ def cmd_plan(args, console) -> int:
 
     cur, cur_warns = current_assignment(study)
     before = run_checks(study, years, cur, cur_warns)
-    from .export import write_field_files
     from .fieldconsole import visit_order_table
 
     rec = _record(args, study, years)
@@ -552,7 +551,6 @@ def cmd_demo(args, console) -> int:
             from .export import write_check_files
 
             write_check_files(chk, tmp)
-            from .export import write_field_files
             from .fieldconsole import visit_order_table
 
             order = _field_files(chk, study, extra, tmp)
