@@ -367,8 +367,9 @@ def _schedule_extra(study, years, chk) -> dict | None:
     sched = chk.schedule
     if sched is None:
         return None
-    varies = (sched != sched[:, :1]).any(axis=1)
-    field = np.where(varies, study.current_assignment, sched[:, 0])
+    # a switchable relay is set in the control system, never in the field (the planner's
+    # count of field changes, plan.switched.field_changes, counts the same way)
+    field = np.where(study.is_switchable, study.current_assignment, sched[:, 0])
     return {"schedule": sched, "field_check": run_checks(study, years, field)}
 
 

@@ -164,10 +164,12 @@ def schedule_text(study: Study, blocks: np.ndarray) -> str:
 
 
 def remote_schedule_rows(study: Study, schedule: np.ndarray) -> pd.DataFrame:
-    """One work-list row per relay switched by schedule (blocks differ between periods):
+    """One work-list row per switchable relay whose schedule differs from its block in service
+    now in some period (blocks that differ between periods, or one new block all year):
     action "set remote schedule", ``new_block`` the schedule text; done in the control
     system, so no visit."""
-    sw = np.flatnonzero((schedule != schedule[:, :1]).any(axis=1))
+    differs = (schedule != study.current_assignment[:, None]).any(axis=1)
+    sw = np.flatnonzero(study.is_switchable & differs)
     rel = study.relay_index
     rows = []
     for r in dict.fromkeys(rel[sw].tolist()):

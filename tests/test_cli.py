@@ -102,4 +102,14 @@ def test_demo_whole_job(tmp_path, monkeypatch, capsys):
     n_rows = len((out / "switching.csv").read_text(encoding="utf-8").splitlines()) - 1
     assert n_rows == sw["switch_operations_per_year"]
     assert "fixed_plan" in sw and "worst" in sw["if_switching_fails"]
+    # a switchable relay is set in the control system: the field rows of the work list are
+    # exactly the field changes the plan counts, every switchable feeder it changes is a
+    # "set remote schedule" row, and no switchable feeder needs a site visit
+    wl = pd.read_csv(out / "work_list.csv", keep_default_na=False)
+    field = wl[wl["action"] != "set remote schedule"]
+    assert len(field) == sw["field_relays_changed"]
+    sched = pd.read_csv(out / "schedule.csv", keep_default_na=False)
+    remote = set(wl.loc[wl["action"] == "set remote schedule", "feeders"])
+    assert not remote & set(field["feeders"])
+    assert remote <= set(sched["feeder_id"])
     assert "report.html" in text and "report.xlsx" in text
