@@ -118,7 +118,8 @@ def check_args(study: StudyFiles, out: Path, fmt: str | None,
     ``shown_out``, the folder's final place, when ``out`` is inside a temporary folder)."""
     argv = ["check", study.workbook] + (["--metered", study.metered] if study.metered else [])
     argv += ["--out", str(shown_out or out)] + (["--format", fmt] if fmt is not None else [])
-    return Namespace(command="check", workbook=study.workbook, metered=[study.metered] if study.metered else None,
+    metered = [study.metered] if study.metered else None  # --metered is repeatable: a list
+    return Namespace(command="check", workbook=study.workbook, metered=metered,
                      assignment=None, scenarios=None, out=str(out), format=fmt, quiet=True,
                      debug=False, argv=argv)
 
@@ -221,7 +222,8 @@ def run_review(client, studies: list[StudyFiles], out_root: Path, fmt: str | Non
     """One task per study on ``client``; results in the order of ``studies``."""
     shown = str(Path(shown_root).resolve()) if shown_root else None
     futures = client.map(check_one, studies, out_root=str(Path(out_root).resolve()), fmt=fmt,
-                         shown_root=shown, pure=False, key=[f"check-{s.name}-{i}" for i, s in enumerate(studies)])
+                         shown_root=shown, pure=False,
+                         key=[f"check-{s.name}-{i}" for i, s in enumerate(studies)])
     out = []
     for s, f in zip(studies, futures):
         try:

@@ -48,6 +48,7 @@ from allocator.domain import RELAY_DIRECTION_BLOCKED, RELAY_NONE, RELAY_STANDARD
 from allocator.metered import read_metered
 from allocator.workbook import read_study
 from allocator.year import Year, build_year, study_intervals
+from handref import hf7 as _hf7
 from wbfactory import BASE_SETTINGS, flat_profiles, write_workbook
 
 TZ = "Europe/Berlin"
@@ -82,15 +83,6 @@ def _year(study, net, demand, start_local="2025-06-02 00:00"):
     z = np.zeros(n_t)
     return Year(ts, TZ, 60, study.feeder_ids, net, np.asarray(demand, dtype=float), z,
                 z.astype(np.intp), z.astype(np.int8))
-
-
-def _hf7(x, p):
-    """Hyndman & Fan (1996) sample quantile definition 7, by hand (see the module docstring)."""
-    x = sorted(float(v) for v in x)
-    h = (len(x) - 1) * p / 100.0
-    lo = math.floor(h)
-    hi = min(lo + 1, len(x) - 1)
-    return x[lo] + (h - lo) * (x[hi] - x[lo])
 
 
 # ============================================================================================

@@ -32,7 +32,6 @@ from __future__ import annotations
 
 import itertools
 import json
-import math
 import re
 import zipfile
 from pathlib import Path
@@ -51,6 +50,7 @@ from allocator.visits import EXACT_MAX_SUBSTATIONS, order_words, visit_order, vi
 from allocator.workbook import read_study
 from allocator.worklist import WORK_LIST_COLUMNS, work_list_table
 from allocator.year import Year
+from handref import hf7 as _hf7
 from wbfactory import BASE_SETTINGS, write_workbook
 
 TZ = "Europe/Berlin"
@@ -135,15 +135,6 @@ def _visit_sub(feeders):
         if f["trip_group"]:
             first.setdefault(f["trip_group"], f["substation"])
     return [first[f["trip_group"]] if f["trip_group"] else f["substation"] for f in feeders]
-
-
-def _hf7(x, p):
-    """Hyndman & Fan (1996) sample quantile definition 7, by hand."""
-    x = sorted(float(v) for v in x)
-    h = (len(x) - 1) * p / 100.0
-    lo = math.floor(h)
-    hi = min(lo + 1, len(x) - 1)
-    return x[lo] + (h - lo) * (x[hi] - x[lo])
 
 
 # ============================================================================================
