@@ -10,7 +10,7 @@ points are importable for notebook use::
     check = run_check(study, year, study.current_assignment)
 """
 
-__version__ = "0.1.0"
+from .version import __version__  # noqa: E402
 
 from .errors import InputError, Problem  # noqa: E402
 

@@ -16,7 +16,8 @@ import time
 import traceback
 from pathlib import Path
 
-from . import __version__, vocab
+from . import vocab
+from .version import __version__
 from .errors import InputError
 from .safeio import OutputClashError
 

@@ -31,9 +31,8 @@ import pandas as pd
 
 from .check import Check
 from .errors import InputError, Problem
-from .frequency import (FrequencyResult, SystemParams, largest_covered_pct, simulate,
-                        system_params_from_mapping)
-from .safeio import safe_filename
+from .frequency import FrequencyResult, largest_covered_pct, simulate
+from .system import SystemParams, system_params_from_mapping
 from .timefmt import iso_local
 
 FINE_SWEEP_PCT = np.arange(1.0, 61.0, 1.0)
@@ -193,40 +192,3 @@ def frequency_summary(fs: FrequencyStudy) -> dict:
             float(lc) / 100.0 * float(fs.demand_mw[c]),
         })
     return out
-
-
-def figure_names(labels: tuple[str, ...]) -> list[str]:
-    """File-name-safe nadir figure name per examined interval, naming every label of an
-    instant that several labels share (``lowest_B1+lowest_B3`` →
-    ``frequency_nadir_lowest_B1_and_lowest_B3``); unique even when cut to length."""
-    names: list[str] = []
-    for c, label in enumerate(labels):
-        name = safe_filename("frequency_nadir_" + "_and_".join(label.split("+")))
-        if name in names:
-            name = safe_filename(f"{name[:70]}_{c + 1}")
-        names.append(name)
-    return names
-
-
-def critical_traces_figure(fs: FrequencyStudy):
-    """Frequency traces at the examined interval with the smallest largest-covered loss."""
-    from .frequency import plot_traces
-
-    lc = np.where(np.isfinite(fs.largest_covered_pct), fs.largest_covered_pct, -1.0)
-    crit = int(np.argmin(lc))
-    return plot_traces(fs.sweep, case=crit, title=f"Frequency after a generation loss — "
-                       f"{fs.labels[crit]} ({fs.local_times[crit]})")
-
-
-def frequency_figures(fs: FrequencyStudy) -> dict[str, object]:
-    """name → matplotlib Figure: traces at the most critical interval (lowest largest
-    covered disturbance) and nadir/zenith vs size for every examined interval."""
-    from .frequency import plot_nadir_vs_size
-
-    figs = {"frequency_traces_critical": critical_traces_figure(fs)}
-    covered = fs.largest_covered_pct
-    for c, (label, name) in enumerate(zip(fs.labels, figure_names(fs.labels))):
-        figs[name] = plot_nadir_vs_size(
-            fs.sweep, case=c, title=f"Nadir and zenith vs loss size — {label} "
-            f"({fs.local_times[c]})", covered_pct=covered[c])
-    return figs

@@ -13,7 +13,7 @@ import hashlib
 import shlex
 from pathlib import Path
 
-from . import __version__
+from .version import __version__
 from .timefmt import iso_now
 
 #: the fields left for people to fill in (xlsx cells, a printable box in the HTML)

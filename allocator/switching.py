@@ -21,10 +21,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .check import year_period_index
 from .domain import Study
 from .timefmt import iso_local
-from .year import Year
+from .year import Year, year_period_index
 
 SWITCHING_COLUMNS = ("instant_local", "from_period", "to_period", "feeders", "from_block",
                      "to_block")

@@ -42,7 +42,8 @@ from functools import cached_property
 import numpy as np
 import pandas as pd
 
-from .check import ScenarioChecks, armed_mw, contribution_mw
+from .armed import armed_mw, contribution_mw
+from .check import ScenarioChecks
 from .domain import UNARMED, Study
 from .timefmt import iso_local
 from .worklist import RelayChange, relay_changes

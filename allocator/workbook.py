@@ -1032,7 +1032,7 @@ def _scheme_warnings(study: Study) -> list[str]:
 def _breaker_time_s(study: Study) -> float | None:
     """``breaker_time_s`` of the optional ``system`` sheet, else the frequency model's
     default; None when the sheet's value is bad (the frequency command reports it)."""
-    from .frequency import SystemParams, system_params_from_mapping
+    from .system import SystemParams, system_params_from_mapping
 
     raw = (study.system or {}).get("values", {}).get("breaker_time_s")
     if raw is None or (isinstance(raw, str) and not raw.strip()):

@@ -26,7 +26,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .check import Check, ScenarioChecks, contribution_mw, statement_check
+from .armed import contribution_mw
+from .check import Check, ScenarioChecks, statement_check
 from .domain import UNARMED, Study
 from .timefmt import iso_local
 

@@ -16,8 +16,10 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from .domain import DAY_TYPES, MINUTES_PER_DAY, FeederFlag, Scenario, Settings, Study
+from .domain import DAY_TYPES, MINUTES_PER_DAY, FeederFlag, Scenario, Study
+from .periods import period_index
 from .solar import clearsky_pv_pu
+from .timegrid import day_type_index, holiday_dates, study_intervals
 
 if TYPE_CHECKING:  # pragma: no cover
     from .metered import MeteredData
@@ -81,42 +83,8 @@ class Year:
 
 
 # --------------------------------------------------------------------------------------------
-# calendar
+# builder
 # --------------------------------------------------------------------------------------------
-def study_intervals(year: int, timezone: str, interval_minutes: int) -> pd.DatetimeIndex:
-    """Interval starts (UTC) covering the local calendar year in ``timezone``."""
-    start = pd.Timestamp(year=year, month=1, day=1, tz=timezone)
-    end = pd.Timestamp(year=year + 1, month=1, day=1, tz=timezone)
-    n = int((end - start) / pd.Timedelta(minutes=interval_minutes))
-    return pd.date_range(start.tz_convert("UTC"), periods=n,
-                         freq=pd.Timedelta(minutes=interval_minutes))
-
-
-def holiday_dates(settings: Settings, year: int | None = None) -> set:
-    """Public holidays of the configured country/subdivision for ``year`` (default the
-    study year; ``holidays`` package); empty when no country is set."""
-    if not settings.holiday_country:
-        return set()
-    import holidays
-
-    cal = holidays.country_holidays(settings.holiday_country,
-                                    subdiv=settings.holiday_subdivision,
-                                    years=[settings.year if year is None else year])
-    return set(cal.keys())
-
-
-def day_type_index(local_times: pd.DatetimeIndex, holiday_set: set) -> np.ndarray:
-    """``[interval]`` index into DAY_TYPES: Mon–Fri workday, Saturday, Sunday; a public
-    holiday counts as Sunday (whatever weekday it falls on)."""
-    dow = local_times.day_of_week.to_numpy()
-    out = np.where(dow == 6, 2, np.where(dow == 5, 1, 0)).astype(np.int8)
-    if holiday_set:
-        dates = local_times.tz_localize(None).normalize()
-        hol = pd.DatetimeIndex(sorted(pd.Timestamp(d) for d in holiday_set))
-        out[dates.isin(hol)] = 2
-    return out
-
-
 def profile_table_pu(study: Study, interval_minutes: int) -> np.ndarray:
     """``[profile, season, day_type, slot]`` per-unit values at the interval resolution:
     a coarser profile is held over the finer intervals, a finer one averaged."""
@@ -125,9 +93,6 @@ def profile_table_pu(study: Study, interval_minutes: int) -> np.ndarray:
     return v.reshape(v.shape[:3] + (n_slots, interval_minutes)).mean(axis=-1)
 
 
-# --------------------------------------------------------------------------------------------
-# builder
-# --------------------------------------------------------------------------------------------
 def gross_load_mw(study: Study, local_times: pd.DatetimeIndex, season_idx: np.ndarray,
                   day_idx: np.ndarray, out: np.ndarray | None = None,
                   rows: np.ndarray | None = None) -> np.ndarray:
@@ -300,6 +265,11 @@ def _coverage_note(info: dict) -> str | None:
             f"{info['coverage_pct']:.1f} % of {info['year']})")
 
 
+def year_period_index(study: Study, year: Year) -> np.ndarray:
+    """``[interval]`` period in force at each interval of ``year`` (study.periods)."""
+    return period_index(year.local_times, year.day_type_index, study.periods)
+
+
 def year_summary(study: Study, year: Year) -> pd.DataFrame:
     """One row per feeder: mean/min/max net MW, exporting hours, flags - for the summary CSV."""
     net = year.net_mw if year.judged_span is None else year.net_mw[:, slice(*year.judged_span)]
@@ -323,6 +293,6 @@ def year_summary(study: Study, year: Year) -> pd.DataFrame:
     })
 
 
-__all__ = ["Year", "FeederFlag", "Calendar", "build_year", "study_calendar", "study_intervals",
-           "day_type_index", "holiday_dates", "profile_table_pu", "gross_load_mw",
-           "profile_net_mw", "year_summary", "DAY_TYPES"]
+__all__ = ["Year", "FeederFlag", "Calendar", "build_year", "study_calendar",
+           "profile_table_pu", "gross_load_mw",
+           "profile_net_mw", "year_summary", "year_period_index", "DAY_TYPES"]

@@ -42,7 +42,8 @@ sys.path.insert(0, str(ROOT))
 from allocator.check import run_check  # noqa: E402
 from allocator.domain import (RELAY_DIRECTION_BLOCKED, RELAY_KINDS, RELAY_NONE,  # noqa: E402
                               Block, Feeder, Profiles, Settings, Study)
-from allocator.year import Year, study_intervals  # noqa: E402
+from allocator.timegrid import study_intervals  # noqa: E402
+from allocator.year import Year  # noqa: E402
 
 TARGET_S, TARGET_GB = 5.0, 2.0
 

@@ -22,7 +22,8 @@ from scipy.integrate import solve_ivp
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from allocator.domain import Block  # noqa: E402
-from allocator.frequency import SystemParams, simulate  # noqa: E402
+from allocator.frequency import simulate  # noqa: E402
+from allocator.system import SystemParams  # noqa: E402
 
 N_DISTURBANCES = 1000
 N_REFERENCE = 20

@@ -27,7 +27,8 @@ import numpy as np
 import pandas as pd
 
 from allocator.domain import DAY_TYPES, UNARMED, Block, Feeder, Profiles, Settings, Study
-from allocator.year import Year, day_type_index, study_intervals
+from allocator.timegrid import day_type_index, study_intervals
+from allocator.year import Year
 
 CLASSES = ("residential", "commercial", "industrial", "rural", "mixed")
 CLASS_P = (0.35, 0.20, 0.10, 0.20, 0.15)
@@ -233,7 +234,7 @@ def spreadsheet_practice(study: Study, year: Year) -> np.ndarray:
     mean share; stop when every block has reached its target.  Hard rules respected (relay
     none and excluded priority feeders stay unarmed, last_block priority feeders only in the
     last block, allowed_blocks, trip groups together)."""
-    from allocator.check import contribution_mw
+    from allocator.armed import contribution_mw
 
     nb = len(study.blocks)
     target = np.array([b.target_pct for b in study.blocks])

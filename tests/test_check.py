@@ -40,14 +40,15 @@ from hypothesis import HealthCheck, given
 from hypothesis import settings as hyp_settings
 from hypothesis import strategies as hst
 
-from allocator.check import (annual_statement, armed_mw, by_substation, contribution_mw,
-                             exporting_feeders, run_check, share_pct, shortfall_windows,
-                             summary_dict)
+from allocator.armed import armed_mw, contribution_mw, share_pct
+from allocator.check import (annual_statement, by_substation, exporting_feeders, run_check,
+                             shortfall_windows, summary_dict)
 from allocator.cli import main as cli_main
 from allocator.domain import RELAY_DIRECTION_BLOCKED, RELAY_NONE, RELAY_STANDARD
 from allocator.metered import read_metered
 from allocator.workbook import read_study
-from allocator.year import Year, build_year, study_intervals
+from allocator.timegrid import study_intervals
+from allocator.year import Year, build_year
 from handref import hf7 as _hf7
 from wbfactory import BASE_SETTINGS, flat_profiles, write_workbook
 

@@ -23,15 +23,13 @@ from scipy.integrate import solve_ivp
 from allocator.domain import Block
 from allocator.errors import InputError
 from allocator.frequency import (
-    SystemParams,
     closed_form_nadir_no_shedding,
     closed_form_response,
-    plot_nadir_vs_size,
-    plot_traces,
     sfr_constants,
     simulate,
-    system_params_from_mapping,
 )
+from allocator.report.frequency_figures import plot_nadir_vs_size, plot_traces
+from allocator.system import SystemParams, system_params_from_mapping
 
 NO_BLOCKS: list[Block] = []
 NO_ARMED = np.zeros((1, 0))

@@ -111,7 +111,7 @@ def test_figure_marks_the_largest_loss_the_table_reports(demo_fs):
     """The nadir figure's vertical line and the frequency.json / console value are one
     quantity: before, the figure took the system sheet's coarse sizes (40 % at the demo's
     lowest_B1) while the table took the 1 % sweep (42 %)."""
-    from allocator.frequency_study import frequency_figures
+    from allocator.report.frequency_figures import frequency_figures
 
     fs = demo_fs
     summary = frequency_summary(fs)
@@ -137,7 +137,7 @@ def test_an_instant_weakest_for_two_blocks_gets_a_figure_named_for_both(demo):
     labels, and its nadir figure names both (before, only the first label appeared)."""
     import dataclasses
 
-    from allocator.frequency_study import frequency_figures
+    from allocator.report.frequency_figures import frequency_figures
 
     _, _, chk = demo
     valid = np.flatnonzero(chk.valid)

@@ -29,7 +29,7 @@ from allocator.assignment import read_assignment
 from allocator.errors import InputError
 from allocator.metered import read_metered
 from allocator.workbook import read_study
-from allocator.year import study_intervals
+from allocator.timegrid import study_intervals
 from bad_inputs.make_cases import BASE_ASSIGNMENT, metered_rows, write_wb
 
 def n(examples: int) -> int:

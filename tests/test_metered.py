@@ -25,7 +25,8 @@ from hypothesis import strategies as hst
 from allocator.errors import InputError
 from allocator.metered import (MeteredData, interpolate_rows, merge_metered, read_metered)
 from allocator.workbook import read_study
-from allocator.year import build_year, study_intervals
+from allocator.timegrid import study_intervals
+from allocator.year import build_year
 from wbfactory import BASE_SETTINGS, base_feeders, flat_profiles, write_workbook
 
 TZ = "Europe/Berlin"

@@ -14,7 +14,9 @@ import pytest
 from wbfactory import BASE_SETTINGS, base_feeders, flat_profiles, write_workbook
 
 from allocator.assignment import read_assignment
-from allocator.check import armed_mw, run_checks, year_period_index
+from allocator.armed import armed_mw
+from allocator.check import run_checks
+from allocator.year import year_period_index
 from allocator.domain import DAY_TYPES, Period
 from allocator.errors import InputError
 from allocator.periods import coverage_problems, period_index

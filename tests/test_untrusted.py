@@ -256,7 +256,7 @@ def metered_case(tmp_path):
 
 def _read_metered(folder: Path):
     from allocator.metered import read_metered
-    from allocator.year import study_intervals
+    from allocator.timegrid import study_intervals
 
     st = read_study(folder / W)
     s = st.settings

@@ -32,7 +32,7 @@ from allocator.errors import InputError
 from allocator.weather import (GROUND_ALBEDO, MEAN_EARTH_RADIUS_KM, plane_of_array_w_per_m2,
                                read_weather, record_midpoints_utc, site_distance_km,
                                study_record_index, weather_pv_pu, zone_standard_offset)
-from allocator.year import study_intervals
+from allocator.timegrid import study_intervals
 
 DATA = Path(pvlib.__file__).parent / "data"
 GREENSBORO = DATA / "723170TYA.CSV"  # NREL TMY3, shipped in pvlib's data folder

@@ -400,7 +400,7 @@ def _operating_time_warnings(tmp_path, name, delays_s, system=None):
     ((0.38, 0.38), {"breaker_time_s": 0.01}, set()),
 ])
 def test_warning_delay_plus_breaker_above_400_ms(tmp_path, delays_s, system, warned):
-    from allocator.frequency import SystemParams
+    from allocator.system import SystemParams
 
     breaker_s = (system or {}).get("breaker_time_s", SystemParams().breaker_time_s)
     # the cases are built around the limit: the expected set is what the sums say

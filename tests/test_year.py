@@ -40,7 +40,8 @@ from demandlib.bdew._profiles25 import _bdew_datapath  # demandlib's BDEW table 
 from allocator.domain import DAY_TYPES, Settings
 from allocator.solar import clearsky_ghi_w_per_m2, clearsky_pv_pu, solar_position_deg
 from allocator.workbook import read_study
-from allocator.year import build_year, day_type_index, holiday_dates, study_intervals
+from allocator.timegrid import day_type_index, holiday_dates, study_intervals
+from allocator.year import build_year
 from wbfactory import BASE_SETTINGS, base_feeders, flat_profiles, write_workbook
 
 SUNDAY = DAY_TYPES.index("sunday")

@@ -76,7 +76,7 @@ def read_metered_years(paths, study: Study) -> tuple[MeteredData, ...]:
 
 
 def _grid(study: Study, year: int) -> pd.DatetimeIndex:
-    from ..year import study_intervals
+    from ..timegrid import study_intervals
 
     return study_intervals(year, study.settings.timezone, study.settings.interval_minutes)
 

@@ -31,9 +31,8 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from ..check import year_period_index
 from ..domain import UNARMED, Study
-from ..year import Year
+from ..year import Year, year_period_index
 from .heuristic import Band, evaluate, shares, violation_rel
 from .solve import PlanOutcome, band_of, plan_allocation
 from .units import Units, build_units

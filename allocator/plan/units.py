@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..check import contribution_mw
+from ..armed import contribution_mw
 from ..domain import RELAY_STANDARD, UNARMED, Study
 from ..year import Year
 

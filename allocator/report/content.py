@@ -14,7 +14,8 @@ import numpy as np
 import pandas as pd
 
 from .. import vocab
-from ..check import Check, ScenarioChecks, all_warnings, contribution_mw
+from ..armed import contribution_mw
+from ..check import Check, ScenarioChecks, all_warnings
 from ..domain import UNARMED
 
 #: shown in the workbook summary and the HTML page, in this order

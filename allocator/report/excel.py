@@ -21,7 +21,8 @@ import pandas as pd
 from openpyxl.formatting.rule import CellIsRule
 from openpyxl.styles import Alignment, Border, Font, PatternFill, Side
 
-from .. import __version__, vocab
+from .. import vocab
+from ..version import __version__
 from ..check import Check, ScenarioChecks, by_substation, exporting_feeders, summary_dict
 from ..export import stacked
 from ..runrecord import SIGN_OFF

@@ -12,7 +12,8 @@ from pathlib import Path
 
 import pandas as pd
 
-from .. import __version__, vocab
+from .. import vocab
+from ..version import __version__
 from ..safeio import write_csv
 from .excel import time_cols
 from .html import CAUTION_STRIP, CSS, _table, _td, esc

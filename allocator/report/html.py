@@ -14,7 +14,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__, vocab
+from .. import vocab
+from ..version import __version__
 from ..check import Check, ScenarioChecks, exporting_feeders
 from ..export import as_set, stacked
 from ..runrecord import SIGN_OFF

@@ -43,6 +43,12 @@ FILL_TITLE = "D7E3EA"
 #: categorical order for blocks, feeder classes and day types (black left out: it is ink)
 CATEGORICAL = (BLUE, ORANGE, GREEN, PURPLE, SKY, VERMILION, YELLOW, "#5D5D5D")
 
+#: line series (the frequency traces, one per loss size)
+SERIES = (BLUE, VERMILION, GREEN, PURPLE, ORANGE, SKY, BLACK, YELLOW)
+#: reference lines of the frequency figures: nominal frequency, floor and ceiling
+NOMINAL_LINE = "#8C8C8C"
+LIMIT_LINE = "#404040"
+
 #: hatches used after the colours run out, so a ninth class is still told apart
 HATCHES = ("", "//", "..", "xx", "\\\\", "oo")
 
