@@ -77,15 +77,9 @@ def rule_problems(study: Study, block_idx: np.ndarray, file: str,
     return out
 
 
-def read_assignment(path: str | os.PathLike, study: Study) -> tuple[np.ndarray, list[str]]:
-    """Read a ``feeder_id,block`` CSV.  Returns (block index per feeder, warnings).
-
-    Feeders the file does not list are unarmed (a warning says how many).  Raises
-    :class:`InputError` listing every problem: unknown feeders or blocks, a feeder twice, and
-    every hard-rule violation (see :func:`rule_problems`).
-    """
-    p = Path(path)
-    col = Collector(str(p))
+def _read_text(p: Path, col: Collector) -> str:
+    """The file's text (UTF-8, BOM allowed); raises when it is missing, over
+    :data:`MAX_ASSIGNMENT_BYTES` (bytes), not UTF-8 or holds NUL bytes."""
     if not p.is_file():
         col.add("file not found")
         col.raise_if_any()
@@ -102,7 +96,11 @@ def read_assignment(path: str | os.PathLike, study: Study) -> tuple[np.ndarray, 
     if "\x00" in text:
         col.add("contains NUL bytes; expected a CSV text file feeder_id,block")
         col.raise_if_any()
-    reader = csv.reader(io.StringIO(text, newline=""))
+    return text
+
+
+def _read_header(col: Collector, reader) -> list[str]:
+    """The CSV's header line, stripped and lower-case; raises when empty or unreadable."""
     try:
         header = next(reader)
     except StopIteration:
@@ -111,19 +109,17 @@ def read_assignment(path: str | os.PathLike, study: Study) -> tuple[np.ndarray, 
     except csv.Error as exc:
         col.add(f"not readable as CSV: {exc}", row=1)
         col.raise_if_any()
-    header = [h.strip().lower() for h in header]
-    if "period" in header and "feeder_id" in header and "block" in header:
-        return _read_schedule(p, col, reader, header, study)
-    for c in ("feeder_id", "block"):
-        if c not in header:
-            col.add(f"missing column '{c}' in the header line (found: {', '.join(header)})",
-                    row=1, column=c)
-    col.raise_if_any()
+    return [h.strip().lower() for h in header]
+
+
+def _read_block_lines(col: Collector, reader, header: list[str], study: Study
+                      ) -> tuple[np.ndarray, dict[int, int]]:
+    """The ``feeder_id,block`` lines → (block index per feeder, feeder → line); every
+    problem collected."""
     i_f, i_b = header.index("feeder_id"), header.index("block")
     fidx = {fid: i for i, fid in enumerate(study.feeder_ids)}
     bidx = {b: i for i, b in enumerate(study.block_names)}
     out = np.full(len(study.feeders), UNARMED, dtype=np.intp)
-    seen: dict[int, int] = {}
     lines: dict[int, int] = {}
     try:
         for line_no, rec in enumerate(reader, start=2):
@@ -139,11 +135,10 @@ def read_assignment(path: str | os.PathLike, study: Study) -> tuple[np.ndarray, 
                         row=line_no, column="feeder_id")
                 continue
             f = fidx[fid]
-            if f in seen:
-                col.add(f"feeder '{fid}' listed twice (also line {seen[f]})", row=line_no,
+            if f in lines:
+                col.add(f"feeder '{fid}' listed twice (also line {lines[f]})", row=line_no,
                         column="feeder_id")
                 continue
-            seen[f] = line_no
             lines[f] = line_no
             if blk == "" or blk.lower() in ("unarmed", "none"):
                 continue
@@ -155,10 +150,33 @@ def read_assignment(path: str | os.PathLike, study: Study) -> tuple[np.ndarray, 
             out[f] = bidx[blk]
     except csv.Error as exc:
         col.add(f"not readable as CSV: {exc}", row=reader.line_num)
+    return out, lines
+
+
+def read_assignment(path: str | os.PathLike, study: Study) -> tuple[np.ndarray, list[str]]:
+    """Read a ``feeder_id,block`` CSV.  Returns (block index per feeder, warnings).
+
+    Feeders the file does not list are unarmed (a warning says how many).  Raises
+    :class:`InputError` listing every problem: unknown feeders or blocks, a feeder twice, and
+    every hard-rule violation (see :func:`rule_problems`).
+    """
+    p = Path(path)
+    col = Collector(str(p))
+    text = _read_text(p, col)
+    reader = csv.reader(io.StringIO(text, newline=""))
+    header = _read_header(col, reader)
+    if "period" in header and "feeder_id" in header and "block" in header:
+        return _read_schedule(p, col, reader, header, study)
+    for c in ("feeder_id", "block"):
+        if c not in header:
+            col.add(f"missing column '{c}' in the header line (found: {', '.join(header)})",
+                    row=1, column=c)
+    col.raise_if_any()
+    out, lines = _read_block_lines(col, reader, header, study)
     col.extend(rule_problems(study, out, str(p), rows=lines))
     col.raise_if_any()
     warnings = []
-    missing = len(study.feeders) - len(seen)
+    missing = len(study.feeders) - len(lines)
     if missing:
         warnings.append(f"{p.name}: {missing} feeder(s) of the workbook are not listed and are "
                         "taken as unarmed")

@@ -27,7 +27,7 @@ from . import vocab
 from .armed import armed_mw, armed_mw_scheduled, contribution_mw, share_pct
 from .domain import RELAY_STANDARD, UNARMED, Block, Study
 from .timefmt import iso_local, iso_utc
-from .year import Year, year_period_index
+from .year import Year, on_study_calendar, year_period_index
 
 
 # --------------------------------------------------------------------------------------------
@@ -611,6 +611,18 @@ class ScenarioChecks:
         return df.reset_index(drop=True)
 
 
+def smallest_headroom_pp(checks) -> float:
+    """The least room to a band edge over every block and scenario (pp; negative: out)."""
+    return float(min(min(v.headroom_to_min_pp, v.headroom_to_max_pp) for v in checks.verdicts))
+
+
+def as_set(checks: "Check | ScenarioChecks") -> ScenarioChecks:
+    """A single-scenario :class:`Check` as a one-element :class:`ScenarioChecks`."""
+    if isinstance(checks, ScenarioChecks):
+        return checks
+    return ScenarioChecks(checks.study, (checks,), checks.warnings)
+
+
 def statement_checks(checks: ScenarioChecks) -> tuple[Check, ...]:
     """The scenarios the annual statement is made from: the metered year(s) when there are
     any (what the scheme really held; one statement per calendar year of metered data),
@@ -623,7 +635,7 @@ def statement_check(checks: ScenarioChecks) -> Check:
     """The one statement scenario (work list): the metered year of the study year, else the
     latest metered year, else the first scenario."""
     cs = statement_checks(checks)
-    same = [c for c in cs if c.year.calendar_year == checks.study.settings.year]
+    same = [c for c in cs if on_study_calendar(checks.study, c.year)]
     return same[0] if same else cs[-1]
 
 

@@ -215,19 +215,27 @@ def profiles_sheet(prof) -> pd.DataFrame:
 
 
 # ---- feeders -----------------------------------------------------------------------------
-def build_feeders(rng: np.random.Generator, prof) -> pd.DataFrame:
+def _substation_kinds(rng: np.random.Generator, character: str, n: int) -> list[str]:
+    """The profiles of a substation's ``n`` feeders in the mix of its ``character``,
+    shuffled."""
+    classes = list(MIX[character])
+    p = np.array([MIX[character][c] for c in classes])
+    counts = np.floor(p * n).astype(int)
+    while counts.sum() < n:  # hand out the remainder by largest share
+        counts[np.argmax(p * n - counts)] += 1
+    kinds = [c for c, k in zip(classes, counts) for _ in range(k)]
+    return list(rng.permutation(kinds))
+
+
+def _base_feeders(rng: np.random.Generator, prof) -> pd.DataFrame:
+    """Every substation's feeders with peak and PV (MW) and customers, all on standard
+    relays; ``_heavy`` marks the estate feeders with export-size PV."""
     # lowest residential value around a spring weekend midday, per unit of peak
     spring_midday = min(prof["residential"][("spring", d)][11:14].min()
                         for d in ("saturday", "sunday"))
     rows = []
     for name, code, zone, character, n in SUBSTATIONS:
-        classes = list(MIX[character])
-        p = np.array([MIX[character][c] for c in classes])
-        counts = np.floor(p * n).astype(int)
-        while counts.sum() < n:  # hand out the remainder by largest share
-            counts[np.argmax(p * n - counts)] += 1
-        kinds = [c for c, k in zip(classes, counts) for _ in range(k)]
-        kinds = list(rng.permutation(kinds))
+        kinds = _substation_kinds(rng, character, n)
         for i, kind in enumerate(kinds, start=1):
             lo, hi = PEAK_RANGE[kind]
             peak = round(float(rng.uniform(lo, hi)), 2)
@@ -244,9 +252,11 @@ def build_feeders(rng: np.random.Generator, prof) -> pd.DataFrame:
                 peak_mw=peak, pv_mw=round(float(pv), 2), relay="standard", priority=None,
                 allowed_blocks=None, trip_group=None, current_block=None,
                 customers=max(cust, 1), _heavy=heavy))
-    df = pd.DataFrame(rows)
+    return pd.DataFrame(rows)
 
-    # priority sites: invented hospitals, a dialysis centre / care homes, waterworks
+
+def _mark_priority(rng: np.random.Generator, df: pd.DataFrame) -> None:
+    """Priority sites: invented hospitals, a dialysis centre / care homes, waterworks."""
     priority = [("QHN", "hospital", "commercial"), ("SLA", "hospital", "mixed"),
                 ("SQL", "life_support", "commercial"), ("KRF", "life_support", "residential"),
                 ("TNB", "water", "industrial"), ("MRN", "water", "rural")]
@@ -257,6 +267,9 @@ def build_feeders(rng: np.random.Generator, prof) -> pd.DataFrame:
         df.loc[idx, "priority"] = cat
         df.loc[idx, "customers"] = int(rng.integers(1, 6))
 
+
+def _mark_relays(rng: np.random.Generator, df: pd.DataFrame) -> None:
+    """Relays that cannot be armed, trip groups, and direction-blocked relays."""
     free = df.priority.isna() & ~df._heavy
 
     # relays that cannot be armed (old breakers without a UFLS relay)
@@ -279,8 +292,10 @@ def build_feeders(rng: np.random.Generator, prof) -> pd.DataFrame:
     db_idx = rng.choice(df.index, size=n_db, replace=False, p=weights / weights.sum())
     df.loc[db_idx, "relay"] = "direction_blocked"
 
-    # allowed_blocks: some large industrial feeders only in the last two blocks, some
-    # commercial ones not in the first two, one feeder exempt by contract
+
+def _mark_allowed_blocks(rng: np.random.Generator, df: pd.DataFrame) -> None:
+    """allowed_blocks: some large industrial feeders only in the last two blocks, some
+    commercial ones not in the first two, one feeder exempt by contract."""
     free = df.priority.isna() & (df.relay != "none") & df.trip_group.isna() & ~df._heavy
     ind = df.index[free & (df.profile == "industrial")]
     df.loc[rng.choice(ind, size=2, replace=False), "allowed_blocks"] = "B4,B5"
@@ -288,6 +303,14 @@ def build_feeders(rng: np.random.Generator, prof) -> pd.DataFrame:
     df.loc[rng.choice(com, size=2, replace=False), "allowed_blocks"] = "B3,B4,B5"
     rest = df.index[free & df.allowed_blocks.isna() & (df.profile == "mixed")]
     df.loc[rng.choice(rest, size=1), "allowed_blocks"] = "none"
+
+
+def build_feeders(rng: np.random.Generator, prof) -> pd.DataFrame:
+    """The demo's feeders sheet (with the helper column ``_heavy``), drawn from ``rng``."""
+    df = _base_feeders(rng, prof)
+    _mark_priority(rng, df)
+    _mark_relays(rng, df)
+    _mark_allowed_blocks(rng, df)
     return df
 
 

@@ -288,6 +288,33 @@ class Study:
         _, dense = np.unique(out, return_inverse=True)
         return dense.astype(np.intp)
 
+    @cached_property
+    def is_remote_settable(self) -> np.ndarray:
+        """``[feeder]`` bool: the feeder's relay is set from the control room, because every
+        feeder the relay trips is switchable (:attr:`is_switchable`).  Such a relay is never
+        visited in the field: its block follows a remote schedule."""
+        rel = self.relay_index
+        if rel.size == 0:
+            return np.zeros(0, dtype=bool)
+        every = np.ones(int(rel.max()) + 1, dtype=bool)
+        np.logical_and.at(every, rel, self.is_switchable)
+        return every[rel]
+
+    def field_allocation(self, schedule: np.ndarray, now: np.ndarray | None = None
+                         ) -> np.ndarray:
+        """``[feeder]`` block each relay is set to in the field for a ``schedule[feeder,
+        period]``: a remote-settable relay (:attr:`is_remote_settable`) keeps the block it
+        has ``now`` (default: the current allocation), since the control room, not a field
+        crew, applies its schedule; every other relay takes its planned block (one block in
+        every period).
+
+        This is the one place of the rule "a remote-settable relay is set from the control
+        room, never visited": the planner's count of field changes, the work list and the
+        visit order all go through it."""
+        schedule = np.asarray(schedule, dtype=np.intp)
+        now = self.current_assignment if now is None else np.asarray(now, dtype=np.intp)
+        return np.where(self.is_remote_settable, now, schedule[:, 0])
+
     def relays_changed(self, new: np.ndarray, old: np.ndarray | None = None) -> int:
         """How many relays get a new block setting going from ``old`` (default: the current
         allocation) to ``new`` (block index per feeder); a trip group counts once."""

@@ -185,8 +185,9 @@ def _unreadable(exc: BaseException) -> str:
     return f"cannot read the workbook: {type(root).__name__}: {str(root)[:200]}"
 
 
-def _read_sheets(path: Path, col: Collector) -> dict[str, tuple[list[str], list[Row]]]:
-    """Open the workbook and return every sheet as (header, rows).  Raises on unreadable files."""
+def _check_container(path: Path, col: Collector) -> None:
+    """Refuse, before any parsing, a file over the size limit (bytes), not a zip, expanding
+    past :data:`MAX_UNCOMPRESSED_MB`, or without ``xl/workbook.xml``."""
     size = path.stat().st_size
     limit = max_workbook_bytes()
     if size > limit:
@@ -213,6 +214,35 @@ def _read_sheets(path: Path, col: Collector) -> dict[str, tuple[list[str], list[
                 "(.xlsm/.xlsb/.ods are not read; save as .xlsx)")
         col.raise_if_any()
 
+
+def _sheet_table(ws, col: Collector) -> tuple[list[str], list[Row]]:
+    """One worksheet as (lower-case header, non-blank rows); a header name twice is
+    collected."""
+    it = ws.iter_rows(values_only=True)
+    try:
+        header_cells = next(it)
+    except StopIteration:
+        return [], []
+    header = ["" if _blank(h) else str(h).strip().lower() for h in header_cells]
+    seen: set[str] = set()
+    for j, h in enumerate(header):
+        if h and h in seen:
+            col.add(f"column '{h}' appears twice in the header", ws.title, 1, h)
+        seen.add(h)
+    rows: list[Row] = []
+    for i, cells in enumerate(it, start=2):
+        if cells is None or all(_blank(c) for c in cells):
+            continue
+        vals = {h: cells[j] if j < len(cells) else None
+                for j, h in enumerate(header) if h}
+        rows.append(Row(i, vals))
+    return header, rows
+
+
+def _read_sheets(path: Path, col: Collector) -> dict[str, tuple[list[str], list[Row]]]:
+    """Open the workbook and return every sheet as (header, rows).  Raises on unreadable files."""
+    _check_container(path, col)
+
     import openpyxl  # imported late: keeps CLI start-up fast
     from openpyxl.xml import DEFUSEDXML
 
@@ -227,26 +257,7 @@ def _read_sheets(path: Path, col: Collector) -> dict[str, tuple[list[str], list[
     try:
         for ws in wb.worksheets:
             name = ws.title.strip().lower()
-            it = ws.iter_rows(values_only=True)
-            try:
-                header_cells = next(it)
-            except StopIteration:
-                out[name] = ([], [])
-                continue
-            header = ["" if _blank(h) else str(h).strip().lower() for h in header_cells]
-            seen: set[str] = set()
-            for j, h in enumerate(header):
-                if h and h in seen:
-                    col.add(f"column '{h}' appears twice in the header", ws.title, 1, h)
-                seen.add(h)
-            rows: list[Row] = []
-            for i, cells in enumerate(it, start=2):
-                if cells is None or all(_blank(c) for c in cells):
-                    continue
-                vals = {h: cells[j] if j < len(cells) else None
-                        for j, h in enumerate(header) if h}
-                rows.append(Row(i, vals))
-            out[name] = (header, rows)
+            out[name] = _sheet_table(ws, col)
     except Exception as exc:
         col.add(_unreadable(exc))
         col.raise_if_any()
@@ -308,9 +319,10 @@ def _require_columns(col: Collector, sheet: str, header: list[str], required: tu
 # --------------------------------------------------------------------------------------------
 # sheets
 # --------------------------------------------------------------------------------------------
-def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, list[str]]:
+def _settings_rows(col: Collector, rows: list[Row]) -> dict[str, Row]:
+    """The settings rows by lower-case key; blank, repeated, unknown and missing required
+    keys are collected."""
     sheet = "settings"
-    cells = _Cells(col, sheet)
     kv: dict[str, Row] = {}
     for r in rows:
         k = r.values.get("key")
@@ -331,74 +343,102 @@ def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, l
     for k in SETTING_KEYS_REQUIRED:
         if k not in kv:
             col.add(f"missing required key '{k}'", sheet, None, "key")
-    warnings: list[str] = []
-    n_before = len(col.problems)
+    return kv
 
-    # every message about a value starts with its key ("interval_minutes: expected ...")
-    def txt(k: str) -> str | None:
-        if k not in kv:
+
+class _SettingValues:
+    """Typed access to the settings values by key; every message about a value starts with
+    its key ("interval_minutes: expected ...")."""
+
+    def __init__(self, col: Collector, kv: dict[str, Row]):
+        self.col = col
+        self.kv = kv
+        self.cells = _Cells(col, "settings")
+
+    def txt(self, k: str) -> str | None:
+        """The text value of key ``k``, or None (absent, blank or bad)."""
+        if k not in self.kv:
             return None
-        return cells.text(kv[k], "value", required=k in SETTING_KEYS_REQUIRED, label=k)
+        return self.cells.text(self.kv[k], "value", required=k in SETTING_KEYS_REQUIRED,
+                               label=k)
 
-    def num(k: str, **kw) -> float | None:
-        if k not in kv:
+    def num(self, k: str, **kw) -> float | None:
+        """The number value of key ``k`` (``kw`` as :meth:`_Cells.number`), or None."""
+        if k not in self.kv:
             return None
         kw.setdefault("required", k in SETTING_KEYS_REQUIRED)
-        return cells.number(kv[k], "value", label=k, **kw)
+        return self.cells.number(self.kv[k], "value", label=k, **kw)
 
-    def bad(k: str, msg: str) -> None:
-        col.add(f"{k}: {msg}", sheet, kv[k].number if k in kv else None, "value")
+    def bad(self, k: str, msg: str) -> None:
+        """Collect ``msg`` about the value of key ``k``."""
+        self.col.add(f"{k}: {msg}", "settings", self.kv[k].number if k in self.kv else None,
+                     "value")
 
-    utility = txt("utility")
-    year = num("year", minimum=1900, maximum=2200, what="a year such as 2025")
-    if year is not None and not float(year).is_integer():
-        bad("year", f"expected a whole year, found {year}")
-    tz = txt("timezone")
+
+def _timezone_setting(sv: _SettingValues) -> str | None:
+    """``timezone``: an IANA name known to zoneinfo, else None (collected)."""
+    tz = sv.txt("timezone")
     if tz is not None:
         try:
             if tz not in available_timezones():
                 raise KeyError(tz)
             ZoneInfo(tz)
         except Exception:
-            bad("timezone", f"unknown time zone '{tz}'; expected an IANA name such as "
-                "'Europe/Vienna' or 'America/Chicago'")
+            sv.bad("timezone", f"unknown time zone '{tz}'; expected an IANA name such as "
+                   "'Europe/Vienna' or 'America/Chicago'")
             tz = None
-    nominal = num("nominal_hz", what="50 or 60")
+    return tz
+
+
+def _site_settings(sv: _SettingValues) -> dict[str, object]:
+    """utility, year, timezone, nominal frequency (Hz), interval (minutes), latitude and
+    longitude (degrees)."""
+    v: dict[str, object] = {"utility": sv.txt("utility")}
+    year = sv.num("year", minimum=1900, maximum=2200, what="a year such as 2025")
+    if year is not None and not float(year).is_integer():
+        sv.bad("year", f"expected a whole year, found {year}")
+    v["year"] = year
+    v["tz"] = _timezone_setting(sv)
+    nominal = sv.num("nominal_hz", what="50 or 60")
     if nominal is not None and nominal not in (50.0, 60.0):
-        bad("nominal_hz", f"expected 50 or 60, found {nominal:g}")
-    interval = num("interval_minutes", what="5, 10, 15, 30 or 60")
+        sv.bad("nominal_hz", f"expected 50 or 60, found {nominal:g}")
+    interval = sv.num("interval_minutes", what="5, 10, 15, 30 or 60")
     if interval is not None and interval not in INTERVAL_MINUTES:
-        bad("interval_minutes", f"expected 5, 10, 15, 30 or 60, found {interval:g}")
-    lat = num("latitude", minimum=-90, maximum=90, what="latitude in degrees")
-    lon = num("longitude", minimum=-180, maximum=180, what="longitude in degrees")
-    country = txt("holiday_country")
-    subdiv = txt("holiday_subdivision")
+        sv.bad("interval_minutes", f"expected 5, 10, 15, 30 or 60, found {interval:g}")
+    v["nominal"], v["interval"] = nominal, interval
+    v["lat"] = sv.num("latitude", minimum=-90, maximum=90, what="latitude in degrees")
+    v["lon"] = sv.num("longitude", minimum=-180, maximum=180, what="longitude in degrees")
+    return v
+
+
+def _holiday_settings(sv: _SettingValues, warnings: list[str]) -> dict[str, object]:
+    """holiday_country (upper case) and holiday_subdivision, checked against the
+    ``holidays`` package; a warning when no country is given."""
+    country = sv.txt("holiday_country")
+    subdiv = sv.txt("holiday_subdivision")
     if country is not None:
         import holidays as _hol
 
         supported = _hol.list_supported_countries()
         if country.upper() not in supported:
-            bad("holiday_country", f"unknown holiday country '{country}'; expected an ISO "
-                "3166 alpha-2 code supported by the 'holidays' package, e.g. DE, FR, US")
+            sv.bad("holiday_country", f"unknown holiday country '{country}'; expected an ISO "
+                   "3166 alpha-2 code supported by the 'holidays' package, e.g. DE, FR, US")
             country = None
         else:
             country = country.upper()
             if subdiv is not None and subdiv.upper() not in {s.upper() for s in
                                                               supported[country]}:
-                bad("holiday_subdivision", f"unknown subdivision '{subdiv}' for {country}; "
-                    f"expected one of {', '.join(supported[country][:20])}")
+                sv.bad("holiday_subdivision", f"unknown subdivision '{subdiv}' for {country}; "
+                       f"expected one of {', '.join(supported[country][:20])}")
                 subdiv = None
     else:
         warnings.append("no holiday_country: public holidays are treated as ordinary days")
-    basis = txt("demand_basis")
-    if basis is not None and basis not in ("feeders", "metered_total"):
-        bad("demand_basis", f"expected 'feeders' or 'metered_total', found '{basis}'")
-    derate = num("pv_derate", minimum=0, maximum=1.5, what="a factor between 0 and 1.5")
-    derate = 0.8 if derate is None else derate
-    policy = txt("priority_policy")
-    if policy is not None and policy not in ("exclude", "last_block"):
-        bad("priority_policy", f"expected 'exclude' or 'last_block', found '{policy}'")
-    rule_raw = txt("compliance_rule")
+    return {"country": country, "subdiv": subdiv}
+
+
+def _compliance_setting(sv: _SettingValues) -> tuple[str | None, float | None]:
+    """``compliance_rule`` as (rule, tail percentile % or None); (None, None) when bad."""
+    rule_raw = sv.txt("compliance_rule")
     rule, pct = None, None
     if rule_raw is not None:
         m = re.fullmatch(r"percentile\s*:\s*([0-9.]+)", rule_raw)
@@ -409,61 +449,119 @@ def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, l
             if 0 < p < 50:
                 rule, pct = "percentile", p
             else:
-                bad("compliance_rule", "percentile:P takes the tail share P allowed outside "
-                    f"the band, 0 < P < 50 (e.g. percentile:5), found {p:g}")
+                sv.bad("compliance_rule", "percentile:P takes the tail share P allowed outside "
+                       f"the band, 0 < P < 50 (e.g. percentile:5), found {p:g}")
         else:
-            bad("compliance_rule", "expected 'every_interval', 'percentile:P' (e.g. "
-                f"percentile:5) or 'mean', found '{rule_raw}'")
-    max_changes = num("max_changes", required=False, minimum=0, what="a whole number ≥ 0")
+            sv.bad("compliance_rule", "expected 'every_interval', 'percentile:P' (e.g. "
+                   f"percentile:5) or 'mean', found '{rule_raw}'")
+    return rule, pct
+
+
+def _rule_settings(sv: _SettingValues) -> dict[str, object]:
+    """demand_basis, pv_derate (factor, default 0.8), priority_policy and compliance_rule."""
+    basis = sv.txt("demand_basis")
+    if basis is not None and basis not in ("feeders", "metered_total"):
+        sv.bad("demand_basis", f"expected 'feeders' or 'metered_total', found '{basis}'")
+    derate = sv.num("pv_derate", minimum=0, maximum=1.5, what="a factor between 0 and 1.5")
+    derate = 0.8 if derate is None else derate
+    policy = sv.txt("priority_policy")
+    if policy is not None and policy not in ("exclude", "last_block"):
+        sv.bad("priority_policy", f"expected 'exclude' or 'last_block', found '{policy}'")
+    rule, pct = _compliance_setting(sv)
+    return {"basis": basis, "derate": derate, "policy": policy, "rule": rule, "pct": pct}
+
+
+def _solver_settings(sv: _SettingValues) -> dict[str, object]:
+    """max_changes, solver_time_limit_s (s), mip_gap, gap_fill, max_substation_share_pct,
+    deviation_tolerance_pct and band_margin_pp (percentage points)."""
+    max_changes = sv.num("max_changes", required=False, minimum=0, what="a whole number ≥ 0")
     if max_changes is not None and not float(max_changes).is_integer():
-        bad("max_changes", f"expected a whole number, found {max_changes}")
-    tlim = num("solver_time_limit_s", required=False, minimum=1, what="seconds ≥ 1")
-    gap = num("mip_gap", required=False, minimum=0, maximum=1, what="a fraction 0..1")
-    gap_fill = txt("gap_fill") or "profile"
+        sv.bad("max_changes", f"expected a whole number, found {max_changes}")
+    v: dict[str, object] = {"max_changes": max_changes}
+    v["tlim"] = sv.num("solver_time_limit_s", required=False, minimum=1, what="seconds ≥ 1")
+    v["gap"] = sv.num("mip_gap", required=False, minimum=0, maximum=1, what="a fraction 0..1")
+    gap_fill = sv.txt("gap_fill") or "profile"
     if gap_fill not in ("profile", "interpolate", "error"):
-        bad("gap_fill", f"expected 'profile', 'interpolate' or 'error', found '{gap_fill}'")
-    mss = num("max_substation_share_pct", required=False, minimum=0, maximum=100,
-              what="a percentage 0..100")
-    dev_tol = num("deviation_tolerance_pct", required=False, minimum=0, maximum=1000,
-                  what="a percentage ≥ 0")
-    margin = num("band_margin_pp", required=False, minimum=0, maximum=50,
-                 what="percentage points ≥ 0")
-    objective = txt("objective") or "fewest_changes"
+        sv.bad("gap_fill", f"expected 'profile', 'interpolate' or 'error', found '{gap_fill}'")
+    v["gap_fill"] = gap_fill
+    v["mss"] = sv.num("max_substation_share_pct", required=False, minimum=0, maximum=100,
+                      what="a percentage 0..100")
+    v["dev_tol"] = sv.num("deviation_tolerance_pct", required=False, minimum=0, maximum=1000,
+                          what="a percentage ≥ 0")
+    v["margin"] = sv.num("band_margin_pp", required=False, minimum=0, maximum=50,
+                         what="percentage points ≥ 0")
+    return v
+
+
+def _planning_settings(sv: _SettingValues) -> dict[str, object]:
+    """objective, exporting_standard_relays, PV tilt and azimuth (degrees) and the
+    remote-switching caps (whole numbers)."""
+    objective = sv.txt("objective") or "fewest_changes"
     if objective not in OBJECTIVES:
-        bad("objective", f"expected {' or '.join(OBJECTIVES)}, found '{objective}'")
-    exporting = (txt("exporting_standard_relays") or "allow").lower()
+        sv.bad("objective", f"expected {' or '.join(OBJECTIVES)}, found '{objective}'")
+    exporting = (sv.txt("exporting_standard_relays") or "allow").lower()
     if exporting not in EXPORTING_CHOICES:
-        bad("exporting_standard_relays", f"expected 'allow' or 'avoid', found '{exporting}'")
-    tilt = num("pv_tilt_deg", required=False, minimum=0, maximum=90,
-               what="a tilt in degrees 0..90")
-    azimuth = num("pv_azimuth_deg", required=False, minimum=0, maximum=360,
-                  what="an azimuth in degrees 0..360 (180 = south)")
+        sv.bad("exporting_standard_relays",
+               f"expected 'allow' or 'avoid', found '{exporting}'")
+    tilt = sv.num("pv_tilt_deg", required=False, minimum=0, maximum=90,
+                  what="a tilt in degrees 0..90")
+    azimuth = sv.num("pv_azimuth_deg", required=False, minimum=0, maximum=360,
+                     what="an azimuth in degrees 0..360 (180 = south)")
     caps = {}
     for k in ("max_switched_feeders", "max_switch_operations_per_year"):
-        caps[k] = num(k, required=False, minimum=0, what="a whole number ≥ 0")
+        caps[k] = sv.num(k, required=False, minimum=0, what="a whole number ≥ 0")
         if caps[k] is not None and not float(caps[k]).is_integer():
-            bad(k, f"expected a whole number, found {caps[k]}")
+            sv.bad(k, f"expected a whole number, found {caps[k]}")
         caps[k] = int(caps[k]) if caps[k] is not None else None
-    if len(col.problems) > n_before or any(
-            v is None for v in (utility, year, tz, nominal, interval, lat, lon, basis, policy,
-                                rule)):
-        return None, warnings
+    return {"objective": objective, "exporting": exporting, "tilt": tilt,
+            "azimuth": azimuth, "caps": caps}
+
+
+#: the parsed settings without which no :class:`Settings` is built
+_SETTINGS_NEEDED = ("utility", "year", "tz", "nominal", "interval", "lat", "lon", "basis",
+                    "policy", "rule")
+
+
+def _settings_from(v: dict[str, object]) -> Settings:
+    """The :class:`Settings` of parsed values ``v``, with the defaults for optional keys."""
+    subdiv, derate, max_changes = v["subdiv"], v["derate"], v["max_changes"]
+    tlim, gap, dev_tol = v["tlim"], v["gap"], v["dev_tol"]
+    margin, tilt = v["margin"], v["tilt"]
     return Settings(
-        utility=utility, year=int(year), timezone=tz, nominal_hz=float(nominal),
-        interval_minutes=int(interval), latitude_deg=lat, longitude_deg=lon,
-        holiday_country=country, holiday_subdivision=subdiv.upper() if subdiv else None,
-        demand_basis=basis, pv_derate=float(derate if derate is not None else 0.8),
-        priority_policy=policy, compliance_rule=rule, compliance_percentile=pct,
+        utility=v["utility"], year=int(v["year"]), timezone=v["tz"],
+        nominal_hz=float(v["nominal"]), interval_minutes=int(v["interval"]),
+        latitude_deg=v["lat"], longitude_deg=v["lon"], holiday_country=v["country"],
+        holiday_subdivision=subdiv.upper() if subdiv else None,
+        demand_basis=v["basis"], pv_derate=float(derate if derate is not None else 0.8),
+        priority_policy=v["policy"], compliance_rule=v["rule"],
+        compliance_percentile=v["pct"],
         max_changes=int(max_changes) if max_changes is not None else None,
         solver_time_limit_s=float(tlim) if tlim is not None else 120.0,
-        mip_gap=float(gap) if gap is not None else 1e-4, gap_fill=gap_fill,
-        max_substation_share_pct=mss,
+        mip_gap=float(gap) if gap is not None else 1e-4, gap_fill=v["gap_fill"],
+        max_substation_share_pct=v["mss"],
         deviation_tolerance_pct=10.0 if dev_tol is None else float(dev_tol),
-        band_margin_pp=0.0 if margin is None else float(margin), objective=objective,
-        exporting_standard_relays=exporting,
-        pv_tilt_deg=0.0 if tilt is None else float(tilt), pv_azimuth_deg=azimuth,
-        **caps,
-    ), warnings
+        band_margin_pp=0.0 if margin is None else float(margin), objective=v["objective"],
+        exporting_standard_relays=v["exporting"],
+        pv_tilt_deg=0.0 if tilt is None else float(tilt), pv_azimuth_deg=v["azimuth"],
+        **v["caps"],
+    )
+
+
+def _parse_settings(col: Collector, rows: list[Row]) -> tuple[Settings | None, list[str]]:
+    """The ``settings`` sheet (key, value): (Settings or None when any value is bad or
+    missing, warnings); every problem collected."""
+    kv = _settings_rows(col, rows)
+    warnings: list[str] = []
+    n_before = len(col.problems)
+    sv = _SettingValues(col, kv)
+    v = _site_settings(sv)
+    v.update(_holiday_settings(sv, warnings))
+    v.update(_rule_settings(sv))
+    v.update(_solver_settings(sv))
+    v.update(_planning_settings(sv))
+    if len(col.problems) > n_before or any(v[k] is None for k in _SETTINGS_NEEDED):
+        return None, warnings
+    return _settings_from(v), warnings
 
 
 def _parse_blocks(col: Collector, rows: list[Row]) -> list[Block]:
@@ -648,10 +746,12 @@ def _parse_seasons(col: Collector, rows: list[Row]) -> tuple[list[str], np.ndarr
     return names, month_season
 
 
-def _parse_profiles(col: Collector, rows: list[Row], seasons: list[str]
-                    ) -> Profiles | None:
+def _profile_entries(col: Collector, cells: _Cells, rows: list[Row], seasons: list[str]
+                     ) -> tuple[dict[tuple[str, str, str], dict[int, tuple[float, int]]],
+                                list[str]]:
+    """The profile rows as (profile, season, day type) → minute of day → (value p.u., row),
+    and the profile names in sheet order; every problem collected."""
     sheet = "profiles"
-    cells = _Cells(col, sheet)
     entries: dict[tuple[str, str, str], dict[int, tuple[float, int]]] = {}
     names: list[str] = []
     for r in rows:
@@ -686,10 +786,14 @@ def _parse_profiles(col: Collector, rows: list[Row], seasons: list[str]
         d[minute] = (val, r.number)
         if prof not in names:
             names.append(prof)
-    if not names:
-        if not rows:
-            col.add("no profile rows", sheet, None, None)
-        return None
+    return entries, names
+
+
+def _profile_values(col: Collector, entries: dict, names: list[str], seasons: list[str]
+                    ) -> tuple[np.ndarray, dict[str, int]]:
+    """Per-minute values [profile, season, day type, minute] (p.u., NaN where a day is
+    missing or bad) and each profile's resolution (minutes); every problem collected."""
+    sheet = "profiles"
     values = np.full((len(names), len(seasons), len(DAY_TYPES), MINUTES_PER_DAY), np.nan)
     resolution: dict[str, int] = {}
     for p_i, p in enumerate(names):
@@ -717,6 +821,18 @@ def _parse_profiles(col: Collector, rows: list[Row], seasons: list[str]
                     continue
                 vals = np.array([pts[m][0] for m in mins])
                 values[p_i, s_i, d_i, :] = np.repeat(vals, step)
+    return values, resolution
+
+
+def _parse_profiles(col: Collector, rows: list[Row], seasons: list[str]
+                    ) -> Profiles | None:
+    """The ``profiles`` sheet; None when it has no usable row.  Every problem collected."""
+    entries, names = _profile_entries(col, _Cells(col, "profiles"), rows, seasons)
+    if not names:
+        if not rows:
+            col.add("no profile rows", "profiles", None, None)
+        return None
+    values, resolution = _profile_values(col, entries, names, seasons)
     return Profiles(tuple(names), tuple(seasons), values, np.zeros(12, dtype=np.intp),
                     resolution)
 
@@ -724,71 +840,89 @@ def _parse_profiles(col: Collector, rows: list[Row], seasons: list[str]
 _ALLOWED_SPLIT = re.compile(r"[,;]")
 
 
+def _allowed_blocks(col: Collector, r: Row, raw: str | None,
+                    block_names: set[str] | None) -> tuple[str, ...] | None:
+    """The ``allowed_blocks`` cell: None (blank = any block), () for 'none', else the
+    block names; unknown names are collected."""
+    if raw is None:
+        return None
+    if raw.lower() == "none":
+        return ()
+    toks = tuple(t.strip() for t in _ALLOWED_SPLIT.split(raw) if t.strip())
+    unknown = [t for t in toks if block_names is not None
+               and t not in block_names]
+    if unknown:
+        col.add(f"allowed_blocks names unknown block(s) {', '.join(unknown)}; "
+                f"blocks are {', '.join(sorted(block_names))}", "feeders", r.number,
+                "allowed_blocks")
+    return toks
+
+
+def _feeder_row(col: Collector, cells: _Cells, r: Row, seen: dict[str, int],
+                block_names: set[str] | None, profile_names: set[str] | None
+                ) -> Feeder | None:
+    """One row of the ``feeders`` sheet (MW values), or None (its problems collected);
+    ``seen`` maps feeder_id → first row and is updated."""
+    sheet = "feeders"
+    n0 = len(col.problems)
+    fid = cells.text(r, "feeder_id")
+    sub = cells.text(r, "substation")
+    zone = cells.text(r, "zone", required=False)
+    prof = cells.text(r, "profile")
+    peak = cells.number(r, "peak_mw", minimum=0, maximum=1000, what="MW ≥ 0")
+    pv = cells.number(r, "pv_mw", required=False, minimum=0, maximum=1000, what="MW ≥ 0")
+    relay = cells.text(r, "relay")
+    prio = cells.text(r, "priority", required=False)
+    allowed_raw = cells.text(r, "allowed_blocks", required=False)
+    tg = cells.text(r, "trip_group", required=False)
+    cur = cells.text(r, "current_block", required=False)
+    cust = cells.number(r, "customers", required=False, minimum=0, what="a count ≥ 0")
+    remote = cells.text(r, "remote_switch", required=False)
+    if remote is not None and remote.lower() not in ("yes", "no"):
+        col.add(f"expected 'yes' or blank, found '{remote[:40]}'", sheet, r.number,
+                "remote_switch")
+    if fid is not None:
+        if fid in seen:
+            col.add(f"duplicate feeder_id '{fid}' (also row {seen[fid]})", sheet, r.number,
+                    "feeder_id")
+        seen.setdefault(fid, r.number)
+    if prof is not None and profile_names is not None and prof not in profile_names:
+        col.add(f"unknown profile '{prof}'; the profiles sheet defines "
+                f"{', '.join(sorted(profile_names)) or 'none'}", sheet, r.number, "profile")
+    if relay is not None:
+        relay = relay.lower()
+        if relay not in RELAY_KINDS:
+            col.add(f"unknown relay '{relay}'; expected standard, direction_blocked or "
+                    "none", sheet, r.number, "relay")
+    if prio is not None and prio.lower() in ("no", "none", "false", "0"):
+        prio = None
+    allowed = _allowed_blocks(col, r, allowed_raw, block_names)
+    if cur is not None and block_names is not None and cur not in block_names:
+        col.add(f"current_block '{cur}' is not a block; blocks are "
+                f"{', '.join(sorted(block_names))}", sheet, r.number, "current_block")
+    if cust is not None and not float(cust).is_integer():
+        col.add(f"expected a whole number of customers, found {cust}", sheet, r.number,
+                "customers")
+    if len(col.problems) > n0:
+        return None
+    return Feeder(fid, sub, zone, prof, peak, pv or 0.0, relay, prio, allowed, tg,
+                  cur, int(cust) if cust is not None else None, r.number,
+                  remote_switch=remote is not None and remote.lower() == "yes")
+
+
 def _parse_feeders(col: Collector, rows: list[Row], block_names: set[str] | None,
                    profile_names: set[str] | None) -> list[Feeder]:
-    sheet = "feeders"
-    cells = _Cells(col, sheet)
+    """The ``feeders`` sheet: the feeders of the rows without problems (every problem
+    collected)."""
+    cells = _Cells(col, "feeders")
     feeders: list[Feeder] = []
     seen: dict[str, int] = {}
     for r in rows:
-        n0 = len(col.problems)
-        fid = cells.text(r, "feeder_id")
-        sub = cells.text(r, "substation")
-        zone = cells.text(r, "zone", required=False)
-        prof = cells.text(r, "profile")
-        peak = cells.number(r, "peak_mw", minimum=0, maximum=1000, what="MW ≥ 0")
-        pv = cells.number(r, "pv_mw", required=False, minimum=0, maximum=1000, what="MW ≥ 0")
-        relay = cells.text(r, "relay")
-        prio = cells.text(r, "priority", required=False)
-        allowed_raw = cells.text(r, "allowed_blocks", required=False)
-        tg = cells.text(r, "trip_group", required=False)
-        cur = cells.text(r, "current_block", required=False)
-        cust = cells.number(r, "customers", required=False, minimum=0, what="a count ≥ 0")
-        remote = cells.text(r, "remote_switch", required=False)
-        if remote is not None and remote.lower() not in ("yes", "no"):
-            col.add(f"expected 'yes' or blank, found '{remote[:40]}'", sheet, r.number,
-                    "remote_switch")
-        if fid is not None:
-            if fid in seen:
-                col.add(f"duplicate feeder_id '{fid}' (also row {seen[fid]})", sheet, r.number,
-                        "feeder_id")
-            seen.setdefault(fid, r.number)
-        if prof is not None and profile_names is not None and prof not in profile_names:
-            col.add(f"unknown profile '{prof}'; the profiles sheet defines "
-                    f"{', '.join(sorted(profile_names)) or 'none'}", sheet, r.number, "profile")
-        if relay is not None:
-            relay = relay.lower()
-            if relay not in RELAY_KINDS:
-                col.add(f"unknown relay '{relay}'; expected standard, direction_blocked or "
-                        "none", sheet, r.number, "relay")
-        if prio is not None and prio.lower() in ("no", "none", "false", "0"):
-            prio = None
-        allowed: tuple[str, ...] | None = None
-        if allowed_raw is not None:
-            if allowed_raw.lower() == "none":
-                allowed = ()
-            else:
-                toks = tuple(t.strip() for t in _ALLOWED_SPLIT.split(allowed_raw) if t.strip())
-                unknown = [t for t in toks if block_names is not None
-                           and t not in block_names]
-                if unknown:
-                    col.add(f"allowed_blocks names unknown block(s) {', '.join(unknown)}; "
-                            f"blocks are {', '.join(sorted(block_names))}", sheet, r.number,
-                            "allowed_blocks")
-                allowed = toks
-        if cur is not None and block_names is not None and cur not in block_names:
-            col.add(f"current_block '{cur}' is not a block; blocks are "
-                    f"{', '.join(sorted(block_names))}", sheet, r.number, "current_block")
-        if cust is not None and not float(cust).is_integer():
-            col.add(f"expected a whole number of customers, found {cust}", sheet, r.number,
-                    "customers")
-        if len(col.problems) > n0:
-            continue
-        feeders.append(Feeder(fid, sub, zone, prof, peak, pv or 0.0, relay, prio, allowed, tg,
-                              cur, int(cust) if cust is not None else None, r.number,
-                              remote_switch=remote is not None and remote.lower() == "yes"))
+        f = _feeder_row(col, cells, r, seen, block_names, profile_names)
+        if f is not None:
+            feeders.append(f)
     if not rows:
-        col.add("no feeders", sheet, None, None)
+        col.add("no feeders", "feeders", None, None)
     return feeders
 
 
@@ -917,13 +1051,9 @@ def _weather_problems(col: Collector, scenarios: list[Scenario]) -> None:
             col.extend(exc.problems)
 
 
-def read_study(path: str | os.PathLike) -> Study:
-    """Read, validate and type the workbook at ``path``.
-
-    Raises :class:`~allocator.errors.InputError` listing every problem found.
-    """
-    p = Path(path)
-    col = Collector(str(p))
+def _open_sheets(p: Path, col: Collector) -> dict[str, tuple[list[str], list[Row]]]:
+    """Every sheet of the workbook at ``p``; raises when the file is missing, a folder, not
+    readable or lacks a required sheet."""
     if not p.exists():
         col.add("file not found")
         col.raise_if_any()
@@ -935,7 +1065,14 @@ def read_study(path: str | os.PathLike) -> Study:
         if s not in sheets:
             col.add(f"missing sheet '{s}' (found: {', '.join(sheets) or 'none'})", s)
     col.raise_if_any()
+    return sheets
 
+
+def _parse_required(col: Collector, sheets: dict[str, tuple[list[str], list[Row]]]
+                    ) -> tuple[Settings | None, list[str], list[Block], np.ndarray,
+                               Profiles | None, list[Feeder]]:
+    """The required sheets: (settings, warnings, blocks, season index per month, profiles,
+    feeders), each sheet read only when its header has the required columns."""
     h, rows = sheets["settings"]
     settings, warnings = (None, [])
     if _require_columns(col, "settings", h, ("key", "value")):
@@ -964,8 +1101,12 @@ def read_study(path: str | os.PathLike) -> Study:
         pnames = set(profiles.names) if profiles is not None else (
             None if not profiles_ok else set())
         feeders = _parse_feeders(col, rows, declared_blocks, pnames)
-    warnings += _cross_checks(col, settings, blocks, feeders)
+    return settings, warnings, blocks, month_season, profiles, feeders
 
+
+def _parse_system_sheet(col: Collector, sheets: dict[str, tuple[list[str], list[Row]]]
+                        ) -> tuple[dict[str, object], dict[str, int]]:
+    """The optional ``system`` sheet as (key → raw value, key → row)."""
     system: dict[str, object] = {}
     system_rows: dict[str, int] = {}
     if "system" in sheets:
@@ -978,6 +1119,13 @@ def read_study(path: str | os.PathLike) -> Study:
                     continue
                 system[_text(k).lower()] = r.values.get("value")
                 system_rows[_text(k).lower()] = r.number
+    return system, system_rows
+
+
+def _parse_optional(col: Collector, sheets: dict[str, tuple[list[str], list[Row]]],
+                    settings: Settings | None, p: Path
+                    ) -> tuple[list[Scenario], list[Period]]:
+    """The optional ``scenarios`` (with their weather files) and ``periods`` sheets."""
     scenarios: list[Scenario] = []
     if "scenarios" in sheets:
         h, rows = sheets["scenarios"]
@@ -990,6 +1138,21 @@ def read_study(path: str | os.PathLike) -> Study:
         h, rows = sheets["periods"]
         if _require_columns(col, "periods", h, PERIOD_COLUMNS):
             periods = _parse_periods(col, rows, settings.interval_minutes if settings else None)
+    return scenarios, periods
+
+
+def read_study(path: str | os.PathLike) -> Study:
+    """Read, validate and type the workbook at ``path``.
+
+    Raises :class:`~allocator.errors.InputError` listing every problem found.
+    """
+    p = Path(path)
+    col = Collector(str(p))
+    sheets = _open_sheets(p, col)
+    settings, warnings, blocks, month_season, profiles, feeders = _parse_required(col, sheets)
+    warnings += _cross_checks(col, settings, blocks, feeders)
+    system, system_rows = _parse_system_sheet(col, sheets)
+    scenarios, periods = _parse_optional(col, sheets, settings, p)
     _explain_formula_blanks(p, col, {name: h for name, (h, _) in sheets.items()})
     col.raise_if_any()
     assert settings is not None and profiles is not None

@@ -265,6 +265,20 @@ def _coverage_note(info: dict) -> str | None:
             f"{info['coverage_pct']:.1f} % of {info['year']})")
 
 
+def on_study_calendar(study: Study, year: Year) -> bool:
+    """True when ``year`` covers the study's own calendar year (``settings.year``): the year
+    whose calendar the switching operations are counted on, ``--at`` times refer to and the
+    work list's metered figures come from."""
+    return year.calendar_year == study.settings.year
+
+
+def study_calendar_year(study: Study, years) -> Year:
+    """The year on the study calendar among ``years`` (:func:`on_study_calendar`), else the
+    first."""
+    years = tuple(years)
+    return next((y for y in years if on_study_calendar(study, y)), years[0])
+
+
 def year_period_index(study: Study, year: Year) -> np.ndarray:
     """``[interval]`` period in force at each interval of ``year`` (study.periods)."""
     return period_index(year.local_times, year.day_type_index, study.periods)
@@ -295,4 +309,5 @@ def year_summary(study: Study, year: Year) -> pd.DataFrame:
 
 __all__ = ["Year", "FeederFlag", "Calendar", "build_year", "study_calendar",
            "profile_table_pu", "gross_load_mw",
-           "profile_net_mw", "year_summary", "year_period_index", "DAY_TYPES"]
+           "profile_net_mw", "year_summary", "year_period_index", "on_study_calendar",
+           "study_calendar_year", "DAY_TYPES"]

@@ -91,7 +91,7 @@ def _load() -> str:
 
 def time_cluster(folder: Path, out: Path, workers: int, fmt: str | None) -> dict:
     """review() on a new LocalCluster: wall with cluster start, and the tasks alone."""
-    from allocator import fleet
+    from allocator.pipeline import review as fleet
 
     studies, _ = fleet.find_studies(folder)
     load0, t0 = _load(), time.perf_counter()
@@ -104,7 +104,7 @@ def time_cluster(folder: Path, out: Path, workers: int, fmt: str | None) -> dict
 
 
 def time_serial(folder: Path, out: Path, fmt: str | None) -> dict:
-    from allocator import fleet
+    from allocator.pipeline import review as fleet
 
     studies, _ = fleet.find_studies(folder)
     load0, t0 = _load(), time.perf_counter()
@@ -117,7 +117,7 @@ def time_serial(folder: Path, out: Path, fmt: str | None) -> dict:
 def same_summary(a, b) -> str:
     """Texts equal, numbers to 1e-9 relative (worker processes run BLAS on one thread, so
     sums may be added in another order), with the largest relative difference seen."""
-    from allocator.fleet import summary_frame
+    from allocator.pipeline.review import summary_frame
 
     fa, fb = (summary_frame(r).drop(columns=["seconds"]) for r in (a, b))
     num = ["min_pct", "max_pct", "min_share_pct", "shortfall_mwh"]

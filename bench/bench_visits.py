@@ -1,4 +1,4 @@
-"""Benchmark ``allocator.visits.visit_order`` on the demo network (not a pytest test).
+"""Benchmark ``allocator.field.visits.visit_order`` on the demo network (not a pytest test).
 
 Run:  python bench/bench_visits.py [--substations 4,8,12,16,30]
 
@@ -46,7 +46,7 @@ def main() -> None:
     from allocator.scenarios import build_years
     from allocator.workbook import read_study
 
-    import allocator.visits as V
+    import allocator.field.visits as V
 
     study = read_study(ROOT / "inputs_demo" / "lindmark.xlsx")
     years = build_years(study)

@@ -1,7 +1,7 @@
 """Interrupted, crashed and disk-full runs leave the previous outputs byte-identical and no
 partial files or temporary folders; ``--out`` never lands on an input.
 
-Faults are simulated by monkeypatching the writers (``allocator.export.write_csv`` /
+Faults are simulated by monkeypatching the writers (``allocator.files.write_csv`` /
 ``write_json``, ``allocator.safeio.write_csv``, ``os.replace``) to raise after the first file
 of the run has been written into the temporary folder.  Full disk: ``OSError`` with errno
 ENOSPC (POSIX ``errno.h``; "No space left on device").  Exit codes: 130 for an interrupt
@@ -20,7 +20,7 @@ from pathlib import Path
 
 import pytest
 
-import allocator.export
+import allocator.files
 import allocator.safeio
 from bad_inputs.make_cases import metered_rows, run, write_csv_rows, write_wb
 
@@ -89,9 +89,9 @@ FAULTS = {
 }
 #: (command, module whose writer is patched, writer, successful calls before the fault)
 WRITERS = {
-    "check_csv_after_summary_and_first_csv": ("check", allocator.export, "write_csv", 1),
-    "check_summary_json": ("check", allocator.export, "write_json", 0),
-    "plan_json_after_plan_csv": ("plan", allocator.safeio, "write_json", 0),
+    "check_csv_after_summary_and_first_csv": ("check", allocator.files, "write_csv", 1),
+    "check_summary_json": ("check", allocator.files, "write_json", 0),
+    "plan_json_after_plan_csv": ("plan", allocator.files, "write_json", 0),
 }
 
 
@@ -122,7 +122,7 @@ def test_fault_in_a_writer_keeps_previous_outputs(study, monkeypatch, fault, whe
 def test_crash_traceback_only_with_debug(study, monkeypatch):
     def boom(*a, **kw):
         raise RuntimeError("simulated crash")
-    monkeypatch.setattr(allocator.export, "write_csv", boom)
+    monkeypatch.setattr(allocator.files, "write_csv", boom)
     argv = ["check", W, "--out", "results/out", "--format", "none", "--quiet"]
     r = run(argv, study)
     assert r.rc == 1 and "Traceback" not in r.text
@@ -159,8 +159,8 @@ def test_interrupt_before_any_output_creates_nothing(study, monkeypatch):
 
 
 def test_interrupt_without_previous_outputs_leaves_no_folder(study, monkeypatch):
-    w = _Fault(allocator.export.write_csv, KeyboardInterrupt())
-    monkeypatch.setattr(allocator.export, "write_csv", w)
+    w = _Fault(allocator.files.write_csv, KeyboardInterrupt())
+    monkeypatch.setattr(allocator.files, "write_csv", w)
     r = run(["check", W, "--out", "fresh/out", "--format", "none", "--quiet"], study)
     assert r.rc == 130 and w.present
     assert list((study / "fresh").iterdir()) == []  # parent may exist; nothing inside
@@ -168,8 +168,8 @@ def test_interrupt_without_previous_outputs_leaves_no_folder(study, monkeypatch)
 
 @pytest.mark.parametrize("where", ["planner", "check_files_after_plan_csv", "reports"])
 def test_plan_interrupted_keeps_previous_plan(study, monkeypatch, where):
-    import allocator.cli
     import allocator.plan
+    import allocator.report
 
     before = tree(study / "results")
     seen = []
@@ -178,14 +178,14 @@ def test_plan_interrupted_keeps_previous_plan(study, monkeypatch, where):
             raise KeyboardInterrupt
         monkeypatch.setattr(allocator.plan, "plan_allocation", stop)
     elif where == "check_files_after_plan_csv":
-        w = _Fault(allocator.export.write_csv, KeyboardInterrupt(), ok=1)
-        monkeypatch.setattr(allocator.export, "write_csv", w)
+        w = _Fault(allocator.files.write_csv, KeyboardInterrupt(), ok=1)
+        monkeypatch.setattr(allocator.files, "write_csv", w)
         seen = w
     else:
-        def stop(args, chk, out_tmp, *a, **kw):
+        def stop(chk, out_tmp, *a, **kw):
             seen.append(out_tmp)
             raise KeyboardInterrupt
-        monkeypatch.setattr(allocator.cli, "_reports", stop)
+        monkeypatch.setattr(allocator.report, "write_reports", stop)
     r = run(["plan", W, "--out", "results/plan", "--format", "none", "--quiet",
              "--time-limit", "5"], study)
     assert r.rc == 130, r.text

@@ -81,7 +81,10 @@ def test_plan_writes_files_and_check(wb, tmp_path, monkeypatch):
 
 @pytest.mark.slow
 def test_demo_whole_job(tmp_path, monkeypatch, capsys):
+    from agreement import assert_plan_outputs_agree, figure_spy
+
     monkeypatch.chdir(tmp_path)
+    drawn = figure_spy(monkeypatch)
     assert main(["demo", "--time-limit", "15"]) == 0
     out = tmp_path / "outputs" / "demo"
     for name in ("report.html", "report.xlsx", "summary.json", "plan.csv", "plan.json",
@@ -113,3 +116,6 @@ def test_demo_whole_job(tmp_path, monkeypatch, capsys):
     assert not remote & set(field["feeders"])
     assert remote <= set(sched["feeder_id"])
     assert "report.html" in text and "report.xlsx" in text
+    # one result, every rendering: the CSV files, the sheets, the page and the console agree
+    info = assert_plan_outputs_agree(out, text, drawn)
+    assert info["field_relays_changed"] == sw["field_relays_changed"]

@@ -1,5 +1,6 @@
-"""Checks of the field outputs: the annual statement (allocator.statement), the relay work
-list (allocator.worklist), the visit order (allocator.visits) and their files and sheets.
+"""Checks of the field outputs: the annual statement (allocator.field.statement), the relay
+work list (allocator.field.worklist), the visit order (allocator.field.visits) and their files
+and sheets.
 
 Outside references used here, each named again beside its check:
 
@@ -42,13 +43,14 @@ import pandas as pd
 import pytest
 
 from allocator.check import run_checks
-from allocator.export import write_check_files, write_field_files
+from allocator.field.plan import field_plan
+from allocator.files import write_check_files, write_field_files
 from allocator.report import write_reports
 from allocator.report import figures as F
-from allocator.statement import COLUMNS, statement_table
-from allocator.visits import EXACT_MAX_SUBSTATIONS, order_words, visit_order, visit_order_table
+from allocator.field.statement import COLUMNS, statement_table
+from allocator.field.visits import EXACT_MAX_SUBSTATIONS, order_words, visit_order, visit_order_table
 from allocator.workbook import read_study
-from allocator.worklist import WORK_LIST_COLUMNS, work_list_table
+from allocator.field.worklist import WORK_LIST_COLUMNS, work_list_table
 from allocator.year import Year
 from handref import hf7 as _hf7
 from wbfactory import BASE_SETTINGS, write_workbook
@@ -227,7 +229,7 @@ def test_visit_order_exact_equals_brute_force(tmp_path, seed):
     # the lower bound is the optimum (proven)
     assert order.lower_bound_pp == pytest.approx(best, abs=1e-9)
     # the work list numbers every relay with the visit of its substation
-    wl = work_list_table(cs, c["old"], order)
+    wl = work_list_table(cs, order)
     assert sorted(wl["visit"]) == sorted(order.visit_of[s] for s in wl["visit_substation"])
     assert list(wl["visit"]) == sorted(wl["visit"])
 
@@ -256,7 +258,7 @@ def test_random_cases_discriminate(tmp_path):
 def test_visit_order_greedy_steps_and_bound(tmp_path, seed, monkeypatch):
     """With the exact search switched off: each step is the best single next visit by the
     reference shares, and the bound it reports is no more than the brute-force optimum."""
-    import allocator.visits as V
+    import allocator.field.visits as V
 
     monkeypatch.setattr(V, "EXACT_MAX_SUBSTATIONS", 0)
     c = _random_case(tmp_path, seed)
@@ -529,7 +531,7 @@ def _blocks_sheet(path):
 
 def test_work_list_hand_arithmetic(wl_case):
     study, cs, path = wl_case
-    wl = work_list_table(cs, study.current_assignment)
+    wl = work_list_table(cs, visit_order(cs, study.current_assignment))
     assert list(wl.columns) == list(WORK_LIST_COLUMNS)
     assert len(wl) == 3  # the trip group is one row
     rows = {r["feeders"]: r for r in wl.to_dict("records")}
@@ -575,7 +577,9 @@ def test_work_list_and_visit_files(wl_case, tmp_path):
     """work_list.csv and visit_order.csv read back with pandas: one row per relay, blank
     sign-off columns, the visit numbers of visit_order.csv."""
     study, cs, _ = wl_case
-    order = write_field_files(cs, study.current_assignment, tmp_path / "o")
+    fp = field_plan(cs, study.current_assignment)
+    write_field_files(fp, tmp_path / "o")
+    order = fp.order
     wl = pd.read_csv(tmp_path / "o" / "work_list.csv", keep_default_na=False)
     vo = pd.read_csv(tmp_path / "o" / "visit_order.csv", keep_default_na=False)
     assert len(wl) == 3 and list(wl.columns) == list(WORK_LIST_COLUMNS)
@@ -602,7 +606,7 @@ def _sheet_xml(path: Path, name: str) -> tuple[str, str]:
 
 def test_field_sheets_print_setup(wl_case, tmp_path):
     study, cs, _ = wl_case
-    write_reports(cs, tmp_path, previous_idx=study.current_assignment, formats={"xlsx"})
+    write_reports(cs, tmp_path, field=field_plan(cs, study.current_assignment), formats={"xlsx"})
     path = tmp_path / "report.xlsx"
     wb = openpyxl.load_workbook(path)
     assert wb.sheetnames[:4] == ["summary", "statement", "work_list", "visit_order"]
@@ -651,7 +655,7 @@ def test_field_sheets_without_changes(wl_case, tmp_path):
                         ("visit_order", "No visits")):
         ws = wb[name]
         assert ws.max_row == 2 and ws["A2"].value.startswith(words)
-    write_reports(cs, tmp_path / "same", previous_idx=study.current_assignment,
+    write_reports(cs, tmp_path / "same", field=field_plan(cs, study.current_assignment),
                   formats={"xlsx"})
     ws = openpyxl.load_workbook(tmp_path / "same" / "report.xlsx")["work_list"]
     assert ws.max_row == 2 and "every relay keeps" in ws["A2"].value
@@ -659,7 +663,7 @@ def test_field_sheets_without_changes(wl_case, tmp_path):
 
 def test_visit_order_figure_and_html(wl_case, tmp_path):
     study, cs, _ = wl_case
-    paths = write_reports(cs, tmp_path, previous_idx=study.current_assignment,
+    paths = write_reports(cs, tmp_path, field=field_plan(cs, study.current_assignment),
                           formats={"png", "html"})
     p = paths["png:visit_order"]
     from matplotlib import image as mpimg
@@ -731,7 +735,7 @@ def test_visit_order_without_any_valid_interval(wl_case, tmp_path):
     assert not order.judged and not order.keeps_band and order.method == "none"
     assert {order.status(s) for s in order.steps[1:]} == {"not judged"}
     assert "not judged" in order_words(order)
-    paths = write_reports(cs, tmp_path, previous_idx=study.current_assignment)
+    paths = write_reports(cs, tmp_path, field=field_plan(cs, study.current_assignment))
     assert "png:visit_order" not in paths and "xlsx" in paths
 
 
@@ -742,8 +746,8 @@ def test_console_visit_table_is_short_and_names_the_break(monkeypatch):
 
     from rich.console import Console
 
-    import allocator.fieldconsole as FC
-    from allocator.visits import VisitOrder, VisitStep, Visit
+    import allocator.console.field as FC
+    from allocator.field.visits import VisitOrder, VisitStep, Visit
 
     n = FC.SHOWN + 5
     steps = [VisitStep(0, "", 0, 0, -1.0, "a", "B1", "2025-06-02T00:00+02:00", "min")]

@@ -1,4 +1,4 @@
-"""Frequency indication at the intervals the check flags (allocator.frequency_study)."""
+"""Frequency indication at the intervals the check flags (allocator.frequency_indication)."""
 
 from __future__ import annotations
 
@@ -12,7 +12,7 @@ import pytest
 from allocator.assignment import current_assignment
 from allocator.check import run_check
 from allocator.cli import main
-from allocator.frequency_study import (frequency_summary, frequency_table, pick_intervals,
+from allocator.frequency_indication import (frequency_summary, frequency_table, pick_intervals,
                                        run_frequency_study)
 from allocator.errors import InputError
 from allocator.plan import plan_allocation
@@ -173,7 +173,7 @@ def _console_text(summary, width):
 
     from rich.console import Console
 
-    from allocator.cli import _print_frequency
+    from allocator.console.frequency import frequency_summary as _print_frequency
 
     buf = io.StringIO()
     _print_frequency(Console(width=width, file=buf, color_system=None, legacy_windows=False),

@@ -42,7 +42,8 @@ from matplotlib import image as mpimg
 from allocator.check import run_check, summary_dict
 from allocator.report.content import STATUS_WORDS
 from allocator.errors import InputError
-from allocator.export import write_check_files
+from allocator.field.plan import field_plan
+from allocator.files import write_check_files
 from allocator.report import FORMATS, parse_formats, write_reports
 from allocator.report import figures as F
 from allocator.report.content import CAUTIONS
@@ -137,8 +138,8 @@ def plan_case(case, tmp_path_factory):
     info = {"status": "in_band", "solve_seconds": 1.5, "objective": "fewest_changes",
             "relays_changed": 4, "feeders_changed": 4,
             "explanation": ["moved <two> feeders", "=1+1 is not a formula"]}
-    paths = write_reports(chk, out, previous_idx=study.current_assignment, plan_info=info,
-                          before=before)
+    paths = write_reports(chk, out, field=field_plan(chk, study.current_assignment),
+                          plan_info=info, before=before)
     return {"check": chk, "before": before, "out": out, "paths": paths, "new": new,
             "info": info, "study": study}
 
@@ -167,8 +168,7 @@ def test_parse_formats_rejects(text):
 # workbook
 # ============================================================================================
 SHEETS = ["summary", "statement", "work_list", "visit_order", "scenarios", "blocks", "feeders",
-          "relay_changes", "intervals", "windows",
-          "exports", "substations"]
+          "intervals", "windows", "exports", "substations"]
 
 
 def test_workbook_sheets_and_headers(case):
@@ -199,8 +199,8 @@ def test_workbook_sheets_and_headers(case):
     assert ws["E2"].number_format == "0.00" and ws["G2"].number_format == "0.0"
     assert ws["B2"].number_format == "yyyy-mm-dd hh:mm"
     assert ws.column_dimensions["B"].width >= 15
-    # relay changes: current allocation -> one line saying so
-    rc = wb["relay_changes"]
+    # the work list: current allocation -> one line saying so
+    rc = wb["work_list"]
     assert rc.max_row == 2 and "No relay changes" in rc["A2"].value
     # summary: verdict, rule, year, utility, legend and cautions
     text = "\n".join(str(c.value) for row in wb["summary"].iter_rows() for c in row
@@ -327,17 +327,18 @@ def test_formula_like_ids_are_text(case, fid):
 def test_plan_workbook(plan_case):
     path = plan_case["out"] / "report.xlsx"
     wb = openpyxl.load_workbook(path)
-    rc = wb["relay_changes"]
-    rows = [[c.value for c in r] for r in rc.iter_rows(min_row=2)]
+    rc = wb["work_list"]
     head = [c.value for c in rc[1]]
-    assert head[:5] == ["substation", "feeder", "action", "from block", "to block"]
+    rows = [dict(zip(head, [c.value for c in r])) for r in rc.iter_rows(min_row=2)]
     assert len(rows) == 4
-    assert rows == sorted(rows, key=lambda r: (r[0], r[1]))
-    by_id = {r[1]: r for r in rows}
-    assert by_id[MARKUP_ID][2:5] == ["move", "S2", "S1"]
-    assert by_id[MARKUP_ID][5] == plan_case["study"].blocks[0].pickup_hz
-    assert by_id["F04"][2:5] == ["arm", "unarmed", "S2"]
-    assert by_id[AT_ID][2:5] == ["disarm", "S2", "unarmed"] and by_id[AT_ID][5] is None
+    by_id = {r["feeder(s)"]: r for r in rows}
+    assert [by_id[MARKUP_ID][k] for k in ("action", "now: block", "new: block")] == \
+        ["move", "S2", "S1"]
+    assert by_id[MARKUP_ID]["new: pickup Hz"] == plan_case["study"].blocks[0].pickup_hz
+    assert [by_id["F04"][k] for k in ("action", "now: block", "new: block")] == \
+        ["arm", "unarmed", "S2"]
+    assert [by_id[AT_ID][k] for k in ("action", "now: block", "new: block")] == \
+        ["disarm", "S2", "unarmed"] and by_id[AT_ID]["new: pickup Hz"] is None
     # feeders sheet: previous block and changed flag
     ws = wb["feeders"]
     head = [c.value for c in ws[1]]

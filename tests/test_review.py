@@ -20,7 +20,7 @@ import pytest
 pytest.importorskip("dask.distributed")
 
 from allocator.cli import main  # noqa: E402
-from allocator.fleet import find_studies  # noqa: E402
+from allocator.pipeline.review import find_studies  # noqa: E402
 from smallnet import write_small_study  # noqa: E402
 
 CHECKED = ("alpha", "gamma")
@@ -169,12 +169,12 @@ def test_existing_scheduler_and_only_failing_studies(tmp_path):
 
 def test_an_exception_in_a_check_is_a_failed_row(tmp_path, monkeypatch):
     """check_one turns an exception into a 'failed' result with its type and message."""
-    import allocator.cli
-    from allocator.fleet import StudyFiles, check_one
+    import allocator.pipeline.review as R
+    from allocator.pipeline.review import StudyFiles, check_one
 
     def boom(*a, **k):
         raise RuntimeError("disk full\nsecond line")
-    monkeypatch.setattr(allocator.cli, "write_check", boom)
+    monkeypatch.setattr(R, "write_check_folder", boom)
     r = check_one(StudyFiles("x", str(write_small_study(tmp_path))), str(tmp_path / "o"), None)
     assert (r.status, r.message, r.rows) == ("failed", "RuntimeError: disk full", ())
     assert [e["name"] for e in r.inputs] == ["small.xlsx"]

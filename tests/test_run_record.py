@@ -130,7 +130,7 @@ def test_plan_facts_have_labels_units_and_number_cells(runs):
             continue
         assert not RAW_KEY.search(str(k)), k
     # numbers are number cells with a number format, the unit beside them
-    r = section["relays whose setting changes"]
+    r = section["relays changed in the field"]
     assert r[1].value == info["relays_changed"] and r[1].data_type == "n"
     r = section["planning time"]
     assert r[1].value == pytest.approx(info["solve_seconds"]) and r[1].number_format == "0.0"
@@ -162,7 +162,9 @@ def test_html_plan_facts_are_labelled(tmp_path):
                                    "all_scenarios": 17520},
             "heuristic_start": {"worst_violation_rel": 0.5, "mad_pp": 1.0, "changes": 4.0},
             "solve_seconds": 2.5, "time_limit_s": 10, "max_changes": None}
-    page = render_html(cs, [], previous_idx=np.asarray(study.current_assignment),
+    from allocator.field.plan import field_plan
+
+    page = render_html(cs, [], field=field_plan(cs, np.asarray(study.current_assignment)),
                        plan_info=info)
     plan = page[page.index("<h3>Plan</h3>"):page.index("<h3>Per block</h3>")]
     labels = re.findall(r"<dt>(.*?)</dt>", plan)

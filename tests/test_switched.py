@@ -278,7 +278,7 @@ AM_PM = [{"period": "a", "months": "1,2,3,4,5,6,7,8,9,10,11,12", "from": "02:00"
 
 
 def _calendar(tmp_path, tz, periods, interval=60):
-    from allocator.switching import switching_table
+    from allocator.field.switching import switching_table
 
     s = {"timezone": tz, "interval_minutes": interval, "holiday_country": None}
     st = read_study(_study(tmp_path, periods=periods, switch=(0,), settings=s))

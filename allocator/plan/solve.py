@@ -167,6 +167,36 @@ class _Ctx:
         return 0 if m is None else int(np.sum(m & (option < self.units.n_blocks)))
 
 
+def _solve_round(ctx: _Ctx, level: str, band_set, mad_set, warm, sub_rows, remaining, *,
+                 z_cap, mad_cap, armed_cost, round_share):
+    """Build one round's model on ``band_set`` and solve it warm-started from ``warm``
+    within ``remaining`` s (at most the round's share of the time limit): (model, result)."""
+    units, band = ctx.units, ctx.band
+    model = build_model(units, band.target, band.lo, band.hi, band_set, mad_set, level,
+                        z_cap=z_cap, mad_cap=mad_cap, max_changes=ctx.max_changes,
+                        substation_rows=sub_rows, armed_caps=ctx.armed_caps,
+                        armed_cost=armed_cost)
+    start = start_vector(model, units, warm, band.target, band.lo, band.hi)
+    cap = max(ROUND_MIN_S, round_share * ctx.time_limit_s)
+    out = solve(model.arrays, ctx.solver, time_limit_s=min(remaining, cap),
+                mip_gap=ctx.gap, start=start, seed=ctx.seed)
+    return model, out
+
+
+def _best_of_level(ctx: _Ctx, level: str, option, best_opt, best_key, info) -> np.ndarray:
+    """The last round's plan, or the best earlier one when the last is worse (noted when
+    worse on the level's own objective, not only on a tie-break)."""
+    last_key = ctx.key(option, level)
+    if last_key > best_key:
+        p = PRIMARY.get(level, len(best_key))
+        if last_key[:p] != best_key[:p]:  # worse on the level itself, not a tie-break
+            ctx.events.append(f"{info['level']}: the last round's plan was worse than an "
+                              "earlier one (time limit); the best plan found is kept")
+            info["converged"] = False
+        option = best_opt
+    return option
+
+
 def _level(ctx: _Ctx, level: str, band_set, mad_set, incumbent, *, deadline, z_cap=None,
            mad_cap=None, armed_cost=None, round_share=ROUND_SHARE):
     """Solve one level with interval rounds.  Returns (option, info, band_set).
@@ -191,15 +221,10 @@ def _level(ctx: _Ctx, level: str, band_set, mad_set, incumbent, *, deadline, z_c
             ctx.events.append(f"{name}: time budget used before round {rnd + 1}")
             info["status"] = info["status"] or "time_limit"
             break
-        model = build_model(units, band.target, band.lo, band.hi, band_set, mad_set, level,
-                            z_cap=z_cap, mad_cap=mad_cap, max_changes=ctx.max_changes,
-                            substation_rows=sub_rows, armed_caps=ctx.armed_caps,
-                            armed_cost=armed_cost)
-        warm = option if level == "worst" else best_opt
-        start = start_vector(model, units, warm, band.target, band.lo, band.hi)
-        cap = max(ROUND_MIN_S, round_share * ctx.time_limit_s)
-        out = solve(model.arrays, ctx.solver, time_limit_s=min(remaining, cap),
-                    mip_gap=ctx.gap, start=start, seed=ctx.seed)
+        model, out = _solve_round(ctx, level, band_set, mad_set,
+                                  option if level == "worst" else best_opt, sub_rows,
+                                  remaining, z_cap=z_cap, mad_cap=mad_cap,
+                                  armed_cost=armed_cost, round_share=round_share)
         info.update(rounds=rnd + 1, seconds=time.perf_counter() - t0)
         if out.x is None:
             ctx.events.append(f"{name} round {rnd + 1}: solver {out.status} ({out.message}); "
@@ -223,14 +248,7 @@ def _level(ctx: _Ctx, level: str, band_set, mad_set, incumbent, *, deadline, z_c
             info["converged"] = True
             break
         band_set = np.union1d(band_set, new)
-    last_key = ctx.key(option, level)
-    if last_key > best_key:
-        p = PRIMARY.get(level, len(best_key))
-        if last_key[:p] != best_key[:p]:  # worse on the level itself, not a tie-break
-            ctx.events.append(f"{name}: the last round's plan was worse than an earlier one "
-                              "(time limit); the best plan found is kept")
-            info["converged"] = False
-        option = best_opt
+    option = _best_of_level(ctx, level, option, best_opt, best_key, info)
     info["bound"] = max(bounds) if bounds else None
     return option, info, band_set
 
@@ -476,20 +494,25 @@ def plan_allocation(study: Study, years, solver: str = "highs",
                     mad_set, explanation)
 
 
-def _outcome(ctx, years, objective, margin, final, levels, info1, h_opt, band_set, mad_set,
-             explanation) -> PlanOutcome:
-    units, band, study = ctx.units, ctx.band, ctx.study
-    kf = evaluate(units, final, band)
-    sub_left = substation_excess(units, final, ctx.sub_cap)
+def _substation_left(ctx: _Ctx, final, explanation: list[str]) -> list:
+    """The block/substation pairs of plan ``final`` still above max_substation_share_pct
+    (noted in the events and the explanation)."""
+    sub_left = substation_excess(ctx.units, final, ctx.sub_cap)
     if sub_left:
-        names = sorted({study.blocks[b].name for b, *_ in sub_left})
+        names = sorted({ctx.study.blocks[b].name for b, *_ in sub_left})
         ctx.events.append(f"max_substation_share_pct = {ctx.sub_cap:g}: {len(sub_left)} "
                           "block/substation pair(s) still above the cap at the block's "
                           "lowest-share interval (the solver ran out of rounds or time)")
         explanation.append(f"The rule max_substation_share_pct = {ctx.sub_cap:g} % is not met "
                            f"in block(s) {', '.join(names)} at their lowest-share interval; "
                            "more time (--time-limit) or a looser cap may be needed.")
-    elapsed = time.perf_counter() - ctx.t_start
+    return sub_left
+
+
+def _claim_levels(ctx: _Ctx, levels, info1, sub_left, elapsed: float,
+                  explanation: list[str]) -> float | None:
+    """Set each level's proven_optimal and claim (``elapsed`` in s); returns the lower
+    bound on the worst violation, None under a substation cap (explained)."""
     capped = ctx.sub_cap is not None
     for info in levels:
         if capped:
@@ -506,6 +529,27 @@ def _outcome(ctx, years, objective, margin, final, levels, info1, h_opt, band_se
             f"max_substation_share_pct = {ctx.sub_cap:g} % is held by rows at the weakest "
             "intervals the planner met; a plan that keeps the rule at its own weakest "
             "interval can be missed, so no level is claimed optimal and no bound is given.")
+    return lb
+
+
+def _changes_lower_bound(levels, objective: str) -> int | None:
+    """At least this many relay changes are needed (level ``changes``' bound, rounded up),
+    under objective fewest_changes only."""
+    ch_info = next((i for i in levels if i["level"] == LEVEL_NAMES["changes"]), None)
+    ch_lb = None
+    if ch_info is not None and ch_info.get("bound") is not None and objective == "fewest_changes":
+        ch_lb = max(0, math.ceil(ch_info["bound"] - 1e-6))
+    return ch_lb
+
+
+def _outcome(ctx, years, objective, margin, final, levels, info1, h_opt, band_set, mad_set,
+             explanation) -> PlanOutcome:
+    """The :class:`PlanOutcome` of plan ``final`` with its claims, bounds and explanation."""
+    units, band, study = ctx.units, ctx.band, ctx.study
+    kf = evaluate(units, final, band)
+    sub_left = _substation_left(ctx, final, explanation)
+    elapsed = time.perf_counter() - ctx.t_start
+    lb = _claim_levels(ctx, levels, info1, sub_left, elapsed, explanation)
     from .explain import explain_after, explain_changes, explain_exporting
 
     explanation += explain_after(study, years, units, band, final, kf, lb, ctx.max_changes,
@@ -513,10 +557,7 @@ def _outcome(ctx, years, objective, margin, final, levels, info1, h_opt, band_se
     explanation += explain_changes(levels, kf[2])
     block_idx = units.to_feeders(final)
     kept, avoided = explain_exporting(ctx, final, explanation)
-    ch_info = next((i for i in levels if i["level"] == LEVEL_NAMES["changes"]), None)
-    ch_lb = None
-    if ch_info is not None and ch_info.get("bound") is not None and objective == "fewest_changes":
-        ch_lb = max(0, math.ceil(ch_info["bound"] - 1e-6))
+    ch_lb = _changes_lower_bound(levels, objective)
     err = any(i.get("status") == "error" for i in levels)
     out = PlanOutcome(
         option=final, block_idx=block_idx,

@@ -32,7 +32,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from ..domain import UNARMED, Study
-from ..year import Year, year_period_index
+from ..year import Year, study_calendar_year, year_period_index
 from .heuristic import Band, evaluate, shares, violation_rel
 from .solve import PlanOutcome, band_of, plan_allocation
 from .units import Units, build_units
@@ -77,10 +77,10 @@ def column_periods(study: Study, years: tuple[Year, ...], units: Units) -> np.nd
 
 
 def switchable_units(study: Study, units: Units) -> np.ndarray:
-    """``[unit]`` bool: its relay can be switched by schedule (all members remote_switch)."""
-    sw = study.is_switchable
-    return np.array([bool(sw[m].all()) and units.allowed[u].any()
-                     for u, m in enumerate(units.members)], dtype=bool)
+    """``[unit]`` bool: its relay is set by schedule from the control room
+    (:attr:`allocator.domain.Study.is_remote_settable`)."""
+    rs = study.is_remote_settable
+    return np.array([bool(rs[m].all()) for m in units.members], dtype=bool)
 
 
 def expand(units: Units, col_period: np.ndarray, sw_unit: np.ndarray, n_p: int) -> Expanded:
@@ -264,23 +264,6 @@ def enforce_caps(st: _Pass, study: Study, sizes: np.ndarray) -> bool:
         moved = True
 
 
-def _calendar_year(study: Study, years: tuple[Year, ...]) -> Year:
-    """The year whose calendar counts the operations: the study year's, else the first."""
-    for y in years:
-        if y.calendar_year == study.settings.year:
-            return y
-    return years[0]
-
-
-def field_changes(study: Study, units: Units, sw_unit: np.ndarray,
-                  schedule: np.ndarray) -> int:
-    """Relays changed in the field: every relay that is not switched by schedule and whose
-    block differs from the current allocation (a trip group counts once)."""
-    sw_f = sw_unit[units.owner_and_first()[0]]
-    new = np.where(sw_f, study.current_assignment, schedule[:, 0])
-    return study.relays_changed(new)
-
-
 def plan_switched(study: Study, years, pass_time_s: float | None = None,
                   **kw) -> SwitchedOutcome:
     """Plan a schedule (see the module docstring); ``kw`` go to ``plan_allocation``."""
@@ -291,7 +274,7 @@ def plan_switched(study: Study, years, pass_time_s: float | None = None,
     ex = expand(units, cp, sw, len(study.periods))
     out = plan_allocation(study, years, units=ex.units, **kw)
     band = band_of(study, out.margin_pp + ex.units.guard_pp)
-    n_trans = transitions(study, _calendar_year(study, years))
+    n_trans = transitions(study, study_calendar_year(study, years))
     st = _Pass(ex, out.option, band, n_trans, cp)
     z_cap = st.z() + Z_TOL
     budget = pass_time_s if pass_time_s is not None else max(
@@ -312,14 +295,13 @@ def plan_switched(study: Study, years, pass_time_s: float | None = None,
                      "optimal")
         out = replace(out, proven=False, levels=[dict(i, proven_optimal=False)
                                                  for i in out.levels])
-    fc = field_changes(study, units, sw, schedule)
+    field = study.field_allocation(schedule)
+    fc = study.relays_changed(field)
     k = evaluate(ex.units, st.opt, band)
     out = replace(out, full_year=dict(zip(("worst_violation_rel", "mad_pp", "changes"), k)),
                   status="in_band" if k[0] <= 1e-9 and out.status == "in_band" else
                   "out_of_band", option=st.opt, block_idx=schedule[:, 0], relays_changed=fc,
-                  feeders_changed=int((np.where(sw[units.owner_and_first()[0]],
-                                                study.current_assignment, schedule[:, 0])
-                                       != study.current_assignment).sum()))
+                  feeders_changed=int((field != study.current_assignment).sum()))
     return SwitchedOutcome(out, schedule, ops, switched, fc, notes, forced)
 
 

@@ -8,8 +8,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import numpy as np
-
 from ..errors import InputError, Problem
 
 FORMATS: tuple[str, ...] = ("xlsx", "html", "png")
@@ -48,16 +46,16 @@ def parse_formats(text: str | None) -> set[str]:
     return out
 
 
-def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
-                  plan_info: dict | None = None, before=None,
+def write_reports(check, out: Path, field=None, plan_info: dict | None = None, before=None,
                   formats: set[str] | frozenset[str] = DEFAULT_FORMATS,
                   frequency: dict | None = None, run: dict | None = None) -> dict[str, Path]:
     """Write the report files of ``check`` into the existing folder ``out``.
 
     ``check`` is a :class:`~allocator.check.ScenarioChecks` (every scenario) or one
-    :class:`~allocator.check.Check`.  ``previous_idx[feeder]``: the block index each feeder had before (the workbook's current
-    allocation) when ``check`` is of a new plan or assignment, None when ``check`` is of the
-    current allocation.  ``plan_info``: the planner's plan.json dict, if reporting a plan.
+    :class:`~allocator.check.Check`.  ``field``: its
+    :class:`~allocator.field.plan.FieldPlan` (relay changes from the allocation in service
+    now, work list, visit order, statement); made here, with nothing to compare, when not
+    given.  ``plan_info``: the plan record (plan.json), if reporting a plan.
     ``before``: the check of the current allocation, for before/after comparisons.
     ``frequency``: ``{"after": frequency_summary, "before": ... or None, "figure_png": bytes}``
     adds the frequency indication section to the HTML report.
@@ -66,18 +64,18 @@ def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
     scenarios' weather files is made here.
     Returns ``{"xlsx": path, "html": path, "png:<name>": path, ...}`` for what was written.
     """
-    from ..export import as_set
+    from ..check import as_set
+    from ..field.plan import field_plan
     from . import content
 
     check = as_set(check)
     before = as_set(before) if before is not None else None
+    field = field_plan(check) if field is None else field
     out = Path(out)
     formats = set(formats)
     unknown = formats - set(FORMATS)
     if unknown:
         raise ValueError(f"unknown report formats {sorted(unknown)}")
-    if previous_idx is not None:
-        previous_idx = np.asarray(previous_idx, dtype=np.intp)
     written: dict[str, Path] = {}
     if not formats:
         return written
@@ -90,22 +88,21 @@ def write_reports(check, out: Path, previous_idx: np.ndarray | None = None,
     if "xlsx" in formats:
         from .excel import write_workbook
 
-        written["xlsx"] = write_workbook(check, out / "report.xlsx", previous_idx, plan_info,
+        written["xlsx"] = write_workbook(check, out / "report.xlsx", field, plan_info,
                                          before, fc, run)
     figs = None
     if "png" in formats or "html" in formats:
         from .figures import render_figures
 
         fig_dir = out / "figures" if "png" in formats else None
-        figs = render_figures(check, fig_dir, before=before, fc=fc,
-                              previous_idx=previous_idx)
+        figs = render_figures(check, fig_dir, before=before, fc=fc, field=field)
         if fig_dir is not None:
             for f in figs:
                 written[f"png:{f.name}"] = f.path
     if "html" in formats:
         from .html import write_html
 
-        written["html"] = write_html(check, out / "report.html", figs or [],
-                                     previous_idx=previous_idx, plan_info=plan_info,
-                                     before=before, frequency=frequency, run=run)
+        written["html"] = write_html(check, out / "report.html", figs or [], field=field,
+                                     plan_info=plan_info, before=before, frequency=frequency,
+                                     run=run)
     return written

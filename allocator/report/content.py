@@ -159,16 +159,6 @@ def priority_summary(check: Check) -> PrioritySummary:
     return PrioritySummary(total, tuple(armed))
 
 
-def _previous(check: Check, previous_idx: np.ndarray | None) -> np.ndarray:
-    if previous_idx is None:
-        return np.asarray(check.block_idx, dtype=np.intp)
-    prev = np.asarray(previous_idx, dtype=np.intp)
-    if prev.shape != check.block_idx.shape:
-        raise ValueError(f"previous_idx has {prev.shape[0]} entries, the study has "
-                         f"{check.block_idx.shape[0]} feeders")
-    return prev
-
-
 @dataclass(frozen=True)
 class FeederContrib:
     """Per-feeder figures of its tripped MW in its block (0 when unarmed), over the intervals
@@ -212,17 +202,20 @@ def feeder_contrib(check: Check) -> FeederContrib:
     return FeederContrib(mean, pos, neg, at, t_min)
 
 
-def feeder_table(check: Check, previous_idx: np.ndarray | None,
-                 fc: FeederContrib | None = None) -> pd.DataFrame:
-    """One row per feeder, in workbook order.
+def feeder_table(check: Check, field=None, fc: FeederContrib | None = None) -> pd.DataFrame:
+    """One row per feeder, in workbook order.  ``field``: the allocation's
+    :class:`~allocator.field.plan.FieldPlan` (``previous_block`` is the block in service now
+    and ``changed`` its kind of change, as plan.csv has them); None: nothing is compared.
 
     ``mean_contribution_mw``: the feeder's mean tripped MW over the intervals with demand > 0;
     ``share_of_block_pct``: that divided by its block's mean armed MW over the same intervals,
     in % (the shares of a block's feeders add up to 100)."""
     st = check.study
     y = check.year
-    prev = _previous(check, previous_idx)
     cur = np.asarray(check.block_idx, dtype=np.intp)
+    compares = field is not None and field.compares
+    prev = np.asarray(field.now_idx, dtype=np.intp) if compares else cur
+    changed = (field.feeder_change != "") if compares else np.zeros(cur.size, bool)
     fc = feeder_contrib(check) if fc is None else fc
     valid = check.valid
     mean_c = fc.mean
@@ -253,40 +246,13 @@ def feeder_table(check: Check, previous_idx: np.ndarray | None,
         "delay_s": setting("delay_s"),
         "rocof_hz_per_s": rocof,
         "previous_block": [block_name(check, b) for b in prev],
-        "changed": cur != prev,
+        "changed": changed,
         "mean_net_mw": y.net_mw.mean(axis=1),
         "min_net_mw": y.net_mw.min(axis=1),
         "max_net_mw": y.net_mw.max(axis=1),
         "mean_contribution_mw": mean_c,
         "share_of_block_pct": share,
     })
-
-
-def relay_changes(check: Check, previous_idx: np.ndarray | None) -> pd.DataFrame:
-    """The field work list: every feeder whose block changes, sorted by substation then
-    feeder, with the settings its relay must get (blank settings when it is disarmed)."""
-    st = check.study
-    cols = ["substation", "feeder_id", "action", "from_block", "to_block", "pickup_hz",
-            "delay_s", "rocof_hz_per_s", "priority"]
-    if previous_idx is None:
-        return pd.DataFrame(columns=cols)
-    prev = _previous(check, previous_idx)
-    cur = np.asarray(check.block_idx, dtype=np.intp)
-    rows = []
-    for i in np.flatnonzero(cur != prev):
-        f = st.feeders[i]
-        b, p = int(cur[i]), int(prev[i])
-        if b == UNARMED:
-            action, hz, d, r = "disarm", np.nan, np.nan, np.nan
-        else:
-            blk = st.blocks[b]
-            action = "arm" if p == UNARMED else "move"
-            hz, d = blk.pickup_hz, blk.delay_s
-            r = blk.rocof_hz_per_s if blk.rocof_hz_per_s is not None else np.nan
-        rows.append((f.substation, f.feeder_id, action, block_name(check, p),
-                     block_name(check, b), hz, d, r, f.priority or ""))
-    df = pd.DataFrame(rows, columns=cols)
-    return df.sort_values(["substation", "feeder_id"], kind="stable").reset_index(drop=True)
 
 
 def windows_table(check: Check | ScenarioChecks) -> pd.DataFrame:
@@ -377,6 +343,34 @@ def _num(p: dict, key: str, scale: float = 1.0):
     return None if v is None else scale * float(v)
 
 
+#: the labels of the counts of changes (plan.json keys in allocator.plan.record), one wording
+#: everywhere they are shown
+FIELD_RELAYS = "relays changed in the field"
+REMOTE_RELAYS = "relays set by remote schedule"
+FEEDERS_CHANGED = "feeders whose block changes (field or schedule)"
+SUBSTATIONS_VISITED = "substations a crew visits"
+
+
+def change_facts(counts) -> list[Fact]:
+    """The counts of a :class:`~allocator.plan.record.ChangeCounts`, labelled as a plan's
+    facts label them (the remote count only when some relay is set by schedule)."""
+    out = [Fact(FIELD_RELAYS, int(counts.field_relays), "", "0")]
+    if counts.remote_relays:
+        out.append(Fact(REMOTE_RELAYS, int(counts.remote_relays), "", "0"))
+    return out + [Fact(FEEDERS_CHANGED, int(counts.feeders_changed), "", "0"),
+                  Fact(SUBSTATIONS_VISITED, int(counts.substations), "", "0")]
+
+
+def what_is_checked(field, plan_info: dict | None) -> str:
+    """Which allocation a report shows: a plan, an allocation compared with the one in
+    service now, or the one in service now."""
+    if plan_info:
+        return "a planned allocation"
+    if field is not None and field.compares:
+        return "a proposed assignment"
+    return "the workbook's current allocation"
+
+
 def plan_facts(p: dict) -> list[Fact]:
     """The plan's key facts, labelled, with units (the console, the xlsx summary and the
     HTML show these)."""
@@ -386,10 +380,12 @@ def plan_facts(p: dict) -> list[Fact]:
                                                        str(p.get("objective")))),
            Fact("margin kept inside each band", float(p.get("band_margin_pp") or 0.0), "pp",
                 "0.00")]
-    for key, label in (("relays_changed", "relays whose setting changes"),
-                       ("feeders_changed", "feeders whose block changes"),
-                       ("relays_changed_lower_bound",
-                        "relay changes needed at least (solver bound)")):
+    counts = [("field_relays_changed", FIELD_RELAYS), ("feeders_changed", FEEDERS_CHANGED),
+              ("substations_visited", SUBSTATIONS_VISITED),
+              ("relays_changed_lower_bound", "relay changes needed at least (solver bound)")]
+    if p.get("switching"):
+        counts.insert(1, ("remote_relays_changed", REMOTE_RELAYS))
+    for key, label in counts:
         if p.get(key) is not None:
             out.append(Fact(label, int(p[key]), "", "0"))
     for i, lv in enumerate(p.get("levels", []), 1):
@@ -424,7 +420,6 @@ def switching_facts(sw: dict | None) -> list[Fact]:
             Fact("feeders switched by schedule", int(sw["switched_feeders"]), "", "0"),
             Fact("switching operations per year", int(sw["switch_operations_per_year"]),
                  "", "0"),
-            Fact("relays changed in the field", int(sw["field_relays_changed"]), "", "0"),
             Fact("smallest headroom to a band", float(sw["smallest_headroom_pp"]), "pp",
                  "0.00"),
             Fact("if the switching fails: worst period to be stuck in",

@@ -1,10 +1,11 @@
 """The planner's workbook, ``report.xlsx``.
 
 Sheets: ``summary`` (verdicts, plan facts, worst windows, the run record with the sign-off
-cells, fill legend, cautions), ``blocks``
-(settings and the statistics of summary.json, same values), ``feeders``, ``relay_changes``
-(the field work list), ``intervals`` (the year, one row per interval), ``windows`` (runs
-outside a band), ``exports`` (armed feeders that export) and ``substations``.
+cells, fill legend, cautions), ``statement``, ``work_list`` and ``visit_order`` (the field
+plan, :mod:`allocator.report.fieldsheets`), ``scenarios``, ``blocks`` (settings and the
+statistics of summary.json, same values), ``feeders``, ``intervals`` (the year, one row per
+interval), ``windows`` (runs outside a band), ``exports`` (armed feeders that export),
+``substations`` and, for a schedule, ``schedule``.
 
 Cells outside a band are filled by conditional formats (orange: below the minimum, blue:
 above the maximum); the summary sheet explains the fills.  Text is always written as text,
@@ -24,7 +25,7 @@ from openpyxl.styles import Alignment, Border, Font, PatternFill, Side
 from .. import vocab
 from ..version import __version__
 from ..check import Check, ScenarioChecks, by_substation, exporting_feeders, summary_dict
-from ..export import stacked
+from ..files import stacked
 from ..runrecord import SIGN_OFF
 from ..timefmt import offset_hours, split_iso
 from . import content, palette
@@ -77,8 +78,9 @@ SHEETS = {
     "summary": "verdicts, plan status, worst windows, what the fills mean, cautions",
     "statement": "the annual statement to the system operator (Regulation (EU) 2017/2196 "
                  "Art. 50(1)), with blank prepared-by / checked-by fields",
-    "work_list": "one row per relay whose setting changes, in visit order: the setting now "
-                 "and after, MW moved, blank sign-off columns; prints one page wide",
+    "work_list": "one row per relay whose setting changes: the field visits in visit order "
+                 "(the setting now and after, MW moved, blank sign-off columns), then the "
+                 "relays the control room sets by schedule; prints one page wide",
     "visit_order": "the substation visits in order and the worst band violation over every "
                    "scenario after each",
     "scenarios": "every scenario judged: how its year was made and its verdict",
@@ -86,7 +88,6 @@ SHEETS = {
               "summary.json)",
     "feeders": "every feeder: its block, relay settings, net load and share of its block "
                "(net load figures of the first scenario)",
-    "relay_changes": "the field work list: feeders whose block changes, with the new settings",
     "intervals": "every interval of every scenario: netted demand, MW and % of demand armed "
                  "in each block",
     "windows": "runs of intervals outside a block's band, worst (most MWh) first",
@@ -201,8 +202,8 @@ def _scenarios_sheet(wb, cs: ScenarioChecks) -> Table:
     return table_sheet(wb, "scenarios", cols, freeze="B2")
 
 
-def _feeders_sheet(wb, check: Check, previous_idx, fc) -> Table:
-    df = content.feeder_table(check, previous_idx, fc)
+def _feeders_sheet(wb, check: Check, field, fc) -> Table:
+    df = content.feeder_table(check, field, fc)
     spec = [
         ("feeder_id", "feeder", "text", None), ("substation", "substation", "text", None),
         ("zone", "zone", "text", None), ("profile", "profile (feeder class)", "text", None),
@@ -219,28 +220,6 @@ def _feeders_sheet(wb, check: Check, previous_idx, fc) -> Table:
     cols = [Col(h, df[k].tolist() if kind in ("text", "bool") else df[k].to_numpy(), kind, fmt)
             for k, h, kind, fmt in spec]
     return table_sheet(wb, "feeders", cols, freeze="B2")
-
-
-def _relay_sheet(wb, check: Check, previous_idx) -> Table:
-    df = content.relay_changes(check, previous_idx)
-    spec = [("substation", "substation", "text", None), ("feeder_id", "feeder", "text", None),
-            ("action", "action", "text", None), ("from_block", "from block", "text", None),
-            ("to_block", "to block", "text", None),
-            ("pickup_hz", "new pickup Hz", "num", "0.000"),
-            ("delay_s", "new time delay s", "num", "0.000"),
-            ("rocof_hz_per_s", "new RoCoF setting Hz/s", "num", "0.00"),
-            ("priority", "priority site", "text", None)]
-    if df.empty:
-        msg = ("No relay changes: this report checks the workbook's current allocation."
-               if previous_idx is None else
-               "No relay changes: every feeder keeps the block it has now.")
-        cols = [Col(h, [msg] if j == 0 else ([None] if kind == "text" else [np.nan]), kind, fmt,
-                    width=20 if j == 0 else None)
-                for j, (k, h, kind, fmt) in enumerate(spec)]
-        return table_sheet(wb, "relay_changes", cols, autofilter=False)
-    cols = [Col(h, df[k].tolist() if kind == "text" else df[k].to_numpy(dtype=float), kind,
-                fmt) for k, h, kind, fmt in spec]
-    return table_sheet(wb, "relay_changes", cols, freeze="C2")
 
 
 def _intervals_sheet(wb, cs: ScenarioChecks) -> Table:
@@ -403,7 +382,7 @@ class _Rows:
         self.r += 1
 
 
-def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
+def _summary_sheet(ws, cs: ScenarioChecks, field, plan_info,
                    before: ScenarioChecks | None, run: dict | None = None) -> None:
     check = cs.checks[0]
     s = check.study.settings
@@ -418,7 +397,7 @@ def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
            "require; results are indicative planning support only; verify relay settings "
            "before any field change. See 'Cautions' below.", Font(bold=True, color="8A4B00"))
     w.r += 1
-    _verdict_section(w, cs, previous_idx, plan_info, before)
+    _verdict_section(w, cs, field, plan_info, before)
     _run_section(w, run)
     if plan_info:
         _plan_section(w, plan_info)
@@ -435,15 +414,13 @@ def _summary_sheet(ws, cs: ScenarioChecks, previous_idx, plan_info,
     ws.sheet_view.showGridLines = False
 
 
-def _verdict_section(w: _Rows, cs: ScenarioChecks, previous_idx, plan_info,
+def _verdict_section(w: _Rows, cs: ScenarioChecks, field, plan_info,
                      before: ScenarioChecks | None) -> None:
     from ..check import verdict_covers
 
     check = cs.checks[0]
     s = check.study.settings
-    w.pair("allocation checked", "a planned allocation" if plan_info else
-           "a proposed assignment" if previous_idx is not None else
-           "the workbook's current allocation")
+    w.pair("allocation checked", content.what_is_checked(field, plan_info))
     w.pair("overall verdict", vocab.headline(cs.compliant), bold=True)
     w.line(content.verdict_words_set(cs))
     w.line(verdict_covers(cs))
@@ -457,9 +434,9 @@ def _verdict_section(w: _Rows, cs: ScenarioChecks, previous_idx, plan_info,
     w.pair("interval length", check.year.interval_minutes, "0", unit="min")
     w.pair("worst distance outside a band", cs.worst_violation_pp, "0.00", unit="pp")
     w.pair("priority sites", content.priority_summary(check).words(s.priority_policy))
-    if previous_idx is not None and not plan_info:  # a plan's facts say it themselves
-        w.pair("feeders whose block changes",
-               int(np.sum(np.asarray(previous_idx) != check.block_idx)), "0")
+    if field.compares and not plan_info:  # a plan's facts say it themselves
+        for f in content.change_facts(field.counts):
+            w.fact(f)
 
 
 def _plan_section(w: _Rows, plan_info: dict) -> None:
@@ -584,14 +561,18 @@ def _legend_section(w: _Rows, check: Check) -> None:
         w.line("! " + text)
 
 
-def write_workbook(check: Check | ScenarioChecks, path: Path,
-                   previous_idx: np.ndarray | None = None, plan_info: dict | None = None,
+def write_workbook(check: Check | ScenarioChecks, path: Path, field=None,
+                   plan_info: dict | None = None,
                    before: Check | ScenarioChecks | None = None,
                    fc: content.FeederContrib | None = None, run: dict | None = None) -> Path:
-    """Write ``report.xlsx`` to ``path`` and return it (``run``: the run record)."""
-    from ..export import as_set
+    """Write ``report.xlsx`` to ``path`` and return it (``field``: the
+    :class:`~allocator.field.plan.FieldPlan`, made here when not given; ``run``: the run
+    record)."""
+    from ..check import as_set
+    from ..field.plan import field_plan
 
     cs = as_set(check)
+    field = field_plan(cs) if field is None else field
     before = as_set(before) if before is not None else None
     first = cs.checks[0]
     path = Path(path)
@@ -600,10 +581,9 @@ def write_workbook(check: Check | ScenarioChecks, path: Path,
     wb.properties.creator = f"ufls-allocator {__version__}"
     ws = wb.active
     ws.title = "summary"
-    _summary_sheet(ws, cs, previous_idx, plan_info, before, run)
+    _summary_sheet(ws, cs, field, plan_info, before, run)
     tables = [_scenarios_sheet(wb, cs), _blocks_sheet(wb, cs, before),
-              _feeders_sheet(wb, first, previous_idx, fc),
-              _relay_sheet(wb, first, previous_idx), _intervals_sheet(wb, cs),
+              _feeders_sheet(wb, first, field, fc), _intervals_sheet(wb, cs),
               _windows_sheet(wb, cs), _exports_sheet(wb, cs),
               _substations_sheet(wb, cs)]
     sched = _schedule_sheet(wb, cs)
@@ -611,6 +591,6 @@ def write_workbook(check: Check | ScenarioChecks, path: Path,
         tables.append(sched)
     from .fieldsheets import field_sheets
 
-    field_sheets(wb, cs, previous_idx)
+    field_sheets(wb, field)
     save(wb, path, tables)
     return path

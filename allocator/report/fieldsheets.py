@@ -16,10 +16,9 @@ import numpy as np
 from openpyxl.styles import Alignment, Border, Font, Side
 from openpyxl.utils import get_column_letter
 
-from .. import statement as stm
-from ..check import ScenarioChecks
-from ..visits import VisitOrder, order_words, visit_order, visit_order_table
-from ..worklist import work_list_table
+from ..field import statement as stm
+from ..field.plan import FieldPlan
+from ..field.visits import VisitOrder, order_words
 from .content import json_number
 from .xlsxtable import HEADER_ALIGN, HEADER_BORDER, HEADER_FILL, HEADER_FONT, put, put_text
 
@@ -70,14 +69,14 @@ def _nan(v):
     return json_number(v) if isinstance(v, (float, np.floating)) else v
 
 
-def statement_sheet(wb, cs: ScenarioChecks) -> None:
+def statement_sheet(wb, fp: FieldPlan) -> None:
     ws = wb.create_sheet("statement")
-    s = cs.study.settings
-    df = stm.statement_table(cs)
+    s = fp.study.settings
+    df = fp.statement
     put_text(ws, 1, 1, stm.TITLE).font = TITLE_FONT
     put_text(ws, 2, 1, f"{s.utility} - study year {s.year}")
     put_text(ws, 3, 1, stm.CITATION).font = BOLD
-    for r, text in ((4, stm.EXPLANATION), (5, stm.statement_basis(cs)), (6, stm.CAUTION)):
+    for r, text in ((4, stm.EXPLANATION), (5, fp.statement_basis), (6, stm.CAUTION)):
         put_text(ws, r, 1, text).alignment = WRAP
         ws.merge_cells(start_row=r, start_column=1, end_row=r, end_column=len(stm.COLUMNS))
     ws.row_dimensions[4].height = 64
@@ -116,20 +115,20 @@ WORK_HEADS = (
 )
 
 
-def work_list_sheet(wb, cs: ScenarioChecks, previous_idx, order: VisitOrder | None) -> None:
+def work_list_sheet(wb, fp: FieldPlan) -> None:
     ws = wb.create_sheet("work_list")
     heads = [h for _, h, _ in WORK_HEADS]
     fmts = [f for _, _, f in WORK_HEADS]
-    df = None if previous_idx is None else work_list_table(cs, previous_idx, order)
+    df = fp.work_list if fp.compares else None
     if df is None or df.empty:
         msg = ("No relay changes: this report checks the allocation in service now."
                if df is None else "No relay changes: every relay keeps the setting it has now.")
         rows = [(msg,) + (None,) * (len(heads) - 1)]
     else:
-        sc = df["mw_scenario"].iloc[0]
+        sc = next((x for x in df["mw_scenario"] if x), "")
         keys = [k for k, _, _ in WORK_HEADS]
         for k in ("moved_mean_mw", "moved_mw_at_block_lowest"):
-            heads[keys.index(k)] += f" ({sc})"
+            heads[keys.index(k)] += f" ({sc})" if sc else ""
         rows = [tuple(_nan(v) for v in r)
                 for r in df[[k for k, _, _ in WORK_HEADS]].itertuples(index=False)]
     widths = [6, 14, 14, 16, 12, 8] + [9] * 10 + [9, 10, 18, 9, 10, 12, 10, 12]
@@ -140,19 +139,19 @@ def work_list_sheet(wb, cs: ScenarioChecks, previous_idx, order: VisitOrder | No
     ws.freeze_panes = "C2"
 
 
-def visit_order_sheet(wb, order: VisitOrder | None) -> None:
+def visit_order_sheet(wb, order: VisitOrder | None, visits) -> None:
     ws = wb.create_sheet("visit_order")
     heads = ["visit", "substation", "relays", "feeders", "worst violation after the visit pp",
              "least room to a band edge pp", "scenario", "block", "band edge", "local time",
              "status", "over the limit by pp"]
     fmts = ["0", None, "0", "0", "0.00", "0.00", None, None, None, None, None, "0.00"]
     if order is None or not order.visits:
-        rows = [("No visits: no relay setting changes.",) + (None,) * (len(heads) - 1)]
+        rows = [("No visits: no relay setting changes in the field.",)
+                + (None,) * (len(heads) - 1)]
         _grid(ws, 1, heads, rows, fmts)
         ws.column_dimensions["A"].width = 40
     else:
-        df = visit_order_table(order)
-        rows = [tuple(_nan(v) for v in x) for x in df.itertuples(index=False)]
+        rows = [tuple(_nan(v) for v in x) for x in visits.itertuples(index=False)]
         r = _grid(ws, 1, heads, rows, fmts,
                   [6, 16, 7, 8, 12, 12, 12, 8, 7, 20, 18, 10]) + 1
         put_text(ws, r, 1, order_words(order))
@@ -161,12 +160,11 @@ def visit_order_sheet(wb, order: VisitOrder | None) -> None:
     print_setup(ws, 1, len(heads))
 
 
-def field_sheets(wb, cs: ScenarioChecks, previous_idx) -> None:
+def field_sheets(wb, fp: FieldPlan) -> None:
     """Add the statement, work_list and visit_order sheets right after the summary."""
-    order = None if previous_idx is None else visit_order(cs, previous_idx)
-    statement_sheet(wb, cs)
-    work_list_sheet(wb, cs, previous_idx, order)
-    visit_order_sheet(wb, order)
+    statement_sheet(wb, fp)
+    work_list_sheet(wb, fp)
+    visit_order_sheet(wb, fp.order, fp.visits)
     at = wb.sheetnames.index(AFTER) + 1 if AFTER in wb.sheetnames else len(wb.sheetnames)
     for k, name in enumerate(("statement", "work_list", "visit_order")):
         wb.move_sheet(name, offset=at + k - wb.sheetnames.index(name))

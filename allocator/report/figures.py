@@ -557,7 +557,7 @@ def visit_order_size(n_visits: int) -> tuple[float, float]:
 
 def visit_order_figure(order) -> tuple[Figure, str, str]:
     """Worst band violation over every scenario (pp) now and after each visit of
-    ``order`` (an :class:`allocator.visits.VisitOrder`), with 0 (every block in band) and
+    ``order`` (an :class:`allocator.field.visits.VisitOrder`), with 0 (every block in band) and
     the level of the allocation in service now marked; visits that break the band in
     vermilion with a cross."""
     steps = order.steps
@@ -603,12 +603,13 @@ def _weakest(cs: ScenarioChecks, j: int) -> Check:
 def render_figures(check: Check | ScenarioChecks, out_dir: Path | None,
                    before: Check | ScenarioChecks | None = None,
                    fc: content.FeederContrib | None = None,
-                   previous_idx: np.ndarray | None = None) -> list[FigureFile]:
+                   field=None) -> list[FigureFile]:
     """Render every figure; save PNGs into ``out_dir`` (created) unless it is None.
     Share maps show each block in its weakest scenario; the duration curves every
-    scenario; the average day and feeder classes the first scenario.  ``previous_idx``
-    (the allocation in service now) adds the visit-order figure when relays change."""
-    from ..export import as_set
+    scenario; the average day and feeder classes the first scenario.  ``field`` (the
+    :class:`~allocator.field.plan.FieldPlan`) adds the visit-order figure of its visit order
+    when relays change in the field."""
+    from ..check import as_set
 
     cs = as_set(check)
     before = as_set(before) if before is not None else None
@@ -622,12 +623,9 @@ def render_figures(check: Check | ScenarioChecks, out_dir: Path | None,
              ("average_day", lambda: average_day(first)),
              ("feeder_classes", lambda: feeder_classes(first, fc)),
              ("worst_windows", lambda: worst_windows(cs))]
-    if previous_idx is not None:
-        from ..visits import visit_order
-
-        order = visit_order(cs, previous_idx)
-        if order.visits and order.judged:
-            jobs.append(("visit_order", lambda: visit_order_figure(order)))
+    order = field.order if field is not None else None
+    if order is not None and order.visits and order.judged:
+        jobs.append(("visit_order", lambda: visit_order_figure(order)))
     if out_dir is not None:
         out_dir = Path(out_dir)
         out_dir.mkdir(parents=True, exist_ok=True)

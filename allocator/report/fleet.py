@@ -1,6 +1,6 @@
 """The fleet summary of a review as fleet_summary.csv, fleet_summary.xlsx and fleet.html.
 
-One table (:func:`allocator.fleet.summary_frame`): per study and block the verdict, the
+One table (:func:`allocator.pipeline.review.summary_frame`): per study and block the verdict, the
 lowest share, its scenario and local time (ISO 8601 with offset), the shortfall MWh; a study
 that was not checked is one row with its status and message.  The page uses the reports'
 style sheet and caution strip and links each checked study's own report.html.
@@ -16,7 +16,7 @@ from .. import vocab
 from ..version import __version__
 from ..safeio import write_csv
 from .excel import time_cols
-from .html import CAUTION_STRIP, CSS, _table, _td, esc
+from .htmlkit import CAUTION_STRIP, CSS, esc, table, td
 from .xlsxtable import Col, save, table_sheet
 
 #: xlsx/HTML headers of the summary columns (the CSV keeps the machine names)
@@ -54,8 +54,8 @@ def _row_html(r: dict, linked: set[str]) -> str:
     return ("<tr>" f"<td>{name}</td><td class=\"{cls}\">{esc(r['status'])}</td>"
             f"<td class=\"{cls}\">{esc(r['study_verdict'] or '')}</td>"
             f"<td>{esc(r['block'] or '')}</td><td>{esc(r['block_status'] or '')}</td>"
-            + _td(r["min_share_pct"]) + f"<td>{esc(r['min_share_scenario'] or '')}</td>"
-            f"<td>{esc(r['min_share_local_time'] or '')}</td>" + _td(r["shortfall_mwh"])
+            + td(r["min_share_pct"]) + f"<td>{esc(r['min_share_scenario'] or '')}</td>"
+            f"<td>{esc(r['min_share_local_time'] or '')}</td>" + td(r["shortfall_mwh"])
             + _message_td(r["message"]) + "</tr>")
 
 
@@ -84,7 +84,7 @@ def render_fleet_html(df: pd.DataFrame, run: dict, out: Path) -> str:
         f"{esc(__version__)}. Per block the worst over every scenario of the study; the "
         "shortfall MWh is that of the worst scenario.</p>",
         CAUTION_STRIP + " Each study's own report carries its full cautions.</div>",
-        _table(heads, rows), "</body></html>"])
+        table(heads, rows), "</body></html>"])
 
 
 def write_fleet_files(df: pd.DataFrame, out: Path, run: dict) -> None:

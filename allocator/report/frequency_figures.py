@@ -3,7 +3,7 @@ no pyplot, so no display backend is involved).
 
 ``plot_traces`` and ``plot_nadir_vs_size`` draw one :class:`allocator.frequency.FrequencyResult`;
 ``frequency_figures`` and ``critical_traces_figure`` draw a
-:class:`allocator.frequency_study.FrequencyStudy`; ``write_frequency_figures`` saves them.
+:class:`allocator.frequency_indication.FrequencyStudy`; ``write_frequency_figures`` saves them.
 """
 
 from __future__ import annotations
@@ -14,7 +14,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from ..frequency import FrequencyResult
-from ..frequency_study import FrequencyStudy
+from ..frequency_indication import FrequencyStudy
 from ..safeio import safe_filename
 from . import palette
 

@@ -1,97 +1,17 @@
-"""Console rendering (rich).  No number is ever cut: every table goes through
-:func:`print_table`, which fixes each column at least as wide as its longest value, lets
-headers wrap into the width left, and switches to one block of "header: value" lines per row
-when even that does not fit (80 columns and piped output included)."""
+"""The console's check output: the study overview, warnings, the verdict per block and per
+scenario, the annual statement and the worst windows (every table through
+:func:`allocator.console.tables.print_table`)."""
 
 from __future__ import annotations
 
-from rich import box
 from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
-from rich.text import Text
 
-from . import vocab
-from .domain import Study
-
-
-def make_console(quiet: bool = False) -> Console:
-    return Console(quiet=quiet, highlight=False, soft_wrap=False)
-
-
-def _cell_len(markup: str) -> int:
-    return max((Text.from_markup(line).cell_len for line in markup.split("\n")), default=0)
-
-
-def _word_len(markup: str) -> int:
-    return max((len(w) for w in Text.from_markup(markup).plain.split()), default=0)
-
-
-def _widths(width: int, heads, rows, right) -> list[int] | None:
-    """Column widths for ``width`` console columns, or None when even the narrowest
-    layout does not fit.  Numbers (``right``) keep their full width; text may wrap at
-    spaces; what is left goes first to whole headers, then to whole text cells."""
-    n = len(heads)
-    full = [max([_cell_len(r[j]) for r in rows] + [0]) for j in range(n)]
-    least = [max([_word_len(h)] + ([full[j]] if j in right else
-                                   [_word_len(r[j]) for r in rows]))
-             for j, h in enumerate(heads)]
-    spare = width - (sum(least) + 3 * n - 3)  # separators and inner padding, no edges
-    if spare < 0:
-        return None
-    w = list(least)
-    for want in ([max(len(h), full[j]) for j, h in enumerate(heads)],
-                 [max(w[j], full[j]) for j in range(n)]):
-        for j in sorted(range(n), key=lambda j: want[j] - w[j]):
-            grow = min(spare, max(0, want[j] - w[j]))
-            w[j] += grow
-            spare -= grow
-    return w
-
-
-def print_table(console: Console, title: str, heads: list[str], rows: list[tuple[str, ...]],
-                right: set[int] = frozenset(), caption: str | None = None) -> None:
-    """A table that never cuts a value (cells are rich markup).  Columns in ``right`` are
-    right-aligned numbers and never wrap; text wraps at spaces.  Below the width the table
-    needs, each row becomes a block of lines: the first cell, then "header: value"."""
-    w = _widths(console.width, heads, rows, right)
-    if w is None:
-        console.print(title)
-        for r in rows:
-            console.print(r[0].replace("\n", " "))
-            for h, v in zip(heads[1:], r[1:]):
-                console.print(f"  {escape(h)}: {v.replace(chr(10), ' ')}")
-        if caption:
-            console.print(caption)
-        return
-    t = Table(title=title, title_justify="left", box=box.SIMPLE_HEAD, padding=(0, 1),
-              caption=caption, caption_justify="left", show_edge=False, pad_edge=False)
-    for j, h in enumerate(heads):
-        # numbers never wrap: their column is as wide as the widest (see _widths)
-        t.add_column(escape(h), justify="right" if j in right else "left", width=w[j])
-    for r in rows:
-        t.add_row(*r)
-    console.print(t)
-
-
-def print_pairs(console: Console, title: str | None, pairs: list[tuple[str, str]]) -> None:
-    """Labelled values (rich markup), two columns: the labels as wide as the longest, the
-    values wrapping at spaces into the width left; "label: value" lines when even that does
-    not fit.  Nothing is cut."""
-    rows = [(escape(k), v) for k, v in pairs]
-    w = _widths(console.width, ["", ""], rows, set())
-    if title:
-        console.print(title)
-    if w is None:
-        for k, v in rows:
-            console.print(f"{k}: {v}")
-        return
-    t = Table(show_header=False, box=None, padding=(0, 1), pad_edge=False, show_edge=False)
-    t.add_column(style="bold", width=w[0], overflow="fold")
-    t.add_column(width=w[1], overflow="fold")
-    for k, v in rows:
-        t.add_row(k, v)
-    console.print(t)
+from .. import vocab
+from ..check import as_set
+from ..domain import Study
+from .tables import print_pairs, print_table
 
 
 def study_overview(console: Console, study: Study) -> None:
@@ -133,13 +53,13 @@ def warnings(console: Console, items: list[str] | tuple[str, ...], limit: int = 
         console.print(f"  and {vocab.count(len(items) - limit, 'more warning')}")
 
 
-def _side_words(v) -> str:
+def side_words(v) -> str:
     """The block's status word (allocator.vocab), coloured."""
     colour = "green" if v.compliant else "red"
     return f"[{colour}]{v.status}[/{colour}]"
 
 
-def _verdict_words(ok: bool, headline: bool = False) -> str:
+def verdict_words(ok: bool, headline: bool = False) -> str:
     word = vocab.headline(ok) if headline else vocab.compliance_word(ok)
     return f"[green]{word}[/green]" if ok else f"[red]{word}[/red]"
 
@@ -148,8 +68,6 @@ def verdict_table(console: Console, checks, title: str = "Armed load per block")
     """Per block the worst case over every scenario (lowest and highest share, the scenario
     it happens in, the room left to the band's edges), then one line per scenario, then the
     overall verdict."""
-    from .export import as_set
-
     cs = as_set(checks)
     s = cs.study.settings
     pct = s.compliance_rule == "percentile"
@@ -161,7 +79,7 @@ def verdict_table(console: Console, checks, title: str = "Armed load per block")
                     + ((f"{v.rule_low_share_pct:.1f}", f"{v.rule_high_share_pct:.1f}")
                        if pct else ())
                     + (f"{v.headroom_to_min_pp:+.2f}", f"{v.headroom_to_max_pp:+.2f}",
-                       _side_words(v)))
+                       side_words(v)))
     heads = ["block", "Hz", "band %", "lowest % in", "highest % in"]
     if pct:  # the two statistics the rule judges, P and 100 - P
         p = s.compliance_percentile
@@ -171,7 +89,7 @@ def verdict_table(console: Console, checks, title: str = "Armed load per block")
     print_table(console, f"{title} — rule {cs.rule}, worst over every scenario", heads, rows,
                 right={1, 2, n - 3, n - 2} | ({5, 6} if pct else set()))
     scenario_table(console, cs)
-    v = _verdict_words(cs.compliant, headline=True)
+    v = verdict_words(cs.compliant, headline=True)
     bad = cs.failing_scenarios
     console.print(f"Overall: {v} (compliant in {len(cs.checks) - len(bad)} of "
                   f"{vocab.count(len(cs.checks), 'scenario')}); worst violation "
@@ -192,21 +110,16 @@ def scenario_table(console: Console, cs) -> None:
         bad = [s.block for s in c.stats if not s.compliant]
         rows.append((escape(c.scenario), escape(pv), str(c.year.calendar_year),
                      f"{100 * c.all_in_band_fraction:.1f}", f"{c.worst_violation_pp:.2f}",
-                     _verdict_words(c.compliant)
+                     verdict_words(c.compliant)
                      + (f": {escape(', '.join(bad))}" if bad else "")))
     print_table(console, "Scenarios judged", ["scenario", "PV", "year",
                                               "all blocks in band % of intervals",
                                               "worst pp", "verdict"], rows, right={2, 3, 4})
 
 
-def statement_table(console: Console, checks) -> None:
-    """The annual statement (:func:`allocator.statement.statement_table`)."""
-    from .export import as_set
-    from .statement import statement_basis
-    from .statement import statement_table as table
-
-    cs = as_set(checks)
-    tab = table(cs)
+def statement_table(console: Console, field) -> None:
+    """The annual statement of a :class:`~allocator.field.plan.FieldPlan` (statement.csv)."""
+    tab = field.statement
     several = tab["scenario"].nunique() > 1  # several metered years: name each row's year
     rows = [(escape(r.block) + (f"\n{escape(r.scenario)}" if several else ""),
              f"{r.pickup_hz:.2f}", f"{r.delay_s:.2f}",
@@ -218,12 +131,10 @@ def statement_table(console: Console, checks) -> None:
                 "netted demand armed (Regulation (EU) 2017/2196 Art. 50(1))",
                 ["block", "pickup Hz", "delay s", "mean %", "lowest %", "P5 %", "P95 %",
                  "cumulative mean %", "lowest cumulative share over the year %"], rows,
-                right=set(range(1, 9)), caption=escape(statement_basis(cs)))
+                right=set(range(1, 9)), caption=escape(field.statement_basis))
 
 
 def worst_windows(console: Console, check, n: int = 5) -> None:
-    from .export import as_set
-
     w = as_set(check).windows()
     if w.empty:
         console.print("No interval outside any block's band in any scenario.")
@@ -235,3 +146,7 @@ def worst_windows(console: Console, check, n: int = 5) -> None:
                 f"{vocab.count(len(w), 'window')})",
                 ["#", "block in scenario", "status", "start (local)", "hours", "worst %",
                  "MWh outside"], rows, right={0, 4, 5, 6})
+
+
+__all__ = ["study_overview", "warnings", "side_words", "verdict_words", "verdict_table",
+           "scenario_table", "statement_table", "worst_windows"]

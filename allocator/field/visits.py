@@ -3,7 +3,7 @@ block stays in band (or at least no worse than the allocation in service now) in
 scenario judged.  ``ScenarioChecks of the new allocation + the allocation now → VisitOrder``.
 
 Setting changes are grouped by substation (a relay belongs to the substation of its first
-feeder, see :mod:`allocator.worklist`); after visit i the network runs with the changes of
+feeder, see :mod:`allocator.field.changes`); after visit i the network runs with the changes of
 visits 1..i done and the rest as now.  The share of block b at column c (every valid
 interval of every scenario, side by side, as in :mod:`allocator.plan.units`) is then
 ``S0[b, c] + Σ_{visited k} D_k[b, c]``, with ``S0`` the shares now and ``D_k`` the rows a
@@ -36,17 +36,17 @@ most relays to change, then the substation name.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
 import pandas as pd
 
-from .armed import armed_mw, contribution_mw
-from .check import ScenarioChecks
-from .domain import UNARMED, Study
-from .timefmt import iso_local
-from .worklist import RelayChange, relay_changes
+from ..armed import armed_mw, contribution_mw
+from ..check import ScenarioChecks, as_set
+from ..domain import UNARMED
+from ..timefmt import iso_local
+from .changes import RelayChange, relay_changes
 
 TOL_PP = 1e-9
 #: exact search over every set of visited substations up to this many (2^12 = 4096 sets)
@@ -103,6 +103,8 @@ class VisitOrder:
     lower_bound_pp: float  # no order has a smaller largest edge over its visits
     scenarios: tuple[str, ...]
     changes: tuple[RelayChange, ...]
+    #: ``[feeder]`` the allocation in service now (visit 0)
+    now_idx: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
 
     @property
     def limit_pp(self) -> float:
@@ -349,8 +351,6 @@ def _step(cs: ScenarioChecks, sh: _Shares, i: int, visit: Visit | None,
 def visit_order(checks, previous_idx: np.ndarray) -> VisitOrder:
     """The visit order from ``previous_idx`` (block per feeder, in service now) to the
     allocation ``checks`` was made of, judged on every scenario of ``checks``."""
-    from .export import as_set
-
     cs = as_set(checks)
     old = np.asarray(previous_idx, dtype=np.intp)
     changes = relay_changes(cs.study, old, cs.block_idx)
@@ -361,7 +361,7 @@ def visit_order(checks, previous_idx: np.ndarray) -> VisitOrder:
     if not visits:
         states, _ = _walk(sh, [])
         return VisitOrder((), (_step(cs, sh, 0, None, states[0]),), "none", True,
-                          states[0][0], cs.names, changes)
+                          states[0][0], cs.names, changes, old)
     if sh.s0.shape[1] == 0:  # nothing to judge: the visits by name, every edge NaN
         order, states, proven, bound, method = (list(range(len(visits))),
                                                 _walk(sh, list(range(len(visits))))[0],
@@ -373,7 +373,8 @@ def visit_order(checks, previous_idx: np.ndarray) -> VisitOrder:
     done = [visits[k] for k in order]
     steps = [_step(cs, sh, 0, None, states[0])]
     steps += [_step(cs, sh, i, v, st) for i, (v, st) in enumerate(zip(done, states[1:]), 1)]
-    return VisitOrder(tuple(done), tuple(steps), method, proven, bound, cs.names, changes)
+    return VisitOrder(tuple(done), tuple(steps), method, proven, bound, cs.names, changes,
+                      old)
 
 
 __all__ = ["Visit", "VisitStep", "VisitOrder", "visit_order", "group_by_substation",

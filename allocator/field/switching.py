@@ -1,7 +1,7 @@
 """The control-room calendar of a schedule: every switching instant of the year.
 
 ``switching_table(study, year, schedule)`` lists, for each interval start where the
-period in force changes (:func:`allocator.check.year_period_index`, on the study
+period in force changes (:func:`allocator.year.year_period_index`, on the study
 calendar), every relay switched by schedule whose block differs between the two periods:
 the instant in ISO 8601 local time with its UTC offset (:mod:`allocator.timefmt`), the
 periods, the feeder(s) of the relay (a trip group is one relay, its feeders joined by
@@ -21,9 +21,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .domain import Study
-from .timefmt import iso_local
-from .year import Year, year_period_index
+from ..domain import Study
+from ..timefmt import iso_local
+from ..year import Year, year_period_index
 
 SWITCHING_COLUMNS = ("instant_local", "from_period", "to_period", "feeders", "from_block",
                      "to_block")

@@ -28,8 +28,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .check import Check, ScenarioChecks, annual_statement, statement_checks
-from .timefmt import iso_local
+from ..check import Check, ScenarioChecks, annual_statement, as_set, statement_checks
+from ..timefmt import iso_local
 
 CITATION = ("Commission Regulation (EU) 2017/2196, Art. 50(1): the yearly update of the "
             "communication under Art. 12(6)(b)")
@@ -104,8 +104,6 @@ def statement_table(checks: Check | ScenarioChecks) -> pd.DataFrame:
     The shares and the minimum's time are the check's block statistics (the values
     summary.json holds for that scenario); the cumulative mean and lowest are
     :func:`allocator.check.annual_statement`'s."""
-    from .export import as_set
-
     rows = []
     for c in statement_checks(as_set(checks)):
         why = ("metered year" if c.year.source == "metered" else

@@ -7,8 +7,8 @@ from __future__ import annotations
 from rich.console import Console
 from rich.markup import escape
 
-from .console import print_table
-from .visits import VisitOrder, order_words
+from ..field.visits import VisitOrder, order_words
+from .tables import print_table
 
 
 #: visits shown on the console (the first breaking one is always added); all are in the files
@@ -24,6 +24,8 @@ def _shown(order: VisitOrder) -> list:
 
 
 def visit_order_table(console: Console, order: VisitOrder) -> None:
+    """The visit order (visit_order.csv), the first SHOWN visits and the first that breaks
+    the band, and what the order achieves."""
     if not order.visits:
         console.print("No relay setting changes, so no visits.")
         return
@@ -47,3 +49,20 @@ def visit_order_table(console: Console, order: VisitOrder) -> None:
                          "in visit_order.csv" if more else None))
     colour = "green" if order.keeps_band else "red"
     console.print(f"[{colour}]{escape(order_words(order))}[/{colour}]")
+
+
+def field_summary(console: Console, fp) -> None:
+    """A :class:`~allocator.field.plan.FieldPlan`: the visit order and the relays the
+    control room sets by schedule (counts from the field plan, as every output has them)."""
+    if fp.order is None:
+        return
+    visit_order_table(console, fp.order)
+    c = fp.counts
+    if c.remote_relays:
+        console.print(f"{c.remote_relays} relay{'s' if c.remote_relays != 1 else ''} set by "
+                      "remote schedule from the control room (no visit; the 'set remote "
+                      "schedule' rows of work_list.csv).")
+    console.print(f"Feeders whose block changes (field or schedule): {c.feeders_changed}.")
+
+
+__all__ = ["visit_order_table", "field_summary", "SHOWN"]

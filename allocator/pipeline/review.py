@@ -2,9 +2,13 @@
 
 A *study* of the folder (not its subfolders) is a workbook ``NAME.xlsx`` with at most one
 metered file beside it, ``NAME.metered.csv`` or ``NAME.metered.parquet`` (README, "Fleet
-review").  Each study is one task, :func:`check_one`, which runs the ``check`` command's own
-code (:func:`allocator.cli.write_check`) into ``OUT/studies/NAME/`` and hands back only the
-per-block figures of the fleet summary: the scenario arrays stay on the worker.
+review").  Each study is one task, :func:`check_one`, which runs the ``check`` job
+(:func:`allocator.pipeline.check.check_study`, then ``write_check_folder``) into
+``OUT/studies/NAME/`` and hands back only the per-block figures of the fleet summary: the
+scenario arrays stay on the worker.
+
+:func:`review_folder` runs the tasks into a folder the caller owns (the workers write each
+study's folder there); :func:`write_review_folder` adds the fleet summary and run.json.
 
 Why Dask (``dask.distributed``): the same code runs on a local cluster of worker processes
 or on a scheduler a system operator already runs, with no change; a study that raises does
@@ -16,14 +20,15 @@ from __future__ import annotations
 
 import contextlib
 import time
-from argparse import Namespace
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import pandas as pd
 
-from . import vocab
-from .errors import InputError, Problem
+from .. import vocab
+from ..errors import InputError, Problem
+from .check import CheckRequest, check_study, write_check_folder
+from .inputs import Sources
 
 #: the suffixes of a study's metered file, after ``NAME``
 METERED_SUFFIXES = (".metered.csv", ".metered.parquet")
@@ -111,17 +116,13 @@ def find_studies(folder: str | Path) -> tuple[list[StudyFiles], list[str]]:
 # --------------------------------------------------------------------------------------------
 # one task (runs on a worker)
 # --------------------------------------------------------------------------------------------
-def check_args(study: StudyFiles, out: Path, fmt: str | None,
-               shown_out: Path | None = None) -> Namespace:
-    """The ``check`` command's arguments for one study, as argparse would give them
-    (``argv`` is the equivalent command line, kept in the study's run.json; it names
-    ``shown_out``, the folder's final place, when ``out`` is inside a temporary folder)."""
+def check_request(study: StudyFiles, shown_out: Path, fmt: str | None) -> CheckRequest:
+    """The ``check`` job of one study; its ``argv`` is the equivalent command line, kept in
+    the study's run.json, naming ``shown_out``, the folder's final place."""
     argv = ["check", study.workbook] + (["--metered", study.metered] if study.metered else [])
-    argv += ["--out", str(shown_out or out)] + (["--format", fmt] if fmt is not None else [])
-    metered = [study.metered] if study.metered else None  # --metered is repeatable: a list
-    return Namespace(command="check", workbook=study.workbook, metered=metered,
-                     assignment=None, scenarios=None, out=str(out), format=fmt, quiet=True,
-                     debug=False, argv=argv)
+    argv += ["--out", str(shown_out)] + (["--format", fmt] if fmt is not None else [])
+    metered = (study.metered,) if study.metered else ()
+    return CheckRequest(Sources(study.workbook, metered), argv=argv)
 
 
 def block_rows(name: str, chk, seconds: float) -> tuple[dict, ...]:
@@ -139,7 +140,7 @@ def block_rows(name: str, chk, seconds: float) -> tuple[dict, ...]:
 
 def _inputs_of(study: StudyFiles) -> tuple[dict, ...]:
     """run.json entries of a study's files, for a study whose check wrote none."""
-    from .runrecord import file_entry
+    from ..runrecord import file_entry
 
     out = []
     for role, p in (("workbook", study.workbook), ("metered data", study.metered)):
@@ -150,13 +151,10 @@ def _inputs_of(study: StudyFiles) -> tuple[dict, ...]:
 
 def check_one(study: StudyFiles, out_root: str, fmt: str | None,
               shown_root: str | None = None) -> StudyResult:
-    """Check one study into ``out_root/NAME/`` with the ``check`` command's code (run.json
+    """Check one study into ``out_root/NAME/`` with the ``check`` job (run.json
     names ``shown_root/NAME``).  Bad input and exceptions become a StudyResult with their
     message; nothing is raised."""
-    import json
-
-    from .cli import write_check
-    from .console import make_console
+    from ..report import parse_formats
 
     t0 = time.perf_counter()
     failed = lambda status, msg: StudyResult(  # noqa: E731
@@ -165,17 +163,17 @@ def check_one(study: StudyFiles, out_root: str, fmt: str | None,
         return failed(vocab.STUDY_BAD_INPUT, study.problem)
     out = Path(out_root) / study.name
     try:
-        shown = Path(shown_root) / study.name if shown_root else None
-        _, _, chk, _, _ = write_check(check_args(study, out, fmt, shown),
-                                      make_console(quiet=True))
+        shown = Path(shown_root) / study.name if shown_root else out
+        res = check_study(check_request(study, shown, fmt))
+        write_check_folder(res, out, parse_formats(fmt))
     except InputError as exc:
         return failed(vocab.STUDY_BAD_INPUT, exc.render())
     except Exception as exc:  # noqa: BLE001 - one study's failure must not stop the others
         return failed(vocab.STUDY_FAILED, f"{type(exc).__name__}: {exc}".splitlines()[0])
     sec = time.perf_counter() - t0
-    rec = json.loads((out / "run.json").read_text(encoding="utf-8"))
+    chk = res.checks
     return StudyResult(study.name, vocab.STUDY_CHECKED, rows=block_rows(study.name, chk, sec),
-                       inputs=tuple({**e, "study": study.name} for e in rec["inputs"]),
+                       inputs=tuple({**e, "study": study.name} for e in res.run["inputs"]),
                        seconds=sec, compliant=bool(chk.compliant))
 
 
@@ -265,3 +263,53 @@ def review(folder: str | Path, out: Path, fmt: str | None = None, scheduler: str
                              final_out / "studies" if final_out else None)
     return FleetReview(results, summary_frame(results), time.perf_counter() - t0, where,
                        tuple(notes))
+
+
+@dataclass(frozen=True)
+class ReviewRequest:
+    """A fleet review: the ``folder`` of studies, each study's report ``formats`` (the
+    ``--format`` text; None: all), a Dask ``scheduler`` address (None: a local cluster of
+    ``workers`` processes), ``final_out`` (where the folder will be, for the run records)
+    and the command line ``argv`` for run.json."""
+
+    folder: str | Path
+    formats: str | None = None
+    scheduler: str | None = None
+    workers: int = 2
+    final_out: Path | None = None
+    argv: list[str] | None = None
+
+
+def validate_review(req: ReviewRequest) -> list[StudyFiles]:
+    """Bad options and a folder without studies are bad input before anything runs.
+    Returns the studies found."""
+    from ..report import parse_formats
+
+    if req.workers < 1:
+        raise InputError([Problem("--workers", f"{req.workers}: give 1 or more")])
+    parse_formats(req.formats)
+    return find_studies(req.folder)[0]
+
+
+def review_folder(req: ReviewRequest, into: Path) -> FleetReview:
+    """Check every study of ``req.folder`` into ``into/studies/NAME/`` (``into``: a folder
+    the caller owns, e.g. :func:`allocator.safeio.atomic_dir`'s)."""
+    validate_review(req)
+    return review(req.folder, Path(into), req.formats, req.scheduler, req.workers,
+                  req.final_out)
+
+
+def write_review_folder(fr: FleetReview, folder: Path, argv: list[str] | None = None) -> None:
+    """fleet_summary.csv/.xlsx, fleet.html and run.json (every study's inputs) into
+    ``folder`` beside its studies/."""
+    from ..files import write_run
+    from ..report.fleet import write_fleet_files
+    from ..runrecord import review_record
+
+    rec = review_record([e for r in fr.results for e in r.inputs], argv,
+                        cluster=fr.cluster, studies=len(fr.results),
+                        studies_not_checked=[r.name for r in fr.results
+                                             if r.status != vocab.STUDY_CHECKED],
+                        wall_seconds=round(fr.seconds, 3), notes=list(fr.notes))
+    write_fleet_files(fr.summary, folder, rec)
+    write_run(folder, rec)
