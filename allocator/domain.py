@@ -68,6 +68,9 @@ class Settings:
     #: over the periods, and switching operations per calendar year
     max_switched_feeders: int | None = None
     max_switch_operations_per_year: int | None = None
+    #: "report" (the shares if the switching stops are reported) or "required" (a schedule
+    #: that leaves a block out of band if the switching stops in some period is not used)
+    fail_safe: str = "report"
 
     @property
     def rule_text(self) -> str:
@@ -313,7 +316,8 @@ class Study:
         visit order all go through it."""
         schedule = np.asarray(schedule, dtype=np.intp)
         now = self.current_assignment if now is None else np.asarray(now, dtype=np.intp)
-        return np.where(self.is_remote_settable, now, schedule[:, 0])
+        planned = schedule[:, 0] if schedule.ndim == 2 else schedule
+        return np.where(self.is_remote_settable, now, planned)
 
     def relays_changed(self, new: np.ndarray, old: np.ndarray | None = None) -> int:
         """How many relays get a new block setting going from ``old`` (default: the current

@@ -62,11 +62,12 @@ SETTING_KEYS_OPTIONAL = ("holiday_country", "holiday_subdivision", "pv_derate", 
                          "max_substation_share_pct", "deviation_tolerance_pct",
                          "band_margin_pp", "objective", "exporting_standard_relays",
                          "pv_tilt_deg", "pv_azimuth_deg", "max_switched_feeders",
-                         "max_switch_operations_per_year")
+                         "max_switch_operations_per_year", "fail_safe")
 SCENARIO_COLUMNS = ("scenario", "pv")
 SCENARIO_OPTIONAL = ("pv_scale", "load_scale", "year")
 OBJECTIVES = ("fewest_changes", "closest_to_target")
 EXPORTING_CHOICES = ("allow", "avoid")
+FAIL_SAFE_CHOICES = ("report", "required")
 
 
 def max_workbook_bytes() -> int:
@@ -513,8 +514,11 @@ def _planning_settings(sv: _SettingValues) -> dict[str, object]:
         if caps[k] is not None and not float(caps[k]).is_integer():
             sv.bad(k, f"expected a whole number, found {caps[k]}")
         caps[k] = int(caps[k]) if caps[k] is not None else None
+    fail_safe = (sv.txt("fail_safe") or "report").lower()
+    if fail_safe not in FAIL_SAFE_CHOICES:
+        sv.bad("fail_safe", f"expected 'report' or 'required', found '{fail_safe}'")
     return {"objective": objective, "exporting": exporting, "tilt": tilt,
-            "azimuth": azimuth, "caps": caps}
+            "azimuth": azimuth, "caps": caps, "fail_safe": fail_safe}
 
 
 #: the parsed settings without which no :class:`Settings` is built
@@ -543,7 +547,7 @@ def _settings_from(v: dict[str, object]) -> Settings:
         band_margin_pp=0.0 if margin is None else float(margin), objective=v["objective"],
         exporting_standard_relays=v["exporting"],
         pv_tilt_deg=0.0 if tilt is None else float(tilt), pv_azimuth_deg=v["azimuth"],
-        **v["caps"],
+        fail_safe=v["fail_safe"], **v["caps"],
     )
 
 

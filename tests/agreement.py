@@ -69,7 +69,12 @@ def assert_plan_outputs_agree(out: Path, console_text: str | None = None,
     assert info["feeders_changed"] == int((plan["changed"] == "yes").sum())
     assert info["field_relays_changed"] == info["relays_changed"] == len(field)
     assert info["remote_relays_changed"] == len(remote)
-    assert info["substations_visited"] == len(vo) - 1 == field["visit"].nunique()
+    sites = vo[(vo["visit"] > 0) & ~vo["substation"].str.startswith("control room")]
+    assert info["substations_visited"] == len(sites) == field["visit"].nunique()
+    # the control room's step is one row of the visit order, numbered as its work list rows
+    steps = vo.loc[vo["substation"].str.startswith("control room"), "visit"]
+    assert len(steps) == (1 if len(remote) else 0)
+    assert set(remote["visit"]) == set(steps)
     if "changed_by" in plan:
         assert set(plan.loc[plan["changed"] == "yes", "changed_by"]) <= {"field visit",
                                                                         "remote schedule"}
@@ -95,12 +100,18 @@ def assert_plan_outputs_agree(out: Path, console_text: str | None = None,
     assert section.count(f"<td>{REMOTE}</td>") == len(remote)
     assert len(re.findall(r"<td>(?:arm|move|disarm)</td>", section)) == len(field)
     # the summary sheet's plan section
-    summ = {r[0]: r[1] for r in wb["summary"].iter_rows(values_only=True) if r and r[0]}
+    summ: dict = {}
+    for r in wb["summary"].iter_rows(values_only=True):  # the first row of each label
+        if r and r[0] and r[0] not in summ:
+            summ[r[0]] = r[1]
     assert summ["feeders whose block changes (field or schedule)"] == info["feeders_changed"]
     assert summ["relays changed in the field"] == info["field_relays_changed"]
     if figures is not None:  # the figure of the plan: the visits of visit_order.csv
         assert (out / "figures" / "visit_order.png").is_file() == bool(len(vo) > 1)
         assert list(vo["substation"][1:]) in figures
+    # the order ends with the allocation as planned: in band when the plan is
+    if info["every_interval_in_band"] and len(vo) > 1:
+        assert float(vo["worst_violation_pp"].iloc[-1]) <= 1e-6
     if console_text is not None:
         flat = " ".join(console_text.split())
         assert (f"Feeders whose block changes (field or schedule): "

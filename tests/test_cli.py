@@ -89,8 +89,7 @@ def test_demo_whole_job(tmp_path, monkeypatch, capsys):
     out = tmp_path / "outputs" / "demo"
     for name in ("report.html", "report.xlsx", "summary.json", "plan.csv", "plan.json",
                  "year_summary.csv", "armed_load.csv", "statement.csv", "work_list.csv",
-                 "visit_order.csv", "schedule.csv", "switching.csv",
-                 "figures/switched_vs_fixed.png"):
+                 "visit_order.csv", "figures/switched_vs_fixed.png"):
         assert (out / name).is_file(), name
     import openpyxl
 
@@ -99,23 +98,36 @@ def test_demo_whole_job(tmp_path, monkeypatch, capsys):
     assert any((out / "figures").glob("*.png"))
     text = capsys.readouterr().out
     assert "Verdict before: NOT COMPLIANT" in text and "Visit order" in text
-    # the demo's remotely switchable feeders: the fixed and the switched plan side by side
+    # the demo's remotely switchable feeders: both plans, side by side, the chosen one named
     assert "Fixed plan and switched plan" in text and "switching operations per year" in text
-    sw = json.loads((out / "plan.json").read_text(encoding="utf-8"))["switching"]
-    n_rows = len((out / "switching.csv").read_text(encoding="utf-8").splitlines()) - 1
-    assert n_rows == sw["switch_operations_per_year"]
-    assert "fixed_plan" in sw and "worst" in sw["if_switching_fails"]
+    info = json.loads((out / "plan.json").read_text(encoding="utf-8"))
+    arming = info["arming"]
+    assert set(arming["plans"]) == {"fixed", "switched"} and arming["mode"] == "auto"
+    assert "Plan put in service: the " + arming["chosen"] + " plan" in " ".join(text.split())
+    chosen = arming["plans"][arming["chosen"]]
+    # the counts of the chosen plan are the plan's own (the same counting for both)
+    for key in ("field_relays_changed", "remote_relays_changed", "feeders_changed"):
+        assert chosen[key] == info[key], key
+    # a schedule's files only when a schedule is put in service
+    switched = arming["chosen"] == "switched"
+    assert (out / "schedule.csv").is_file() == switched == ("switching" in info)
+    if switched:
+        sw = info["switching"]
+        n_rows = len((out / "switching.csv").read_text(encoding="utf-8").splitlines()) - 1
+        assert n_rows == sw["switch_operations_per_year"]
+        assert "fixed_plan" in sw and "worst" in sw["if_switching_fails"]
     # a switchable relay is set in the control system: the field rows of the work list are
     # exactly the field changes the plan counts, every switchable feeder it changes is a
     # "set remote schedule" row, and no switchable feeder needs a site visit
     wl = pd.read_csv(out / "work_list.csv", keep_default_na=False)
     field = wl[wl["action"] != "set remote schedule"]
-    assert len(field) == sw["field_relays_changed"]
-    sched = pd.read_csv(out / "schedule.csv", keep_default_na=False)
-    remote = set(wl.loc[wl["action"] == "set remote schedule", "feeders"])
-    assert not remote & set(field["feeders"])
-    assert remote <= set(sched["feeder_id"])
+    assert len(field) == info["field_relays_changed"]
+    remote = {f for x in wl.loc[wl["action"] == "set remote schedule", "feeders"]
+              for f in x.split("; ")}
+    assert not remote & {f for x in field["feeders"] for f in x.split("; ")}
+    plan = pd.read_csv(out / "plan.csv", keep_default_na=False)
+    switchable = set(plan.loc[plan["changed_by"] == "remote schedule", "feeder_id"])
+    assert remote == switchable
     assert "report.html" in text and "report.xlsx" in text
     # one result, every rendering: the CSV files, the sheets, the page and the console agree
-    info = assert_plan_outputs_agree(out, text, drawn)
-    assert info["field_relays_changed"] == sw["field_relays_changed"]
+    assert_plan_outputs_agree(out, text, drawn)

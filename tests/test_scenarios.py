@@ -213,8 +213,8 @@ def test_demo_plan_for_clear_sky_alone_fails_the_overcast_year(tmp_path):
     (both scenarios) holds both."""
     assert main(["plan", str(DEMO), "--scenarios", "clear_sky", "--max-changes", "12",
                  "--time-limit", "20", "--out", str(tmp_path / "p"), "--format", "none",
-                 "--quiet"]) == 0
-    # the demo has remotely switchable feeders: its plan is a schedule (schedule.csv)
+                 "--arming", "switched", "--quiet"]) == 0
+    # the demo has remotely switchable feeders: asked for, its plan is a schedule
     assert main(["check", str(DEMO), "--assignment", str(tmp_path / "p" / "schedule.csv"),
                  "--out", str(tmp_path / "c"), "--format", "none", "--quiet"]) == 0
     summ = json.loads((tmp_path / "c" / "summary.json").read_text())

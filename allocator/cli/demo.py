@@ -35,8 +35,7 @@ def show(console, res) -> None:
     worst_windows(console, p.before, n=3)
     plan_summary(console, p)
     field_summary(console, p.field)
-    if p.fixed is not None:
-        fixed_vs_switched(console, p)
+    fixed_vs_switched(console, p)
     before_after(console, p.before, p.checks, res.frequency_current.summary,
                  res.frequency_plan.summary)
 

@@ -36,6 +36,11 @@ def add_planner(pl) -> None:
     pl.add_argument("--solver", choices=("highs", "cbc"), default="highs",
                     help="MILP solver (default highs)")
     pl.add_argument("--seed", type=int, default=0, help="seed for the heuristic and solver")
+    pl.add_argument("--arming", choices=("auto", "fixed", "switched"), default="auto",
+                    help="with remotely switchable feeders and periods: 'auto' (default) "
+                         "plans both and puts a schedule in service only where it is "
+                         "strictly better than the best fixed plan; 'fixed' or 'switched' "
+                         "asks for one")
 
 
 def plan_options(args):
@@ -43,14 +48,14 @@ def plan_options(args):
 
     return PlanOptions(objective=args.objective, margin_pp=args.margin,
                        time_limit_s=args.time_limit, max_changes=args.max_changes,
-                       solver=args.solver, seed=args.seed)
+                       solver=args.solver, seed=args.seed, arming=args.arming)
 
 
 def run(args, console) -> int:
     from dataclasses import replace
 
     from ..console.field import field_summary
-    from ..console.plan import plan_summary
+    from ..console.plan import fixed_vs_switched, plan_summary
     from ..pipeline.plan import PlanRequest, plan_study, write_plan_folder
 
     out = options.refuse_bad_out(args, "plan")
@@ -60,6 +65,7 @@ def run(args, console) -> int:
         res = plan_study(replace(req, on_round=on_round), spinner(console, True))
     write_plan_folder(res, out, fmts)
     plan_summary(console, res)
+    fixed_vs_switched(console, res)
     field_summary(console, res.field)
     console.print(f"Wrote {out}/")
     return 0

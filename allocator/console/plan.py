@@ -28,29 +28,33 @@ def plan_summary(console: Console, res) -> None:
 
 
 def fixed_vs_switched(console: Console, res) -> None:
-    """The fixed and the switched plan side by side (80 columns), from the plan record."""
-    sw = res.record["switching"]
-    fixed = sw["fixed_plan"]
-    rows = [(escape(v.block), f"{v.min_pct:g}–{v.max_pct:g}",
-             f"{fixed['lowest_share_pct'][v.block]:.1f}", f"{v.min_share_pct:.1f}",
-             f"{fixed['highest_share_pct'][v.block]:.1f}", f"{v.max_share_pct:.1f}")
-            for v in res.checks.verdicts]
+    """The fixed and the switched plan side by side (80 columns), from the plan record:
+    the lowest and highest share per block, then the same counts for both."""
+    from ..report.content import arming_table, arming_words
+
+    names, rows = arming_table(res.record)
+    if not names:
+        return
+    plans = res.record["arming"]["plans"]
+    fx, sw = plans["fixed"], plans["switched"]
+    blocks = [(escape(v.block), f"{v.min_pct:g}–{v.max_pct:g}",
+               f"{fx['lowest_share_pct'][v.block]:.1f}", f"{sw['lowest_share_pct'][v.block]:.1f}",
+               f"{fx['highest_share_pct'][v.block]:.1f}",
+               f"{sw['highest_share_pct'][v.block]:.1f}") for v in res.checks.verdicts]
     print_table(console, "Fixed plan and switched plan (worst over every scenario)",
                 ["block", "band %", "fixed lowest %", "switched lowest %",
-                 "fixed highest %", "switched highest %"], rows, right={1, 2, 3, 4, 5})
-    fail = sw["if_switching_fails"]["worst"]
-    facts = [("smallest headroom, pp", f"{fixed['smallest_headroom_pp']:.2f}",
-              f"{sw['smallest_headroom_pp']:.2f}"),
-             ("relays changed in the field", str(fixed["relays_changed"]),
-              str(sw["field_relays_changed"])),
-             ("switching operations per year", "0", str(sw["switch_operations_per_year"])),
-             ("feeders switched by schedule", "0", str(sw["switched_feeders"])),
-             ("solve time, s", f"{fixed['solve_seconds']:.1f}",
-              f"{res.record['solve_seconds']:.1f}"),
-             ("headroom if switching fails, pp", "", f"{fail['smallest_headroom_pp']:.2f} "
-              f"(stuck in {escape(fail['stuck_in_period'])})")]
-    print_table(console, "Fixed and switched: the numbers", ["", "fixed", "switched"],
-                facts, right={1, 2})
+                 "fixed highest %", "switched highest %"], blocks, right={1, 2, 3, 4, 5})
+    numbers = [(label, facts) for label, facts in rows if facts[0].is_number]
+    print_table(console, "Fixed and switched: the numbers (the same counting)",
+                [""] + names, [(escape(label), *(escape(f.text()) for f in facts))
+                               for label, facts in numbers], right={1, 2})
+    for label, facts in rows:
+        if not facts[0].is_number:
+            for name, f in zip(names, facts):
+                console.print(f"{escape(name)}, {escape(label)}: {escape(f.text())}")
+    for note in plans["switched"].get("notes", []):
+        console.print(f"  [dim]switched plan:[/dim] {escape(note)}")
+    console.print(escape(arming_words(res.record)))
 
 
 __all__ = ["plan_summary", "fixed_vs_switched"]

@@ -2,7 +2,8 @@
 
 A trip group is one relay (``Study.relay_index``): one change lists all its feeders.  A relay
 is visited at the substation of its first feeder in the ``feeders`` sheet; when a trip group
-spans substations the change names every one, the visit substation first.
+spans substations the change names every one, the visit substation first.  The control
+room's changes (:func:`remote_changes`) are one step of their own, :data:`REMOTE_STEP`.
 
 Actions: ``arm`` (unarmed now, in a block after), ``move`` (from one block to another),
 ``disarm`` (in a block now, unarmed after).  A remote-settable relay
@@ -26,6 +27,8 @@ from ..domain import UNARMED, Study
 
 UNARMED_WORD = "unarmed"
 FEEDER_SEP = "; "
+#: the step of the visit order at which the control room applies the remote settings
+REMOTE_STEP = "control room (remote settings)"
 
 
 @dataclass(frozen=True)
@@ -38,6 +41,9 @@ class RelayChange:
     substations: tuple[str, ...]
     old_block: int  # UNARMED = -1
     new_block: int
+    #: the period this change holds in (a remote schedule: one change per period whose
+    #: block differs from now); -1: all year
+    period: int = -1
 
     @property
     def action(self) -> str:
@@ -67,15 +73,43 @@ def relay_changes(study: Study, old_idx: np.ndarray, new_idx: np.ndarray
     return tuple(out)
 
 
+def as_schedule(allocation: np.ndarray) -> np.ndarray:
+    """``[feeder, period]`` of a schedule, or a fixed allocation ``[feeder]`` as a schedule
+    of one column (one block all year)."""
+    a = np.asarray(allocation, dtype=np.intp)
+    return a[:, None] if a.ndim == 1 else a
+
+
 def remote_relays(study: Study, schedule: np.ndarray, now: np.ndarray
                   ) -> list[np.ndarray]:
-    """The feeders of each remote-settable relay whose ``schedule[feeder, period]`` differs
-    from its block ``now`` in some period (blocks that differ between periods, or one new
-    block all year), in the order of its first feeder."""
+    """The feeders of each remote-settable relay whose ``schedule[feeder, period]`` (or
+    fixed allocation) differs from its block ``now`` in some period (blocks that differ
+    between periods, or one new block all year), in the order of its first feeder."""
+    schedule = as_schedule(schedule)
     differs = (schedule != np.asarray(now)[:, None]).any(axis=1)
     sw = np.flatnonzero(study.is_remote_settable & differs)
     rel = study.relay_index
     return [np.flatnonzero(rel == r) for r in dict.fromkeys(rel[sw].tolist())]
+
+
+def remote_changes(study: Study, schedule: np.ndarray, now: np.ndarray
+                   ) -> tuple[RelayChange, ...]:
+    """The control room's changes: per remote-settable relay whose schedule differs from
+    now, one change per period whose block differs (``period`` -1 for a fixed allocation,
+    one block all year), at :data:`REMOTE_STEP`."""
+    sched = as_schedule(schedule)
+    now = np.asarray(now, dtype=np.intp)
+    out = []
+    for members in remote_relays(study, sched, now):
+        first = int(members[0])
+        subs = tuple(dict.fromkeys(study.feeders[int(i)].substation for i in members))
+        feeders = tuple(int(i) for i in members)
+        for k in range(sched.shape[1]):
+            if sched[first, k] != now[first]:
+                out.append(RelayChange(feeders, REMOTE_STEP, subs, int(now[first]),
+                                       int(sched[first, k]),
+                                       -1 if sched.shape[1] == 1 else k))
+    return tuple(out)
 
 
 def setting(study: Study, b: int) -> tuple:
@@ -113,5 +147,5 @@ def moved_mw(check: Check, changes: tuple[RelayChange, ...]
     return mean, at, when
 
 
-__all__ = ["RelayChange", "relay_changes", "remote_relays", "setting", "moved_mw",
-           "UNARMED_WORD", "FEEDER_SEP"]
+__all__ = ["RelayChange", "relay_changes", "remote_relays", "remote_changes", "as_schedule",
+           "setting", "moved_mw", "UNARMED_WORD", "FEEDER_SEP", "REMOTE_STEP"]

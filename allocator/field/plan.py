@@ -28,7 +28,7 @@ from ..check import ScenarioChecks, as_set, run_checks
 from ..domain import Study
 from ..plan.record import NO_CHANGES, ChangeCounts
 from ..year import study_calendar_year
-from .changes import RelayChange, remote_relays
+from .changes import RelayChange, as_schedule, remote_relays
 from .statement import statement_basis, statement_table
 from .switching import switching_table
 from .visits import VisitOrder, visit_order, visit_order_table
@@ -74,12 +74,12 @@ class FieldPlan:
 
 
 def _feeder_change(study: Study, now: np.ndarray, field_idx: np.ndarray,
-                   schedule: np.ndarray | None) -> np.ndarray:
-    """``[feeder]`` how its block changes: by a field visit, by a remote schedule, or not."""
+                   planned: np.ndarray) -> np.ndarray:
+    """``[feeder]`` how its block changes: by a field visit, by the control room (remote
+    settings), or not."""
     out = np.where(field_idx != now, FIELD_VISIT, "").astype(object)
-    if schedule is not None:
-        for members in remote_relays(study, schedule, now):
-            out[members] = REMOTE_SCHEDULE
+    for members in remote_relays(study, planned, now):
+        out[members] = REMOTE_SCHEDULE
     return out
 
 
@@ -89,43 +89,55 @@ def _counts(study: Study, order: VisitOrder, change: np.ndarray) -> ChangeCounts
     return ChangeCounts(field_relays=len(order.changes), remote_relays=int(remote),
                         feeders_changed=int((change != "").sum()),
                         field_feeders=int((change == FIELD_VISIT).sum()),
-                        substations=len(order.visits))
+                        substations=len(order.site_visits))
+
+
+def _unchanged(cs: ScenarioChecks, study: Study) -> FieldPlan:
+    """The field plan of the allocation in service now: nothing to do."""
+    sched = cs.schedule
+    cal = study_calendar_year(study, [c.year for c in cs.checks])
+    switching = None if sched is None else switching_table(study, cal, sched)
+    empty = pd.DataFrame(columns=list(WORK_LIST_COLUMNS))
+    return FieldPlan(cs, None, cs, None, empty, pd.DataFrame(), statement_table(cs),
+                     statement_basis(cs), switching,
+                     np.full(len(study.feeders), "", dtype=object), NO_CHANGES)
 
 
 def field_plan(checks, now_idx: np.ndarray | None = None) -> FieldPlan:
     """The field results of the allocation ``checks`` was made of (a fixed allocation or a
     schedule) going from ``now_idx`` (block per feeder in service now); ``now_idx`` None: the
-    allocation checked is the one in service now."""
+    allocation checked is the one in service now.  Remote-settable relays are set by the
+    control room (one step of the visit order), every other relay by a field crew."""
     cs = as_set(checks)
     st = cs.study
-    table, basis = statement_table(cs), statement_basis(cs)
-    sched = cs.schedule
-    cal = study_calendar_year(st, [c.year for c in cs.checks])
-    switching = None if sched is None else switching_table(st, cal, sched)
     if now_idx is None:
-        empty = pd.DataFrame(columns=list(WORK_LIST_COLUMNS))
-        return FieldPlan(cs, None, cs, None, empty, pd.DataFrame(), table, basis, switching,
-                         np.full(len(st.feeders), "", dtype=object), NO_CHANGES)
+        return _unchanged(cs, st)
     now = np.asarray(now_idx, dtype=np.intp)
-    field_idx = cs.block_idx if sched is None else st.field_allocation(sched, now)
-    field_cs = cs if sched is None else run_checks(st, [c.year for c in cs.checks], field_idx,
-                                                   cs.warnings)
-    order = visit_order(field_cs, now)
-    change = _feeder_change(st, now, field_idx, sched)
-    return FieldPlan(cs, now, field_cs, order, work_list_table(field_cs, order, sched),
-                     visit_order_table(order), table, basis, switching, change,
-                     _counts(st, order, change))
+    sched = cs.schedule
+    planned = as_schedule(cs.block_idx if sched is None else sched)
+    field_idx = st.field_allocation(planned, now)
+    years = [c.year for c in cs.checks]
+    field_cs = cs if sched is None and (field_idx == cs.block_idx).all() else \
+        run_checks(st, years, field_idx, cs.warnings)
+    order = visit_order(cs, now, remote=True)
+    change = _feeder_change(st, now, field_idx, planned)
+    switching = None if sched is None else switching_table(
+        st, study_calendar_year(st, years), sched)
+    return FieldPlan(cs, now, field_cs, order, work_list_table(field_cs, order, planned),
+                     visit_order_table(order), statement_table(cs), statement_basis(cs),
+                     switching, change, _counts(st, order, change))
 
 
 def plan_table(fp: FieldPlan) -> pd.DataFrame:
     """plan.csv: ``feeder_id, block, previous_block, changed`` (block: the first period's
     for a schedule; changed: yes when the feeder's block differs from now in some period),
-    and for a schedule ``changed_by`` (field visit / remote schedule)."""
+    and, for a schedule or a study with remote-settable relays, ``changed_by`` (field
+    visit / remote schedule)."""
     st = fp.study
     rows = assignment_rows(st, fp.checks.block_idx, previous=fp.now_idx)
     df = pd.DataFrame(rows, columns=["feeder_id", "block", "previous_block", "changed"])
     df["changed"] = np.where(fp.feeder_change != "", "yes", "no")
-    if fp.schedule is not None:
+    if fp.schedule is not None or fp.study.is_remote_settable.any():
         df["changed_by"] = fp.feeder_change
     return df
 

@@ -24,6 +24,7 @@ import pandas as pd
 from ..domain import Study
 from ..timefmt import iso_local
 from ..year import Year, year_period_index
+from .changes import FEEDER_SEP
 
 SWITCHING_COLUMNS = ("instant_local", "from_period", "to_period", "feeders", "from_block",
                      "to_block")
@@ -34,7 +35,7 @@ def _relays(study: Study, rows: np.ndarray) -> tuple[np.ndarray, list[str]]:
     rel = study.relay_index[rows]
     _, first = np.unique(rel, return_index=True)
     lead = rows[np.sort(first)]
-    ids = [" ".join(study.feeder_ids[int(g)] for g in rows[rel == study.relay_index[f]])
+    ids = [FEEDER_SEP.join(study.feeder_ids[int(g)] for g in rows[rel == study.relay_index[f]])
            for f in lead]
     return lead, ids
 

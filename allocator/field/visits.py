@@ -3,8 +3,10 @@ block stays in band (or at least no worse than the allocation in service now) in
 scenario judged.  ``ScenarioChecks of the new allocation + the allocation now → VisitOrder``.
 
 Setting changes are grouped by substation (a relay belongs to the substation of its first
-feeder, see :mod:`allocator.field.changes`); after visit i the network runs with the changes of
-visits 1..i done and the rest as now.  The share of block b at column c (every valid
+feeder, see :mod:`allocator.field.changes`); the control room's remote settings are one step
+more (:data:`allocator.field.changes.REMOTE_STEP`), each remote relay's change holding in its
+period's columns only.  After step i the network runs with the changes of steps 1..i done
+and the rest as now, so the last step is the allocation (or schedule) as planned.  The share of block b at column c (every valid
 interval of every scenario, side by side, as in :mod:`allocator.plan.units`) is then
 ``S0[b, c] + Σ_{visited k} D_k[b, c]``, with ``S0`` the shares now and ``D_k`` the rows a
 substation's changes move: its relays' percentage points of demand leave their old block's
@@ -46,7 +48,8 @@ from ..armed import armed_mw, contribution_mw
 from ..check import ScenarioChecks, as_set
 from ..domain import UNARMED
 from ..timefmt import iso_local
-from .changes import RelayChange, relay_changes
+from ..year import year_period_index
+from .changes import REMOTE_STEP, RelayChange, relay_changes, remote_changes
 
 TOL_PP = 1e-9
 #: exact search over every set of visited substations up to this many (2^12 = 4096 sets)
@@ -63,11 +66,17 @@ class Visit:
 
     @property
     def relays(self) -> int:
-        return len(self.changes)
+        """Relays set at this step (a remote relay changed in several periods counts once)."""
+        return len({c.feeders for c in self.changes})
 
     @property
     def feeders(self) -> int:
-        return sum(len(c.feeders) for c in self.changes)
+        return sum(len(f) for f in {c.feeders for c in self.changes})
+
+    @property
+    def is_remote(self) -> bool:
+        """The control room's step (remote settings), not a substation visit."""
+        return self.substation == REMOTE_STEP
 
 
 @dataclass(frozen=True)
@@ -105,6 +114,13 @@ class VisitOrder:
     changes: tuple[RelayChange, ...]
     #: ``[feeder]`` the allocation in service now (visit 0)
     now_idx: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+    #: the control room's changes (one per remote relay and period), its own step
+    remote: tuple[RelayChange, ...] = ()
+
+    @property
+    def site_visits(self) -> tuple[Visit, ...]:
+        """The substation visits (the control room's step left out)."""
+        return tuple(v for v in self.visits if not v.is_remote)
 
     @property
     def limit_pp(self) -> float:
@@ -167,9 +183,12 @@ def _shares(cs: ScenarioChecks, old: np.ndarray, visits: list[list[RelayChange]]
         scale = 100.0 / y.demand_mw[v]
         s0.append(armed_mw(y.net_mw, st.relay_code, old, nb)[:, v] * scale[None, :])
         rows = np.zeros((len(changes), v.size))
+        period = year_period_index(st, y)[v] if any(ch.period >= 0 for ch in changes) else None
         for k, ch in enumerate(changes):
             f = np.asarray(ch.feeders)
             rows[k] = contribution_mw(y.net_mw[f], st.relay_code[f]).sum(axis=0)[v] * scale
+            if ch.period >= 0:  # a remote schedule's change holds in its period only
+                rows[k] *= period == ch.period
         pp.append(rows)
         cs_i.append(np.full(v.size, i, dtype=np.intp))
         ct.append(v)
@@ -348,20 +367,30 @@ def _step(cs: ScenarioChecks, sh: _Shares, i: int, visit: Visit | None,
                      visit.feeders if visit else 0, e, *where, side)
 
 
-def visit_order(checks, previous_idx: np.ndarray) -> VisitOrder:
+def visit_order(checks, previous_idx: np.ndarray, remote: bool = False) -> VisitOrder:
     """The visit order from ``previous_idx`` (block per feeder, in service now) to the
-    allocation ``checks`` was made of, judged on every scenario of ``checks``."""
+    allocation ``checks`` was made of, judged on every scenario of ``checks``.
+
+    ``remote``: the remote-settable relays are set by the control room
+    (:meth:`allocator.domain.Study.field_allocation`), as one more step of the order (placed
+    by the same search), so the last step is the allocation (or schedule) as planned."""
     cs = as_set(checks)
+    st = cs.study
     old = np.asarray(previous_idx, dtype=np.intp)
-    changes = relay_changes(cs.study, old, cs.block_idx)
-    groups = group_by_substation(changes)
+    planned = cs.schedule if cs.schedule is not None else cs.block_idx
+    if cs.schedule is not None and not remote:
+        raise ValueError("a schedule's visit order needs remote=True")
+    new = st.field_allocation(planned, old) if remote else cs.block_idx
+    changes = relay_changes(st, old, new)
+    extra = remote_changes(st, planned, old) if remote else ()
+    groups = group_by_substation(changes) + ([(REMOTE_STEP, list(extra))] if extra else [])
     visits = [Visit(s, tuple(g)) for s, g in groups]
-    sh = _shares(cs, old, [g for _, g in groups], changes)
+    sh = _shares(cs, old, [g for _, g in groups], changes + extra)
     relays = np.array([v.relays for v in visits], dtype=np.intp)
     if not visits:
         states, _ = _walk(sh, [])
         return VisitOrder((), (_step(cs, sh, 0, None, states[0]),), "none", True,
-                          states[0][0], cs.names, changes, old)
+                          states[0][0], cs.names, changes, old, extra)
     if sh.s0.shape[1] == 0:  # nothing to judge: the visits by name, every edge NaN
         order, states, proven, bound, method = (list(range(len(visits))),
                                                 _walk(sh, list(range(len(visits))))[0],
@@ -374,7 +403,7 @@ def visit_order(checks, previous_idx: np.ndarray) -> VisitOrder:
     steps = [_step(cs, sh, 0, None, states[0])]
     steps += [_step(cs, sh, i, v, st) for i, (v, st) in enumerate(zip(done, states[1:]), 1)]
     return VisitOrder(tuple(done), tuple(steps), method, proven, bound, cs.names, changes,
-                      old)
+                      old, extra)
 
 
 __all__ = ["Visit", "VisitStep", "VisitOrder", "visit_order", "group_by_substation",
@@ -397,6 +426,13 @@ def visit_order_table(order: VisitOrder) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=list(VISIT_COLUMNS))
 
 
+def _steps_words(order: VisitOrder) -> str:
+    n = len(order.site_visits)
+    if n == len(order.visits):
+        return f"{n} visits"
+    return f"{len(order.visits)} steps ({n} substation visits and the control room's remote settings)"
+
+
 def order_words(order: VisitOrder) -> str:
     """What the order achieves, in one or two sentences (for every output)."""
     sc = ", ".join(order.scenarios)
@@ -413,7 +449,7 @@ def order_words(order: VisitOrder) -> str:
         lim = ("every block stays in band" if order.limit_pp <= TOL_PP else
                f"no block goes further outside its band than the {now.worst_violation_pp:.2f} "
                "pp of the allocation in service now")
-        return (f"After each of the {len(order.visits)} visits {lim}, in every scenario "
+        return (f"After each of the {_steps_words(order)} {lim}, in every scenario "
                 f"judged ({sc}); {how}.")
     edge = "below its minimum" if brk.side == "min" else "above its maximum"
     words = (f"Visit {brk.visit} ({brk.substation}) breaks the band: block {brk.block} is "

@@ -21,7 +21,8 @@ import pandas as pd
 from ..check import ScenarioChecks, statement_check
 from ..domain import Study
 from ..timefmt import iso_local
-from .changes import FEEDER_SEP, UNARMED_WORD, moved_mw, remote_relays, setting
+from .changes import (FEEDER_SEP, REMOTE_STEP, UNARMED_WORD, as_schedule, moved_mw,
+                      remote_relays, setting)
 
 #: blank columns for the field crew
 SIGN_COLUMNS = ("done_by", "date", "checked_by")
@@ -69,24 +70,29 @@ def field_rows(field_checks: ScenarioChecks, order) -> pd.DataFrame:
 
 
 def schedule_text(study: Study, blocks: np.ndarray) -> str:
-    """'day: S1; night: S2' for one feeder's ``[period]`` blocks."""
+    """'day: S1; night: S2' for one feeder's ``[period]`` blocks; one block all year: its
+    name."""
     names = study.block_names
-    return FEEDER_SEP.join(f"{p}: {names[int(b)] if b >= 0 else UNARMED_WORD}"
-                           for p, b in zip(study.period_names, blocks))
+    word = lambda b: names[int(b)] if b >= 0 else UNARMED_WORD  # noqa: E731
+    if len(blocks) == 1:
+        return word(blocks[0])
+    return FEEDER_SEP.join(f"{p}: {word(b)}" for p, b in zip(study.period_names, blocks))
 
 
-def remote_schedule_rows(study: Study, schedule: np.ndarray, now: np.ndarray
-                         ) -> pd.DataFrame:
-    """One row per remote-settable relay whose schedule differs from its block ``now``
-    (:func:`allocator.field.changes.remote_relays`): action "set remote schedule",
-    ``new_block`` the schedule text; set in the control system, so no visit."""
+def remote_schedule_rows(study: Study, schedule: np.ndarray, now: np.ndarray,
+                         step: int | str = "") -> pd.DataFrame:
+    """One row per remote-settable relay whose schedule (or fixed allocation) differs from
+    its block ``now`` (:func:`allocator.field.changes.remote_relays`): action "set remote
+    schedule", ``new_block`` the schedule text, ``visit`` the step of the visit order at
+    which the control room applies it; set in the control system, so no site visit."""
+    schedule = as_schedule(schedule)
     rows = []
     for members in remote_relays(study, schedule, now):
         ids, relay, cust, prio = _people(study, members)
         subs = FEEDER_SEP.join(dict.fromkeys(study.feeders[int(i)].substation
                                              for i in members))
         cur = int(now[members[0]])
-        rows.append(("", "", subs, ids, relay, REMOTE_ACTION, *setting(study, cur),
+        rows.append((step, REMOTE_STEP, subs, ids, relay, REMOTE_ACTION, *setting(study, cur),
                      schedule_text(study, schedule[members[0]]),
                      np.nan, np.nan, np.nan, np.nan, "", np.nan, np.nan, "", cust, prio,
                      "", "", ""))
@@ -94,13 +100,15 @@ def remote_schedule_rows(study: Study, schedule: np.ndarray, now: np.ndarray
 
 
 def work_list_table(field_checks: ScenarioChecks, order,
-                    schedule: np.ndarray | None = None) -> pd.DataFrame:
-    """The whole work list: the field rows in visit order, then (with a ``schedule``) the
-    "set remote schedule" rows against the allocation the order starts from."""
+                    planned: np.ndarray | None = None) -> pd.DataFrame:
+    """The whole work list: the field rows in visit order, then (with the ``planned``
+    schedule or allocation) the "set remote schedule" rows against the allocation the order
+    starts from, numbered with the control room's step of the order."""
     table = field_rows(field_checks, order)
-    if schedule is None:
+    if planned is None:
         return table
-    extra = remote_schedule_rows(field_checks.study, schedule, order.now_idx)
+    step = order.visit_of.get(REMOTE_STEP, "")
+    extra = remote_schedule_rows(field_checks.study, planned, order.now_idx, step)
     if extra.empty:
         return table
     return extra if table.empty else pd.concat([table, extra], ignore_index=True)

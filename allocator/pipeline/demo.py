@@ -85,8 +85,7 @@ def run_demo(req: DemoRequest = DemoRequest(), progress: Progress = no_progress)
             years = tuple(build_years(study))
             summary = year_summaries(study, years)
         plan_req = PlanRequest(Sources(wb), PlanOptions(time_limit_s=req.time_limit_s,
-                                                        seed=req.seed), req.argv,
-                               compare_fixed=True)
+                                                        seed=req.seed), req.argv)
         plan = plan_loaded(study, years, plan_req, _steps(progress))
         data = Path(wb).read_bytes()
     with progress(DEMO_STEPS[5]):

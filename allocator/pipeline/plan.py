@@ -1,7 +1,13 @@
 """The ``plan`` job, as a chain of named steps: ``inputs → the allocation in service now,
-checked → plan (fixed, or a schedule when feeders are remote-switchable and the workbook has
-periods) → the plan checked on every scenario → its field plan → the plan record``, and the
-plan folder written from that one result.
+checked → the best fixed plan, and a schedule when relays are remotely switchable and the
+workbook has periods (never worse than the fixed plan) → each checked on every scenario,
+with its field plan → the choice between them (arming) → the plan record``, and the plan
+folder written from that one result.
+
+Arming ``auto`` (the default) puts a schedule in service only where it is strictly better
+than the best fixed plan by the objective order; ``fixed`` and ``switched`` ask for one.
+Both plans count a remote-settable relay the same way: set from the control room, not in the
+field.  With both planned, each gets half the time limit.
 
 Every output of the plan folder renders the :class:`PlanResult`: plan.csv and the work list
 from its :class:`~allocator.field.plan.FieldPlan`, plan.json from its record
@@ -14,7 +20,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Callable
 
-from ..check import ScenarioChecks, run_checks, smallest_headroom_pp
+from ..check import ScenarioChecks, run_checks
 from ..domain import Study
 from ..field.plan import FieldPlan, field_plan
 from ..report import DEFAULT_FORMATS
@@ -36,36 +42,46 @@ class PlanOptions:
     max_changes: int | None = None
     solver: str = "highs"
     seed: int = 0
+    #: "auto" (a schedule only where it is strictly better than the best fixed plan by the
+    #: objective order), "fixed" or "switched"; without switchable feeders and periods: fixed
+    arming: str = "auto"
+
+
+ARMING = ("auto", "fixed", "switched")
 
 
 @dataclass(frozen=True)
 class PlanRequest:
-    """What to plan.  ``compare_fixed``: with a schedule, also plan the best fixed allocation
-    (remote switching ignored) in half the time each, for a side-by-side view.
-    ``on_round(level, round, intervals, worst, status)`` is told of each planner round."""
+    """What to plan.  ``on_round(level, round, intervals, worst, status)`` is told of each
+    planner round."""
 
     sources: Sources
     options: PlanOptions = PlanOptions()
     argv: list[str] | None = None
-    compare_fixed: bool = False
     on_round: Callable | None = None
 
 
 @dataclass(frozen=True)
-class FixedComparison:
-    """The best fixed plan of the same workbook, checked: plan.json
-    ``switching.fixed_plan`` holds ``record``."""
+class Candidate:
+    """One plan, checked on every scenario, with its field plan: ``arming`` "fixed" (one
+    block all year) or "switched" (a schedule; ``switched`` its SwitchedOutcome)."""
 
+    arming: str
+    outcome: object  # allocator.plan.solve.PlanOutcome
+    switched: object | None
     checks: ScenarioChecks
-    record: dict
+    field: FieldPlan
+    #: a schedule's shares if the switching stops (allocator.plan.failsafe)
+    if_fails: dict | None = None
 
 
 @dataclass(frozen=True)
 class PlanResult:
-    """A plan: the study and years, the planner's outcome (``switched``: the schedule, when
-    one was planned), the plan checked on every scenario, its field plan, the plan record
-    (plan.json), the allocation in service now checked (``before``), the fixed comparison
-    and the run record."""
+    """A plan: the study and years, the chosen plan's outcome (``switched``: the schedule,
+    when a schedule was chosen), the plan checked on every scenario, its field plan, the
+    plan record (plan.json), the allocation in service now checked (``before``), every plan
+    made (``candidates``: the fixed plan, and the switched one when planned) and the run
+    record."""
 
     study: Study
     years: tuple
@@ -75,8 +91,12 @@ class PlanResult:
     field: FieldPlan
     record: dict
     before: ScenarioChecks
-    fixed: FixedComparison | None = None
+    candidates: tuple[Candidate, ...] = ()
     run: dict = field(default_factory=dict)
+
+    def candidate(self, arming: str) -> Candidate | None:
+        """The fixed or the switched plan, when it was planned."""
+        return next((c for c in self.candidates if c.arming == arming), None)
 
 
 def switched_applies(study: Study) -> bool:
@@ -99,46 +119,102 @@ def _planner_kw(opt: PlanOptions, on_round) -> dict:
                 margin_pp=opt.margin_pp)
 
 
-def fixed_comparison(study: Study, years, opt: PlanOptions) -> FixedComparison:
-    """The best fixed plan (remote_switch ignored) and its numbers."""
+def _candidate(study: Study, years, arming: str, outcome, sw) -> Candidate:
+    from ..plan.failsafe import if_switching_fails
+
+    checks = run_checks(study, years, outcome.block_idx if sw is None else sw.schedule)
+    fails = None if sw is None else if_switching_fails(study, years, sw.schedule)
+    return Candidate(arming, outcome, sw, checks, field_plan(checks, study.current_assignment),
+                     fails)
+
+
+def _plan_fixed(study: Study, years, opt: PlanOptions, on_round) -> Candidate:
     from ..plan import plan_allocation
 
-    fixed_study = replace(study, feeders=tuple(replace(f, remote_switch=False)
-                                               for f in study.feeders))
-    out = plan_allocation(fixed_study, years, time_limit_s=opt.time_limit_s, seed=opt.seed)
-    c = run_checks(study, years, out.block_idx)
-    return FixedComparison(c, {
-        "relays_changed": out.relays_changed, "solve_seconds": out.seconds,
-        "worst_violation_pp": float(c.worst_violation_pp),
-        "smallest_headroom_pp": smallest_headroom_pp(c), "compliant": c.compliant,
-        "lowest_share_pct": {v.block: v.min_share_pct for v in c.verdicts},
-        "highest_share_pct": {v.block: v.max_share_pct for v in c.verdicts}})
+    out = plan_allocation(study, years, **_planner_kw(opt, on_round))
+    return _candidate(study, years, "fixed", out, None)
 
 
-def _plan(study: Study, years, opt: PlanOptions, on_round):
-    """The planner's outcome and, for a schedule, the SwitchedOutcome (else None)."""
-    from ..plan import plan_allocation
+def _plan_switched(study: Study, years, opt: PlanOptions, on_round,
+                   fixed: Candidate | None) -> Candidate:
+    """The switched plan, never worse than ``fixed`` by the objective order: a fixed plan is
+    a schedule (one block in every period), so when the switched search ends worse, the
+    fixed plan is the switched plan."""
+    from ..plan.switched import as_switched, plan_switched
 
-    kw = _planner_kw(opt, on_round)
-    if switched_applies(study):
-        from ..plan.switched import plan_switched
+    sw = plan_switched(study, years, **_planner_kw(opt, on_round))
+    cand = _candidate(study, years, "switched", sw.plan, sw)
+    if fixed is not None and arming_key(fixed) < arming_key(cand):
+        sw = as_switched(study, years, fixed.outcome, sw.plan.seconds,
+                         "the switched search ended worse than the best fixed plan by the "
+                         "objective order, so the fixed plan is the schedule (the same block "
+                         "in every period)")
+        cand = _candidate(study, years, "switched", sw.plan, sw)
+    return cand
 
-        sw = plan_switched(study, years, **kw)
-        return sw.plan, sw
-    return plan_allocation(study, years, **kw), None
+
+def arming_key(c: Candidate) -> tuple:
+    """The objective order as a key (smaller is better): the worst violation, then the relays
+    changed in the field and the switching operations per year, then the deviation from
+    target (with closest_to_target the deviation comes second); rounded so that solver
+    noise does not decide."""
+    worst = round(float(c.checks.worst_relative_violation), 9)
+    ops = 0 if c.switched is None else int(c.switched.switch_ops_per_year)
+    mad = round(float(c.outcome.full_year["mad_pp"]), 6)
+    changes = (c.field.counts.field_relays, ops)
+    if c.outcome.objective == "closest_to_target":
+        return (worst, mad, *changes)
+    return (worst, *changes, mad)
 
 
-def _record(study: Study, years, outcome, sw, checks, fp: FieldPlan, opt: PlanOptions,
-            fixed: FixedComparison | None) -> dict:
-    from ..plan.record import plan_record, switching_record
+def _choose(study: Study, cands: list[Candidate], mode: str) -> tuple[Candidate, str]:
+    """The plan to put in service, and why (plan.json ``arming.reason``)."""
+    from ..plan.failsafe import fails_safe
 
-    rec = plan_record(outcome, checks, fp.counts, {"seed": opt.seed,
-                                                   "time_limit_s": opt.time_limit_s,
-                                                   "max_changes": opt.max_changes})
-    if sw is not None:
-        rec["switching"] = switching_record(study, years, sw, checks, fp.counts)
-        if fixed is not None:
-            rec["switching"]["fixed_plan"] = fixed.record
+    fixed = next(c for c in cands if c.arming == "fixed")
+    sw = next((c for c in cands if c.arming == "switched"), None)
+    if sw is None:
+        return fixed, ("fixed arming asked for" if mode == "fixed" else
+                       "no relay is remotely switchable, or the workbook has one period")
+    if study.settings.fail_safe == "required" and not fails_safe(sw.if_fails):
+        return fixed, ("fail_safe required: the switched plan leaves a block out of band if "
+                       "the switching stops in some period")
+    if mode == "switched":
+        return sw, "switched arming asked for"
+    if arming_key(sw) < arming_key(fixed):
+        return sw, "the switched plan is better by the objective order"
+    return fixed, ("the switched plan is no better than the fixed plan by the objective "
+                   "order, and a fixed plan needs no switching and cannot fail by it")
+
+
+def _plan_all(study: Study, years, opt: PlanOptions, on_round, progress) -> list[Candidate]:
+    """The fixed plan and, where switching applies and is not ruled out, the switched plan
+    (each in half the time)."""
+    if opt.arming == "fixed" or not switched_applies(study):
+        with progress("planning"):
+            return [_plan_fixed(study, years, opt, on_round)]
+    half = replace(opt, time_limit_s=max(2.0, opt.time_limit_s / 2.0))
+    with progress("planning the best fixed allocation"):
+        fixed = _plan_fixed(study, years, half, on_round)
+    with progress("planning"):
+        return [fixed, _plan_switched(study, years, half, on_round, fixed)]
+
+
+def _record(study: Study, years, chosen: Candidate, cands: list[Candidate],
+            opt: PlanOptions, reason: str) -> dict:
+    from ..plan.record import arming_record, plan_record, plan_summary, switching_record
+
+    rec = plan_record(chosen.outcome, chosen.checks, chosen.field.counts,
+                      {"seed": opt.seed, "time_limit_s": opt.time_limit_s,
+                       "max_changes": opt.max_changes})
+    plans = {c.arming: plan_summary(c.outcome, c.switched, c.checks, c.field.counts,
+                                    c.if_fails) for c in cands}
+    rec["arming"] = arming_record(plans, chosen.arming, opt.arming, reason)
+    if chosen.switched is not None:
+        rec["switching"] = switching_record(study, years, chosen.switched, chosen.checks,
+                                            chosen.field.counts, chosen.if_fails)
+        if "fixed" in plans:
+            rec["switching"]["fixed_plan"] = plans["fixed"]
     return rec
 
 
@@ -151,19 +227,12 @@ def plan_loaded(study: Study, years, req: PlanRequest,
     opt = resolved(study, req.options)
     with progress("checking the current allocation"):
         before = run_checks(study, years, *current_assignment(study))
-    fixed = None
-    if req.compare_fixed and switched_applies(study):  # half the time each
-        opt = replace(opt, time_limit_s=max(2.0, opt.time_limit_s / 2.0))
-        with progress("planning the best fixed allocation"):
-            fixed = fixed_comparison(study, years, opt)
-    with progress("planning"):
-        outcome, sw = _plan(study, years, opt, req.on_round)
+    cands = _plan_all(study, years, opt, req.on_round, progress)
     with progress("checking the plan"):
-        checks = run_checks(study, years, outcome.block_idx if sw is None else sw.schedule)
-        fp = field_plan(checks, study.current_assignment)
-    rec = _record(study, years, outcome, sw, checks, fp, opt, fixed)
-    return PlanResult(study, years, outcome, sw, checks, fp, rec, before, fixed,
-                      run_record_of(study, years, req.argv, req.sources.metered))
+        chosen, reason = _choose(study, cands, opt.arming)
+    return PlanResult(study, years, chosen.outcome, chosen.switched, chosen.checks,
+                      chosen.field, _record(study, years, chosen, cands, opt, reason), before,
+                      tuple(cands), run_record_of(study, years, req.argv, req.sources.metered))
 
 
 def plan_study(req: PlanRequest, progress: Progress = no_progress) -> PlanResult:
@@ -185,10 +254,11 @@ def write_plan_into(res: PlanResult, folder: Path, formats=DEFAULT_FORMATS,
     write_plan_files(res.field, res.record, folder)
     write_check_files(res.checks, folder, res.field)
     write_field_files(res.field, folder)
-    if res.fixed is not None and {"png", "html"} & set(formats):
+    fixed, sw = res.candidate("fixed"), res.candidate("switched")
+    if fixed is not None and sw is not None and {"png", "html"} & set(formats):
         from ..report.figures import write_switched_vs_fixed
 
-        write_switched_vs_fixed(res.checks, res.fixed.checks, folder / "figures")
+        write_switched_vs_fixed(sw.checks, fixed.checks, folder / "figures")
     write_reports(res.checks, folder, field=res.field, plan_info=res.record,
                   before=res.before, formats=formats, run=res.run,
                   frequency=(frequency or {}).get("plan"))
@@ -211,6 +281,6 @@ def write_plan_folder(res: PlanResult, out: str | Path, formats=DEFAULT_FORMATS)
     return out
 
 
-__all__ = ["PlanOptions", "PlanRequest", "PlanResult", "FixedComparison", "plan_study",
+__all__ = ["PlanOptions", "PlanRequest", "PlanResult", "Candidate", "plan_study",
            "plan_loaded", "write_plan_folder", "write_plan_into", "switched_applies",
-           "fixed_comparison", "CURRENT"]
+           "arming_key", "ARMING", "CURRENT"]

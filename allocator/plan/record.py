@@ -88,13 +88,13 @@ def plan_record(outcome: PlanOutcome, checks: ScenarioChecks, counts: ChangeCoun
     }
 
 
-def switching_record(study, years, switched, checks: ScenarioChecks,
-                     counts: ChangeCounts) -> dict:
+def switching_record(study, years, switched, checks: ScenarioChecks, counts: ChangeCounts,
+                     if_fails: dict) -> dict:
     """plan.json's ``switching`` section of a schedule: periods, switched feeders and
     operations, the calendar year they are counted on, the field changes, the smallest
-    headroom and the shares if the switching fails (:mod:`allocator.plan.failsafe`)."""
+    headroom and the shares if the switching fails (``if_fails``:
+    :func:`allocator.plan.failsafe.if_switching_fails`)."""
     from ..year import study_calendar_year
-    from .failsafe import if_switching_fails
 
     return {"periods": list(study.period_names), "switched_feeders": switched.switched_feeders,
             "switch_operations_per_year": switched.switch_ops_per_year,
@@ -102,7 +102,38 @@ def switching_record(study, years, switched, checks: ScenarioChecks,
             "field_relays_changed": counts.field_relays,
             "smallest_headroom_pp": smallest_headroom_pp(checks),
             "caps_forced_moves": switched.caps_bound, "notes": switched.notes,
-            "if_switching_fails": if_switching_fails(study, years, switched.schedule)}
+            "if_switching_fails": if_fails}
 
 
-__all__ = ["ChangeCounts", "NO_CHANGES", "plan_record", "switching_record"]
+def plan_summary(outcome: PlanOutcome, switched, checks: ScenarioChecks,
+                 counts: ChangeCounts, if_fails: dict | None) -> dict:
+    """One plan's numbers for the side-by-side view of plan.json ``arming.plans``: the same
+    counts for a fixed and a switched plan (a remote-settable relay is set from the control
+    room in both)."""
+    worst_fail = None if if_fails is None else if_fails["worst"]
+    return {"compliant": checks.compliant,
+            "worst_violation_pp": float(checks.worst_violation_pp),
+            "worst_violation_pct_of_target": 100.0 * float(checks.worst_relative_violation),
+            "smallest_headroom_pp": smallest_headroom_pp(checks),
+            "mean_abs_deviation_pp": float(outcome.full_year["mad_pp"]),
+            "relays_changed": counts.field_relays, "field_relays_changed": counts.field_relays,
+            "remote_relays_changed": counts.remote_relays,
+            "feeders_changed": counts.feeders_changed,
+            "substations_visited": counts.substations,
+            "switch_operations_per_year": 0 if switched is None else
+            int(switched.switch_ops_per_year),
+            "switched_feeders": 0 if switched is None else int(switched.switched_feeders),
+            "if_switching_fails": worst_fail, "solve_seconds": float(outcome.seconds),
+            "notes": [] if switched is None else list(switched.notes),
+            "lowest_share_pct": {v.block: v.min_share_pct for v in checks.verdicts},
+            "highest_share_pct": {v.block: v.max_share_pct for v in checks.verdicts}}
+
+
+def arming_record(plans: dict[str, dict], chosen: str, mode: str, reason: str) -> dict:
+    """plan.json ``arming``: what was asked for (``mode``), which plan is put in service
+    and why, and every plan made (``plans``: arming → :func:`plan_summary`)."""
+    return {"mode": mode, "chosen": chosen, "reason": reason, "plans": plans}
+
+
+__all__ = ["ChangeCounts", "NO_CHANGES", "plan_record", "switching_record", "plan_summary",
+           "arming_record"]

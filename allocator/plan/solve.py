@@ -574,7 +574,7 @@ def _outcome(ctx, years, objective, margin, final, levels, info1, h_opt, band_se
         events=ctx.events + (["a solver error occurred; the best plan found so far is "
                               "returned"] if err else []),
         objective=objective, margin_pp=margin, scenarios=tuple(y.scenario for y in years),
-        relays_changed=study.relays_changed(block_idx),
+        relays_changed=study.relays_changed(study.field_allocation(block_idx)),
         feeders_changed=int((block_idx != study.current_assignment).sum()),
         changes_lower_bound=ch_lb, exporting_kept=kept, exporting_avoided=avoided)
     if ctx.max_changes is not None and kf[0] > 1e-9 and ctx.sub_cap is None:

@@ -8,10 +8,12 @@ levels: (1) the worst violation over every scenario with the margin, because a p
 moves its share only in its own period; (2) the field changes, because a period unit has no
 change cost (its block is set by the control room: a "set remote schedule" row, not a site
 visit); then the deviation from target.  Level (3), the switching operations per year, is
-lowered afterwards by a local pass that holds the level-1 worst violation and changes only
-period units (so the field changes stay): a period's block is set to one the unit uses in
-another period when that saves operations.  It is a local optimum, never called optimal,
-and it runs after the deviation search, so the deviation is whatever remains.
+solved afterwards by the exact model of :mod:`allocator.plan.switchops` over the period
+units only (the other units held, so the field changes stay), holding the level-1 worst
+violation; it is claimed optimal only for that field plan and only when proven.  Without an
+answer in its budget a local pass runs instead (a period's block is set to one the unit
+uses in another period when that saves operations: a local optimum).  It runs after the
+deviation search, so the deviation is whatever remains.
 
 Switching operations per year: the calendar of the study year gives ``N[p, q]``, how many
 interval starts move from period p to period q (the first interval of the year counts the
@@ -19,9 +21,9 @@ move from the last interval's period, so the schedule repeats year on year); a u
 ``Σ N[p, q]`` over the pairs where its blocks differ (a trip group is one relay, one
 operation).
 
-The caps ``max_switched_feeders`` and ``max_switch_operations_per_year`` are met by the
-moves that raise the worst violation least; when a cap forces a worse violation, level 1
-is no longer claimed optimal.
+The caps ``max_switched_feeders`` and ``max_switch_operations_per_year`` are rows of that
+model (the best worst violation under them found first); when a cap forces a worse
+violation, level 1 is no longer claimed optimal.
 """
 
 from __future__ import annotations
@@ -145,7 +147,7 @@ class _Pass:
 
     def __init__(self, ex: Expanded, option: np.ndarray, band: Band, n_trans: np.ndarray,
                  col_period: np.ndarray):
-        self.ex, self.band, self.n_trans = ex, band, n_trans
+        self.ex, self.band, self.n_trans, self.col_period = ex, band, n_trans, col_period
         self.opt = np.array(option, dtype=np.intp)
         self.s = shares(ex.units, self.opt).copy()
         self.nb = ex.units.n_blocks
@@ -264,6 +266,37 @@ def enforce_caps(st: _Pass, study: Study, sizes: np.ndarray) -> bool:
         moved = True
 
 
+def _fewest_operations(st: _Pass, study: Study, sizes: np.ndarray, z_cap: float,
+                       budget: float, kw: dict) -> tuple[dict, bool]:
+    """Lower the switching operations holding the worst violation ``z_cap`` (and meet the
+    caps): the exact model of :mod:`allocator.plan.switchops` within ``budget`` seconds,
+    else the local pass.  Returns (the level's account, whether the caps raised z)."""
+    from .switchops import fewest_operations
+
+    s = study.settings
+    caps = {"max_switch_operations_per_year": s.max_switch_operations_per_year,
+            "max_switched_feeders": s.max_switched_feeders}
+    t0 = time.perf_counter()
+    res = fewest_operations(st.ex, st.opt, st.band, st.n_trans, st.col_period, z_cap, caps,
+                            sizes, t0 + budget, kw.get("solver") or "highs",
+                            int(kw.get("seed") or 0))
+    if res is not None:
+        st.opt = res.option
+        claim = ("optimal (proven) for the field plan: no schedule of the remote relays "
+                 "with the other relays as planned needs fewer" if res.proven else
+                 f"best found in {budget:.0f} s (not proven)")
+        level = {"level": "switching operations", "method": "MILP with column rounds "
+                 "(remote relays; the other relays held as planned)", "rounds": res.rounds,
+                 "status": res.status, "seconds": time.perf_counter() - t0,
+                 "proven_optimal": bool(res.proven), "claim": claim}
+        return level, res.z > z_cap + 1e-9
+    reduce_switching(st, z_cap, t0 + budget)
+    forced = enforce_caps(st, study, sizes)
+    return ({"level": "switching operations", "method": "local pass (the exact model gave "
+             "no answer in time)", "seconds": time.perf_counter() - t0,
+             "proven_optimal": False, "claim": "best found (a local optimum)"}, forced)
+
+
 def plan_switched(study: Study, years, pass_time_s: float | None = None,
                   **kw) -> SwitchedOutcome:
     """Plan a schedule (see the module docstring); ``kw`` go to ``plan_allocation``."""
@@ -279,22 +312,23 @@ def plan_switched(study: Study, years, pass_time_s: float | None = None,
     z_cap = st.z() + Z_TOL
     budget = pass_time_s if pass_time_s is not None else max(
         2.0, 0.1 * float(kw.get("time_limit_s") or study.settings.solver_time_limit_s))
-    reduce_switching(st, z_cap, time.perf_counter() + budget)
     sizes = np.array([m.size for m in units.members])
-    forced = enforce_caps(st, study, sizes)
+    ops_level, forced = _fewest_operations(st, study, sizes, z_cap, budget, kw)
     sched_u = unit_schedule(ex, st.opt)
     schedule = feeder_schedule(units, sched_u)
     ops = int(switch_ops(sched_u, n_trans).sum())
     switched = int(sum(sizes[u] for u in range(units.n)
                        if len(set(sched_u[u].tolist())) > 1))
-    notes = [f"switching operations lowered by a local pass holding the worst violation "
-             f"(a local optimum): {ops} operations per year on {switched} feeder(s)"]
+    notes = [f"switching operations: {ops} per year on {switched} feeder(s), "
+             f"{ops_level['claim']}"]
+    levels = list(out.levels) + [ops_level]
     if forced:
-        notes.append("the caps max_switched_feeders / max_switch_operations_per_year forced "
-                     "moves that may raise the worst violation; level 1 is not claimed "
-                     "optimal")
-        out = replace(out, proven=False, levels=[dict(i, proven_optimal=False)
-                                                 for i in out.levels])
+        notes.append("the caps max_switched_feeders / max_switch_operations_per_year raise "
+                     "the worst violation; level 1 is not claimed optimal")
+        levels = [dict(lv, proven_optimal=False, claim="not claimed: the switching caps "
+                       "raise the worst violation") if lv.get("level") == "worst violation"
+                  else lv for lv in levels]
+    out = replace(out, proven=out.proven and not forced, levels=levels)
     field = study.field_allocation(schedule)
     fc = study.relays_changed(field)
     k = evaluate(ex.units, st.opt, band)
@@ -305,5 +339,16 @@ def plan_switched(study: Study, years, pass_time_s: float | None = None,
     return SwitchedOutcome(out, schedule, ops, switched, fc, notes, forced)
 
 
-__all__ = ["plan_switched", "reduce_switching", "enforce_caps", "Expanded", "SwitchedOutcome", "column_periods", "switchable_units", "expand",
+def as_switched(study: Study, years, outcome: PlanOutcome, seconds: float,
+                note: str) -> SwitchedOutcome:
+    """A fixed plan as a schedule: the same block in every period, no switching operations
+    (``seconds``: the time the switched search took, added to the plan's)."""
+    schedule = np.repeat(np.asarray(outcome.block_idx)[:, None], len(study.periods), axis=1)
+    fc = study.relays_changed(study.field_allocation(schedule))
+    plan = replace(outcome, seconds=outcome.seconds + seconds, relays_changed=fc,
+                   events=list(outcome.events) + [note])
+    return SwitchedOutcome(plan, schedule, 0, 0, fc, [note], False)
+
+
+__all__ = ["plan_switched", "as_switched", "reduce_switching", "enforce_caps", "Expanded", "SwitchedOutcome", "column_periods", "switchable_units", "expand",
            "unit_schedule", "transitions", "switch_ops", "feeder_schedule"]

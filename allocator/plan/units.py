@@ -7,7 +7,9 @@ scenario after the other (``col_scenario``, ``col_interval`` say which), so a pl
 holds every column holds every interval of every scenario.  ``allowed[u, b]`` is the
 intersection of its members' hard rules.  ``change_cost[u, k]`` is 1 if the unit's relay
 would get a new block setting at option k (k = 0..B-1 a block, k = B unarmed), else 0: a
-trip group is one relay, so it counts once however many feeders it trips.
+trip group is one relay, so it counts once however many feeders it trips; a remote-settable
+relay (:attr:`allocator.domain.Study.is_remote_settable`) costs 0, since the control room,
+not a field crew, sets it.
 """
 
 from __future__ import annotations
@@ -181,6 +183,9 @@ def build_units(study: Study, years) -> Units:
     differs = cur_opt_f[:, None] != np.arange(nb + 1)[None, :]  # [feeder, option]
     change_cost = np.zeros((n_u, nb + 1))
     np.maximum.at(change_cost, owner, differs.astype(float))
+    remote = np.ones(n_u, dtype=bool)  # set from the control room: not a field change
+    np.logical_and.at(remote, owner, study.is_remote_settable)
+    change_cost[remote] = 0.0
     lo = np.full(n_u, nb + 1, dtype=np.intp)
     hi = np.full(n_u, -1, dtype=np.intp)
     np.minimum.at(lo, owner, cur_opt_f)

@@ -374,16 +374,22 @@ def what_is_checked(field, plan_info: dict | None) -> str:
 def plan_facts(p: dict) -> list[Fact]:
     """The plan's key facts, labelled, with units (the console, the xlsx summary and the
     HTML show these)."""
-    out = [Fact("result", STATUS_WORDS.get(p.get("status", ""), str(p.get("status", "")))),
-           Fact("scenarios held", ", ".join(p.get("scenarios", []))),
-           Fact("objective order", OBJECTIVE_WORDS.get(str(p.get("objective")),
-                                                       str(p.get("objective")))),
-           Fact("margin kept inside each band", float(p.get("band_margin_pp") or 0.0), "pp",
-                "0.00")]
+    out = [Fact("result", STATUS_WORDS.get(p.get("status", ""), str(p.get("status", ""))))]
+    if p.get("switching"):  # the schedule's verdict names how it fails if switching stops
+        out.append(Fact("if the switching stops (worst period)",
+                        fail_words(p["switching"]["if_switching_fails"]["worst"])))
+    if p.get("arming"):
+        out.append(Fact("arming", f"{ARMING_WORDS.get(p['arming']['chosen'], '')} "
+                        f"({p['arming']['mode']}): {p['arming']['reason']}"))
+    out += [Fact("scenarios held", ", ".join(p.get("scenarios", []))),
+            Fact("objective order", OBJECTIVE_WORDS.get(str(p.get("objective")),
+                                                        str(p.get("objective")))),
+            Fact("margin kept inside each band", float(p.get("band_margin_pp") or 0.0), "pp",
+                 "0.00")]
     counts = [("field_relays_changed", FIELD_RELAYS), ("feeders_changed", FEEDERS_CHANGED),
               ("substations_visited", SUBSTATIONS_VISITED),
               ("relays_changed_lower_bound", "relay changes needed at least (solver bound)")]
-    if p.get("switching"):
+    if p.get("switching") or p.get("remote_relays_changed"):
         counts.insert(1, ("remote_relays_changed", REMOTE_RELAYS))
     for key, label in counts:
         if p.get(key) is not None:
@@ -428,6 +434,58 @@ def switching_facts(sw: dict | None) -> list[Fact]:
                  float(fail["smallest_headroom_pp"]), "pp", "0.00"),
             Fact("remote switching", "depends on the control system being available; agree "
                  "the schedule and its fallback with the system operator")]
+
+
+#: the side-by-side rows of the fixed and the switched plan (plan.json ``arming.plans``)
+ARMING_ROWS = (("worst distance outside a band", "worst_violation_pp", "pp", "0.00"),
+               ("smallest headroom to a band", "smallest_headroom_pp", "pp", "0.00"),
+               (FIELD_RELAYS, "field_relays_changed", "", "0"),
+               (REMOTE_RELAYS, "remote_relays_changed", "", "0"),
+               (FEEDERS_CHANGED, "feeders_changed", "", "0"),
+               (SUBSTATIONS_VISITED, "substations_visited", "", "0"),
+               ("switching operations per year", "switch_operations_per_year", "", "0"),
+               ("feeders switched by schedule", "switched_feeders", "", "0"),
+               ("mean deviation from target", "mean_abs_deviation_pp", "pp", "0.00"),
+               ("planning time", "solve_seconds", "s", "0.0"))
+ARMING_WORDS = {"fixed": "fixed plan", "switched": "switched plan"}
+
+
+def fail_words(case: dict | None) -> str:
+    """One ``if_switching_fails`` case in words: the period it stops in, the weakest block,
+    its share and the band edge."""
+    if not case:
+        return "none (no switching)"
+    w = case["weakest"]
+    edge = "minimum" if w["side"] == "min" else "maximum"
+    state = ("in band" if case["worst_violation_pp"] <= 1e-9 else
+             f"{case['worst_violation_pp']:.2f} pp outside its band")
+    return (f"stuck in {case['stuck_in_period']}: block {w['block']} at {w['share_pct']:.1f} % "
+            f"(band {edge} {w['band_edge_pct']:g} %), {state}")
+
+
+def arming_table(p: dict | None) -> tuple[list[str], list[tuple[str, list[Fact]]]]:
+    """The plans made, side by side: (plan names, [(label, a Fact per plan)]); empty when
+    only one plan was made."""
+    plans = (p or {}).get("arming", {}).get("plans", {})
+    if len(plans) < 2:
+        return [], []
+    names = [n for n in ("fixed", "switched") if n in plans]
+    rows = [(label, [Fact(label, plans[n].get(key), unit, fmt) for n in names])
+            for label, key, unit, fmt in ARMING_ROWS]
+    rows.append(("if the switching fails", [Fact("if the switching fails",
+                                                 fail_words(plans[n].get("if_switching_fails")))
+                                            for n in names]))
+    return [ARMING_WORDS[n] for n in names], rows
+
+
+def arming_words(p: dict | None) -> str:
+    """Which plan is put in service and why (empty when only a fixed plan could be made)."""
+    a = (p or {}).get("arming")
+    if not a or len(a.get("plans", {})) < 2 and a.get("chosen") == "fixed" and \
+            a.get("mode") == "auto":
+        return ""
+    return (f"Plan put in service: the {ARMING_WORDS.get(a['chosen'], a['chosen'])} "
+            f"(arming {a['mode']}): {a['reason']}.")
 
 
 def plan_details(p: dict) -> list[Fact]:

@@ -402,6 +402,7 @@ def _summary_sheet(ws, cs: ScenarioChecks, field, plan_info,
     if plan_info:
         _plan_section(w, plan_info)
     _block_section(w, cs, before)
+    _arming_section(w, plan_info)
     _windows_section(w, cs)
     _legend_section(w, check)
     warns = content.all_warnings(cs)
@@ -454,6 +455,25 @@ def _plan_section(w: _Rows, plan_info: dict) -> None:
         w.line("how the planner got there", BOLD)
         for f in pt.details:
             w.fact(f)
+
+
+def _arming_section(w: _Rows, plan_info: dict | None) -> None:
+    """The fixed and the switched plan side by side, when both were made: label | fixed |
+    switched | unit (numbers as number cells)."""
+    names, rows = content.arming_table(plan_info)
+    if not names:
+        return
+    w.heading("Fixed and switched plans (the same counting)")
+    w.line(content.arming_words(plan_info))
+    w.header_row([""] + names + ["unit"])
+    for label, facts in rows:
+        w.text(label, font=BOLD)
+        for j, f in enumerate(facts, 2):
+            put(w.ws, w.r, j, f.value if f.is_number else f.text(), f.fmt if f.is_number
+                else None)
+        if facts[0].unit:
+            w.text(facts[0].unit, col=len(facts) + 2)
+        w.r += 1
 
 
 def _block_section(w: _Rows, cs: ScenarioChecks, before: ScenarioChecks | None) -> None:

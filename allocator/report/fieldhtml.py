@@ -38,8 +38,7 @@ def _setting_cells(r: dict, side: str) -> str:
 
 
 def _work_row(r: dict) -> str:
-    visit = "" if r["action"] == REMOTE_ACTION else td(r["visit"], "d")
-    return (f"<tr>{visit or '<td></td>'}<td>{esc(r['substations'])}</td>"
+    return (f"<tr>{td(r['visit'], 'd')}<td>{esc(r['substations'])}</td>"
             f"<td>{esc(r['feeders'])}</td><td>{esc(r['relay'])}</td>"
             f"<td>{esc(r['action'])}</td>{_setting_cells(r, 'now')}"
             f"{_setting_cells(r, 'new')}{td(r['moved_mean_mw'], '.2f')}"
@@ -51,8 +50,9 @@ def _work_row(r: dict) -> str:
 def _work_words(fp: FieldPlan, sc: str) -> str:
     c = fp.counts
     remote = (f" Then {vocab.count(c.remote_relays, 'relay')} set by remote schedule from the "
-              "control room (action 'set remote schedule', no visit; 'new: block' gives the "
-              "block of each period)." if c.remote_relays else "")
+              "control room (action 'set remote schedule', no site visit; 'visit' is the step "
+              "of the visit order at which the control room applies it; 'new: block' gives "
+              "the block of each period)." if c.remote_relays else "")
     return (f"<p>{vocab.count(c.field_relays, 'relay').capitalize()} at "
             f"{vocab.count(c.substations, 'substation')} change setting in the field, one row "
             "per relay (a trip group is one relay: its row lists every feeder it trips), in "

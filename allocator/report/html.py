@@ -165,6 +165,13 @@ def _plan(plan_info: dict | None) -> str:
     if pt.details:
         out.append("<details><summary>How the planner got there</summary>"
                    + kv([(f.label, f.text()) for f in pt.details]) + "</details>")
+    names, rows = content.arming_table(plan_info)
+    if names:
+        out.append('<h3 id="arming">Fixed and switched plans (the same counting)</h3>'
+                   f"<p>{esc(content.arming_words(plan_info))}</p>"
+                   + table([""] + names, [f"<tr><td>{esc(label)}</td>"
+                                          + "".join(f"<td>{esc(f.text())}</td>" for f in fs)
+                                          + "</tr>" for label, fs in rows]))
     return "".join(out)
 
 
