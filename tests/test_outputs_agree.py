@@ -85,3 +85,37 @@ def test_visit_order_searched_once(case, request):
     sheets, HTML, figure, console)."""
     res, _, _, calls, _ = request.getfixturevalue(case)
     assert len(calls) == len(res.candidates) == (2 if case == "switched" else 1)
+
+
+def test_both_plans_side_by_side_with_the_same_counts(switched):
+    """plan.json ``arming.plans``, the xlsx summary's side-by-side rows, the page's table and
+    the console show both plans with the same numbers; the chosen plan's counts are the
+    plan's own."""
+    import re
+
+    import openpyxl
+
+    res, out, text, _, _ = switched
+    info = res.record
+    plans = info["arming"]["plans"]
+    assert set(plans) == {"fixed", "switched"} and info["arming"]["chosen"] == "switched"
+    for key in ("field_relays_changed", "remote_relays_changed", "feeders_changed"):
+        assert plans["switched"][key] == info[key]
+    fx, sw = res.candidate("fixed"), res.candidate("switched")
+    assert plans["fixed"]["field_relays_changed"] == fx.field.counts.field_relays
+    assert plans["fixed"]["remote_relays_changed"] == fx.field.counts.remote_relays
+    ws = openpyxl.load_workbook(out / "report.xlsx", read_only=True)["summary"]
+    rows = [r for r in ws.iter_rows(values_only=True) if r and r[0]]
+    i = next(k for k, r in enumerate(rows) if str(r[0]).startswith("Fixed and switched"))
+    side = {r[0]: r[1:3] for r in rows[i + 1:i + 16]}
+    assert side["relays changed in the field"] == (plans["fixed"]["field_relays_changed"],
+                                                   plans["switched"]["field_relays_changed"])
+    assert side["switching operations per year"] == (
+        0, plans["switched"]["switch_operations_per_year"])
+    page = (out / "report.html").read_text(encoding="utf-8")
+    table = page[page.index('id="arming"'):]
+    row = re.search(r"<td>relays set by remote schedule</td><td>(\d+)</td><td>(\d+)</td>",
+                    table)
+    assert row and (int(row[1]), int(row[2])) == (plans["fixed"]["remote_relays_changed"],
+                                                  plans["switched"]["remote_relays_changed"])
+    assert sw.switched is not None and fx.switched is None

@@ -128,15 +128,16 @@ def _candidate(study: Study, years, arming: str, outcome, sw) -> Candidate:
                      fails)
 
 
-def _plan_fixed(study: Study, years, opt: PlanOptions, on_round) -> Candidate:
+def fixed_candidate(study: Study, years, opt: PlanOptions, on_round=None) -> Candidate:
+    """The best fixed plan, checked, with its field plan."""
     from ..plan import plan_allocation
 
     out = plan_allocation(study, years, **_planner_kw(opt, on_round))
     return _candidate(study, years, "fixed", out, None)
 
 
-def _plan_switched(study: Study, years, opt: PlanOptions, on_round,
-                   fixed: Candidate | None) -> Candidate:
+def switched_candidate(study: Study, years, opt: PlanOptions, on_round=None,
+                       fixed: Candidate | None = None) -> Candidate:
     """The switched plan, never worse than ``fixed`` by the objective order: a fixed plan is
     a schedule (one block in every period), so when the switched search ends worse, the
     fixed plan is the switched plan."""
@@ -192,12 +193,12 @@ def _plan_all(study: Study, years, opt: PlanOptions, on_round, progress) -> list
     (each in half the time)."""
     if opt.arming == "fixed" or not switched_applies(study):
         with progress("planning"):
-            return [_plan_fixed(study, years, opt, on_round)]
+            return [fixed_candidate(study, years, opt, on_round)]
     half = replace(opt, time_limit_s=max(2.0, opt.time_limit_s / 2.0))
     with progress("planning the best fixed allocation"):
-        fixed = _plan_fixed(study, years, half, on_round)
+        fixed = fixed_candidate(study, years, half, on_round)
     with progress("planning"):
-        return [fixed, _plan_switched(study, years, half, on_round, fixed)]
+        return [fixed, switched_candidate(study, years, half, on_round, fixed)]
 
 
 def _record(study: Study, years, chosen: Candidate, cands: list[Candidate],
@@ -283,4 +284,4 @@ def write_plan_folder(res: PlanResult, out: str | Path, formats=DEFAULT_FORMATS)
 
 __all__ = ["PlanOptions", "PlanRequest", "PlanResult", "Candidate", "plan_study",
            "plan_loaded", "write_plan_folder", "write_plan_into", "switched_applies",
-           "arming_key", "ARMING", "CURRENT"]
+           "arming_key", "fixed_candidate", "switched_candidate", "ARMING", "CURRENT"]

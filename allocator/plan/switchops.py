@@ -205,6 +205,19 @@ def _arrays(v: _Vars, ex, fixed_s, band, cols_t, col_period, weights, caps, size
                       np.concatenate(ub).astype(float), np.zeros(v.n), hi_v, integral)
 
 
+def _start(v: _Vars, ex, opt: np.ndarray, z: float) -> np.ndarray:
+    """The variable vector of an option (a feasible start for the operations stage)."""
+    x = np.zeros(v.n)
+    x[: v.pair_k.size] = opt[v.pair_k] == v.pair_b
+    x[v.i_z] = z
+    cp = _copies(ex)
+    d = opt[cp[v.d_u, v.d_p]] != opt[cp[v.d_u, v.d_q]]
+    x[v.i_z + 1:v.i_z + 1 + d.size] = d
+    if v.i_s0 >= 0:
+        x[v.i_s0 + np.searchsorted(v.s_units, v.d_u[d])] = 1.0
+    return x
+
+
 def _option(v: _Vars, ex, x: np.ndarray, base_opt: np.ndarray, nb: int) -> np.ndarray:
     opt = base_opt.copy()
     per = np.flatnonzero(ex.period >= 0)
@@ -248,7 +261,13 @@ def _round(v, ex, fixed_s, band, col_period, weights, caps, sizes, objective, z_
         rounds += 1
         a = _arrays(v, ex, fixed_s, band, cols, col_period, weights, caps, sizes, objective,
                     z_cap)
-        out = solve(a, solver, max(0.5, deadline - time.perf_counter()), 0.0, seed=seed)
+        start = None
+        if objective == "ops" and all(c is None for c in caps.values()):
+            # the planner's own schedule holds z_cap (and no cap binds it): an incumbent
+            z0 = float(_violations(_shares(ex, opt0, nb), band).max(initial=0.0))
+            start = _start(v, ex, opt0, min(z0, z_cap))
+        out = solve(a, solver, max(0.5, deadline - time.perf_counter()), 0.0, start=start,
+                    seed=seed)
         if out.x is None:
             return None, np.inf, False, rounds, out.status
         opt = _option(v, ex, out.x, opt0, nb)
