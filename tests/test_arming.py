@@ -18,7 +18,7 @@ import itertools
 import numpy as np
 import pytest
 
-from test_switched import _brute_force, _calendar, _on, _shape
+from test_switched import _brute_force, _calendar, _on, _reference_periods, _shape
 from wbfactory import BASE_SETTINGS, base_feeders, flat_profiles, write_workbook
 
 from allocator.check import run_checks
@@ -27,7 +27,6 @@ from allocator.pipeline import PlanOptions, PlanRequest, Sources, plan_study
 from allocator.pipeline.plan import arming_key
 from allocator.scenarios import build_years
 from allocator.workbook import read_study
-from allocator.year import year_period_index
 
 #: workday day 07-17, evening 17-07 (the invented 'com' feeders peak 07-19 on workdays,
 #: 'res' feeders 17-23 every day, so the mix of a block moves between the periods)
@@ -249,5 +248,26 @@ def test_switchable_trip_group_switches_as_one(tmp_path):
     sw = res.field.switching
     assert set(sw["feeders"]) == {"F00; F01", "F02"}
     assert len(sw) == res.record["switching"]["switch_operations_per_year"]
-    per = year_period_index(res.study, res.years[0])
+    per = _reference_periods(res.study, res.years[0])  # the period written per timestamp
     assert len(sw[sw["feeders"] == "F00; F01"]) == int((np.roll(per, 1) != per).sum())
+
+
+# ---- the fixed plan counts a remote-settable relay as the switched plan does ----------------
+#: two remote-switchable 'com' feeders and two fixed ones: the band (30-60 %) is reached
+#: either by setting the remote relays (no field change) or by a field visit to F02
+SPEC_D = [("com", 2, True, None), ("com", 3, True, "S1"), ("com", 1, False, "S1"),
+          ("res", 1, False, None)]
+
+
+def test_fixed_plan_sets_remote_relays_from_the_control_room(tmp_path):
+    """Brute force over every fixed allocation with the remote relays free of field cost:
+    the fixed plan needs no field change (a planner that counts the remote relays as
+    field changes visits F02 instead and fails)."""
+    path = _workbook(tmp_path, SPEC_D, (30, 60))
+    st = read_study(path)
+    key, _, best_fixed = _bests(st, build_years(st), (0, 1))
+    assert best_fixed[:2] == (0.0, 0)
+    res = _plan(path, arming="fixed")
+    got = key(np.repeat(res.outcome.block_idx[:, None], 2, axis=1))
+    assert _close(got, best_fixed) and res.record["field_relays_changed"] == 0
+    assert res.record["remote_relays_changed"] > 0 and res.switched is None

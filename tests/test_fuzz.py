@@ -37,7 +37,11 @@ def n(examples: int) -> int:
     return max(1, int(examples * float(os.environ.get("UFLS_FUZZ_SCALE", "1"))))
 
 
-FUZZ = dict(deadline=None, derandomize=False, database=None, print_blob=True,
+#: derandomized by default (the same examples on every run and in CI, so a failure replays;
+#: hypothesis prints the failing example and its reproduce blob); UFLS_FUZZ_RANDOM=1 draws
+#: new examples each run, for a longer hunt together with UFLS_FUZZ_SCALE
+FUZZ = dict(deadline=None, derandomize=os.environ.get("UFLS_FUZZ_RANDOM") != "1",
+            database=None, print_blob=True,
             suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
                                    HealthCheck.filter_too_much])
 

@@ -73,6 +73,13 @@ def files(tmp_path_factory):
             "y24": _csv(d / "y24.csv", y24), "y25": _csv(d / "y25.csv", y25)}
 
 
+@pytest.fixture(scope="module")
+def both_years(files):
+    """The two-year file read once for the tests that only look at it: (study, years)."""
+    study = read_study(files["wb"])
+    return study, build_years(study, read_metered_years(files["both"], study), ["metered"])
+
+
 def _summary(wb, metered) -> dict:
     study = read_study(wb)
     years = build_years(study, read_metered_years(metered, study), ["metered"])
@@ -85,8 +92,9 @@ def _blocks(d: dict) -> list:
             for b in d["blocks"]]
 
 
-def test_one_file_over_two_years_equals_two_files(files):
-    one = _summary(files["wb"], files["both"])
+def test_one_file_over_two_years_equals_two_files(files, both_years):
+    study, years = both_years
+    one = summary_set_dict(run_checks(study, years, study.current_assignment))
     two = _summary(files["wb"], [files["y24"], files["y25"]])
     assert one["scenarios_judged"] == ["metered 2024", "metered 2025"]
     assert two["scenarios_judged"] == one["scenarios_judged"]
@@ -139,10 +147,8 @@ def test_each_year_as_if_checked_on_its_own(files, tmp_path):
     (2024, "2024-03-31T01:00Z", "2024-10-27T01:00Z"),  # last Sundays of March/October 2024
     (2025, "2025-03-30T01:00Z", "2025-10-26T01:00Z"),  # EU rule, hand-computed
 ])
-def test_dst_and_holidays_on_each_years_own_calendar(files, year, spring, autumn):
-    study = read_study(files["wb"])
-    years = {y.scenario: y for y in build_years(study, read_metered_years(files["both"],
-                                                                          study), ["metered"])}
+def test_dst_and_holidays_on_each_years_own_calendar(both_years, year, spring, autumn):
+    years = {y.scenario: y for y in both_years[1]}
     y = years[f"metered {year}"]
     utc = y.timestamps_utc
     off = (y.local_times.tz_localize(None) - utc.tz_localize(None)).total_seconds() / 3600

@@ -120,14 +120,27 @@ def test_validate_exit_2_for_a_bad_scenario(tmp_path, capsys):
 
 
 def test_scales_follow_their_definition(tmp_path):
-    """net = load_scale · gross − pv_scale · pv_mw · pv_derate · pv_pu, per the README; the
-    gross load is the no-PV year's net load and the PV part the difference to clear sky."""
+    """net = load_scale · gross − pv_scale · pv_mw · pv_derate · pv_pu, per the README.  The
+    gross load is written here from the workbook (peak MW × the profile value at the local
+    hour, hand arithmetic on _shape); at night the sun is below the horizon at 50° N all
+    year (no midnight sun south of the Arctic circle, from memory), so there the scaled year
+    must equal 1.1 × that gross load exactly; by day its PV part must be twice the clear-sky
+    year's, both measured against the hand-made gross load."""
     rows = [{"scenario": "sun", "pv": "clear_sky"}, {"scenario": "dark", "pv": "none"},
             {"scenario": "grown", "pv": "clear_sky", "pv_scale": 2.0, "load_scale": 1.1}]
-    sun, dark, grown = build_years(read_study(_wb(tmp_path, rows)))
-    gross = dark.net_mw
-    pv_part = gross - sun.net_mw
-    np.testing.assert_allclose(grown.net_mw, 1.1 * gross - 2.0 * pv_part, atol=1e-9)
+    study = read_study(_wb(tmp_path, rows))
+    sun, dark, grown = build_years(study)
+    hour = np.array([t.hour for t in sun.local_times])
+    profiles = [f.profile for f in study.feeders]
+    peak = np.array([f.peak_mw for f in study.feeders])
+    shape = np.array([[_shape(p, "all", "workday", 60 * h) for h in hour] for p in profiles])
+    gross = peak[:, None] * shape
+    np.testing.assert_allclose(dark.net_mw, gross, atol=1e-9)  # no PV: the gross load
+    night = hour < 2
+    np.testing.assert_allclose(grown.net_mw[:, night], 1.1 * gross[:, night], atol=1e-9)
+    pv_sun, pv_grown = gross - sun.net_mw, 1.1 * gross - grown.net_mw
+    np.testing.assert_allclose(pv_grown, 2.0 * pv_sun, atol=1e-9)
+    assert pv_sun[:, ~night].max() > 1.0  # there is PV by day to scale (2 MW feeders)
     np.testing.assert_allclose(grown.demand_mw, grown.net_mw.sum(axis=0), atol=1e-9)
 
 

@@ -122,6 +122,24 @@ def _reference_period(t: datetime, day_type: int, periods: tuple[Period, ...]) -
     return hits[0]
 
 
+def _reference_periods(st, y) -> np.ndarray:
+    """``[interval]`` period in force, one local timestamp at a time by
+    :func:`_reference_period`, with the day type written here (Saturday, Sunday or a
+    public holiday of the study's country by the ``holidays`` package, else a workday)
+    instead of the calendar under test."""
+    import holidays
+
+    s = st.settings
+    cal = holidays.country_holidays(s.holiday_country, years=range(2024, 2030)) \
+        if s.holiday_country else {}
+    out = []
+    for t in y.local_times.to_pydatetime():
+        wd = t.weekday()
+        day = 2 if wd == 6 or t.date() in cal else 1 if wd == 5 else 0
+        out.append(_reference_period(t, day, st.periods))
+    return np.asarray(out)
+
+
 def test_period_index_matches_brute_force(tmp_path):
     per = [{"period": "w_day", "months": "1,2,3,10,11,12", "day_types": "workday",
             "from": "07:00", "to": "19:00"},
@@ -153,7 +171,7 @@ def test_schedule_check_uses_block_in_force(tmp_path):
     sched, _ = read_assignment(a, st)
     chk = run_checks(st, years, sched)
     y = years[0]
-    per = year_period_index(st, y)
+    per = _reference_periods(st, y)
     # reference: the armed MW written interval by interval from the rule "the block in
     # force at the interval" (brute force over intervals, feeders all standard relays)
     ref = np.zeros((2, y.n_intervals))
@@ -214,7 +232,7 @@ def _brute_force(st, years, switch):
     import itertools
 
     n, nb, n_p = len(st.feeders), len(st.blocks), len(st.periods)
-    per = [year_period_index(st, y) for y in years]
+    per = [_reference_periods(st, y) for y in years]
     n_trans = _reference_transitions(per[0])
     rows = []  # [feeder·period, column]: pp of demand the feeder adds in that period
     for y, pe in zip(years, per):

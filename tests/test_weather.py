@@ -6,8 +6,14 @@ Outside references used here, each named again beside its check:
   (Greensboro Piedmont Triad Intl, NC, 36.1 N, UTC-5) and 703165TY.csv (Sand Point, AK,
   55.3 N, UTC-9).  Their own columns (GHI, the ETR extraterrestrial horizontal radiation NREL
   computed for each hour, the date/time labels) are read here with the csv module.
-* pvlib (PyPI) as the reference library: its TMY3 reader, NREL SPA solar position,
-  extraterrestrial radiation and ``get_total_irradiance`` (Hay-Davies), called in the test.
+* pvlib (PyPI) as the reference library for the sun only: NREL SPA solar position and
+  extraterrestrial radiation, called in the test.  Planes of array are transposed here by
+  hand, not with pvlib's ``get_total_irradiance`` (which the module itself calls).
+* Transposition formulas, from memory: the isotropic sky of Liu & Jordan (1963), the
+  Hay-Davies sky (Hay & Davies 1980, "Calculations of the solar radiation incident on an
+  inclined surface"), the angle of incidence and the extraterrestrial normal irradiance
+  G_on = 1367·(1 + 0.033·cos(360°·n/365)) W/m² as in Duffie & Beckman, Solar Engineering of
+  Thermal Processes (eqs. 1.6.3, 1.4.1a); ground albedo 0.2 (common practice).
 * The EPW format as described in the EnergyPlus "Auxiliary Programs" documentation (8 header
   lines; field 4 is the hour 1-24 ending at the stated hour; fields 14-16 are GHI, DNI, DHI):
   from memory.  pvlib ships no EPW file, so one is written here from the Greensboro TMY3.
@@ -29,10 +35,13 @@ import pvlib
 import pytest
 
 from allocator.errors import InputError
+from allocator.scenarios import build_years
 from allocator.weather import (GROUND_ALBEDO, MEAN_EARTH_RADIUS_KM, plane_of_array_w_per_m2,
                                read_weather, record_midpoints_utc, site_distance_km,
                                study_record_index, weather_pv_pu, zone_standard_offset)
 from allocator.timegrid import study_intervals
+from allocator.workbook import read_study
+from wbfactory import BASE_SETTINGS, base_feeders, flat_profiles, write_workbook
 
 DATA = Path(pvlib.__file__).parent / "data"
 GREENSBORO = DATA / "723170TYA.CSV"  # NREL TMY3, shipped in pvlib's data folder
@@ -55,6 +64,61 @@ def raw_ghi(path: Path, mmdd: str, hhmm: str) -> float:
     hits = [float(r[4]) for r in raw_rows(path) if r[0][:5] == mmdd and r[1] == hhmm]
     assert len(hits) == 1
     return hits[0]
+
+
+#: ground reflectance written here as a literal (the usual 0.2 for grass and typical
+#: surroundings, e.g. Duffie & Beckman, Solar Engineering of Thermal Processes, ch. 2 - from
+#: memory); deliberately not imported from the code under test
+ALBEDO = 0.2
+
+
+def tmy3_site(path: Path) -> tuple[float, float, float, float]:
+    """(UTC offset h, latitude, longitude, elevation m) from line 1 of an NREL TMY3 file
+    (USAF, name, state, TZ, latitude, longitude, elevation), read with the csv module."""
+    with open(path, newline="") as fh:
+        head = next(csv.reader(fh))
+    return float(head[3]), float(head[4]), float(head[5]), float(head[6])
+
+
+def tmy3_sun(path: Path, rows: list[list[str]]):
+    """pvlib SPA (the reference library) at the middle of each row's hour: the TMY3 label
+    "MM/DD/YYYY, HH:00" ends the hour (TMY3 user's manual, NREL/TP-581-43156), in the
+    file's local standard time.  Returns (apparent zenith °, azimuth °, apparent elevation °,
+    day of year), each ``[row]``; the instants are built here from the labels."""
+    tz, lat, lon, alt = tmy3_site(path)
+    date = pd.to_datetime([r[0] for r in rows], format="%m/%d/%Y")
+    hour_end = np.array([int(r[1][:2]) for r in rows])
+    mid = pd.DatetimeIndex(date + pd.to_timedelta(hour_end - 0.5, unit="h")
+                           - pd.Timedelta(hours=tz)).tz_localize("UTC")
+    pos = pvlib.solarposition.get_solarposition(mid, lat, lon, altitude=alt)
+    return (pos["apparent_zenith"].to_numpy(), pos["azimuth"].to_numpy(),
+            pos["apparent_elevation"].to_numpy(), mid.day_of_year.to_numpy())
+
+
+def cos_incidence(zenith_deg, sun_azimuth_deg, tilt_deg, azimuth_deg):
+    """cos of the angle between the sun and the plane's normal, by spherical trigonometry:
+    cos θ = cos z·cos β + sin z·sin β·cos(γs − γ) (Duffie & Beckman eq. 1.6.3 in zenith
+    form, from memory)."""
+    z, gs = np.radians(zenith_deg), np.radians(sun_azimuth_deg)
+    b, g = math.radians(tilt_deg), math.radians(azimuth_deg)
+    return np.cos(z) * math.cos(b) + np.sin(z) * math.sin(b) * np.cos(gs - g)
+
+
+def isotropic_poa(ghi, dni, dhi, cos_aoi, tilt_deg, albedo=ALBEDO):
+    """Plane-of-array irradiance of the isotropic sky model (Liu & Jordan 1963), by hand:
+    DNI·max(cos θ, 0) + DHI·(1 + cos β)/2 + GHI·ρ·(1 − cos β)/2."""
+    cb = math.cos(math.radians(tilt_deg))
+    return (np.asarray(dni) * np.maximum(cos_aoi, 0.0) + np.asarray(dhi) * (1 + cb) / 2
+            + np.asarray(ghi) * albedo * (1 - cb) / 2)
+
+
+def circumsolar_excess(dhi, cos_aoi, zenith_deg, tilt_deg):
+    """DHI·(Rb − (1 + cos β)/2), Rb = max(cos θ, 0) / cos z: what the Hay-Davies sky (Hay &
+    Davies 1980: sky diffuse = DHI·[A·Rb + (1 − A)·(1 + cos β)/2], A = DNI / extraterrestrial
+    normal irradiance) adds to the isotropic one per unit of A.  Since 0 ≤ A ≤ 1 (no DNI
+    exceeds the extraterrestrial beam), the two models differ by at most this much."""
+    rb = np.maximum(cos_aoi, 0.0) / np.cos(np.radians(zenith_deg))
+    return np.asarray(dhi) * (rb - (1 + math.cos(math.radians(tilt_deg))) / 2)
 
 
 # --------------------------------------------------------------------------------------------
@@ -182,26 +246,54 @@ def test_flat_plane_is_the_files_ghi(gso):
 
 @pytest.mark.parametrize("path", [GREENSBORO, SAND_POINT])
 @pytest.mark.parametrize("tilt, azimuth", [(30.0, None), (30.0, 90.0), (60.0, 225.0)])
-def test_tilted_plane_matches_pvlib_reference(path, tilt, azimuth):
-    # Reference: pvlib (PyPI) called here on pvlib's own reading of the NREL TMY3 file
-    # (shipped in pvlib's data folder): index = hour end, sun at the hour midpoint, Hay-Davies,
-    # DNI taken as 0 while the sun is below the horizon, equator-facing = 180° north of the
-    # equator.
-    df, meta = pvlib.iotools.read_tmy3(path, map_variables=True)
-    mid = df.index - pd.Timedelta(minutes=30)
-    pos = pvlib.solarposition.get_solarposition(mid, meta["latitude"], meta["longitude"],
-                                                altitude=meta["altitude"])
-    up = pos["apparent_elevation"].to_numpy() > 0
-    ref = pvlib.irradiance.get_total_irradiance(
-        tilt, 180.0 if azimuth is None else azimuth, pos["apparent_zenith"].to_numpy(),
-        pos["azimuth"].to_numpy(), np.where(up, df["dni"].to_numpy(), 0.0),
-        df["ghi"].to_numpy(), df["dhi"].to_numpy(),
-        dni_extra=np.asarray(pvlib.irradiance.get_extra_radiation(mid)), albedo=GROUND_ALBEDO,
-        model="haydavies")["poa_global"]
-    ref = np.maximum(np.asarray(ref, dtype=float), 0.0)
+def test_tilted_plane_matches_hand_transposition(path, tilt, azimuth):
+    # Inputs: the NREL TMY3 file (shipped in pvlib's data folder), its GHI / DNI / DHI
+    # columns (5, 8, 11) and header read with the csv module; the sun from pvlib's NREL SPA
+    # (reference library) at the middle of each labelled hour, times built here.  Reference:
+    # the isotropic sky of Liu & Jordan (1963) transposed by hand, ground albedo 0.2 as a
+    # literal (ALBEDO, from memory), default orientation equator-facing (180° north of the
+    # equator, both files are).
+    rows = raw_rows(path)
+    ghi, dni, dhi = (np.array([float(r[k]) for r in rows]) for k in (4, 7, 10))
+    zen, sun_az, elev, doy = tmy3_sun(path, rows)
+    cos_aoi = cos_incidence(zen, sun_az, tilt, 180.0 if azimuth is None else azimuth)
+    iso = isotropic_poa(ghi, dni, dhi, cos_aoi, tilt)
     got = plane_of_array_w_per_m2(read_weather(path), tilt, azimuth)
-    np.testing.assert_allclose(got, ref, rtol=1e-9, atol=1e-9)
-    assert got.sum() > 0.5 * df["ghi"].sum()
+    assert got.shape == (8760,)
+
+    # 1. Hours without beam in the file (DNI = 0: nights and overcast hours).  Hay-Davies
+    # (Hay & Davies 1980) weights its circumsolar part by A = DNI / G_on = 0,
+    # so it *is* the isotropic sky of Liu & Jordan (1963) there: sky DHI·(1 + cos β)/2 plus
+    # ground GHI·0.2·(1 − cos β)/2, to rounding.  This pins the albedo and the diffuse and
+    # ground view factors; 500+ such hours have daylight in each file.
+    no_beam = dni == 0
+    assert (no_beam & (ghi > 0)).sum() > 500
+    np.testing.assert_allclose(got[no_beam], iso[no_beam], rtol=0, atol=1e-9)
+
+    # 2. Hours with beam and the sun at least 5° up at the hour's middle (pvlib SPA; lower
+    # suns are left out: near the horizon Rb = cos θ / cos z is ill-conditioned, and below
+    # it the module drops the beam by its own rule, see test_sun_below_horizon_gives_no_beam).
+    # The Hay-Davies sky differs from the isotropic one only by DHI·A·(Rb − (1 + cos β)/2)
+    # with 0 ≤ A ≤ 1 (Hay & Davies 1980): the package must lie between the isotropic value
+    # and the isotropic value plus that whole excess.
+    beam = (dni > 0) & (elev >= 5.0)
+    excess = circumsolar_excess(dhi, cos_aoi, zen, tilt)[beam]
+    lift = got[beam] - iso[beam]
+    assert (lift >= np.minimum(excess, 0.0) - 1e-6).all()
+    assert (lift <= np.maximum(excess, 0.0) + 1e-6).all()
+    # the excess must be the Hay-Davies one, A = DNI / extraterrestrial normal irradiance,
+    # with G_on = 1367·(1 + 0.033·cos(360°·n/365)) W/m² (Duffie & Beckman eq. 1.4.1a, from
+    # memory).  Tolerance 1 % of the excess: pvlib's Spencer (1971) series with a solar
+    # constant of 1366.1 W/m² differs from that formula by under 0.5 % (0.33 % at most over
+    # these files, measured while writing this test); a sky model without circumsolar
+    # brightening (lift 0) misses by 100 %.
+    g_on = 1367.0 * (1.0 + 0.033 * np.cos(2.0 * np.pi * doy[beam] / 365.0))
+    miss = np.abs(lift - dni[beam] / g_on * excess) - (0.01 * np.abs(excess) + 1e-6)
+    assert beam.sum() > 2000 and miss.max() <= 0, f"worst miss {miss.max():.3g} W/m²"
+
+    # the two checks cover nearly the whole year's light (NREL TMY3 GHI column)
+    assert ghi[no_beam | beam].sum() > 0.98 * ghi.sum()
+    assert got.sum() > 0.5 * ghi.sum()
 
 
 def test_latitude_tilt_collects_more_than_flat_and_than_east(gso):
@@ -327,6 +419,75 @@ def test_annual_energy_is_the_files_annual_irradiation(gso, tz, year, minutes):
     is_feb28 = gso.month * 100 + gso.day == 228
     assert (counts[~is_feb28] == 60 // minutes).all()
     assert (counts[is_feb28] == (2 if year == 2024 else 1) * 60 // minutes).all()
+
+
+#: clear winter hours of NREL TMY3 723170TYA.CSV (Greensboro, shipped in pvlib's data
+#: folder), labels MM/DD and HH:00 ending the hour; the file says DNI 836-977 W/m² and DHI
+#: 48-60 W/m² there (checked in the test): a high beam fraction, so the sky model matters
+#: little, and a low sun (elevation 22-36°), so a steep plane gets far more than the ground
+CLEAR_WINTER_HOURS = [("01/29", f"{h}:00") for h in range(11, 16)] + [
+    ("12/18", f"{h}:00") for h in range(11, 16)]
+
+
+def test_workbook_tilt_and_azimuth_reach_the_weather_scenario(tmp_path):
+    # A study on the Greensboro site whose settings sheet asks for a steep SSW plane
+    # (pv_tilt_deg 60, pv_azimuth_deg 210) and a weather scenario from the NREL TMY3 file
+    # shipped in pvlib's data folder, built from the workbook like any study; 30-minute
+    # intervals, America/New_York (EST = the file's UTC-5 standard time in Dec / Jan).
+    tilt, azimuth = 60.0, 210.0
+    settings = dict(BASE_SETTINGS, timezone="America/New_York", interval_minutes=30,
+                    latitude=36.1, longitude=-79.95, pv_tilt_deg=tilt,
+                    pv_azimuth_deg=azimuth, pv_derate=0.8)
+    feeders = base_feeders(4)
+    feeders[1]["pv_mw"] = 2.0
+    wb = write_workbook(tmp_path / "study.xlsx", settings=settings, feeders=feeders,
+                        profiles=flat_profiles(value=0.5), extra_sheets={"scenarios": [
+                            {"scenario": "tmy", "pv": f"weather:{GREENSBORO}"},
+                            {"scenario": "dark", "pv": "none"}]})
+    tmy, dark = build_years(read_study(wb))
+    tz = "America/New_York"
+    assert tmy.scenario == "tmy" and tmy.interval_minutes == 30
+
+    # Reference, independent of the package: the hour's GHI / DNI / DHI from the file's own
+    # columns 5, 8, 11 (csv module), the sun at the middle of the hour from pvlib's NREL SPA
+    # (reference library, times built here from the labels), and the isotropic sky of
+    # Liu & Jordan (1963) transposed by hand with ground albedo 0.2 (literal, from memory).
+    rows = [r for r in raw_rows(GREENSBORO) if (r[0][:5], r[1]) in CLEAR_WINTER_HOURS]
+    assert len(rows) == len(CLEAR_WINTER_HOURS)
+    ghi, dni, dhi = (np.array([float(r[k]) for r in rows]) for k in (4, 7, 10))
+    assert (dni >= 830).all() and (dhi <= 0.15 * ghi).all()  # clear, beam-dominated hours
+    zen, sun_az, elev, _ = tmy3_sun(GREENSBORO, rows)
+    assert (elev > 15).all()
+    cos_aoi = cos_incidence(zen, sun_az, tilt, azimuth)
+    ref = isotropic_poa(ghi, dni, dhi, cos_aoi, tilt)
+    # Tolerance: the package's Hay-Davies sky (Hay & Davies 1980) differs from the isotropic
+    # one only by DHI·A·(Rb − (1 + cos β)/2) with 0 ≤ A ≤ 1, so by at most that excess
+    # taken whole (22-91 W/m² here, small because these hours have little diffuse), plus
+    # 0.5 W/m² for rounding.
+    tol = np.abs(circumsolar_excess(dhi, cos_aoi, zen, tilt)) + 0.5
+    # ... while the horizontal plane (what PV gets when the tilt is lost: the file's GHI) is
+    # 106-511 W/m² away, 4.7 to 7.9 times the tolerance (asserted: more than twice)
+    assert (np.abs(ghi - ref) > 2 * tol).all()
+    # ... and on 4 of these hours (mornings and noons) so is the default equator-facing
+    # plane (180°, what PV gets when only the azimuth is lost)
+    cos_south = cos_incidence(zen, sun_az, tilt, 180.0)
+    tol_south = np.abs(circumsolar_excess(dhi, cos_south, zen, tilt)) + 0.5
+    south = isotropic_poa(ghi, dni, dhi, cos_south, tilt)
+    assert (np.abs(south - ref) > tol + tol_south).sum() >= 4
+
+    pv_mw, derate = 2.0, 0.8  # feeder F01 and the settings above
+    for r, expect, slack in zip(rows, ref, tol):
+        m, d = int(r[0][:2]), int(r[0][3:5])
+        start = int(r[1][:2]) - 1  # "HH:00" covers HH-1..HH, local standard time (EST)
+        for minute in (0, 30):  # both half-hour intervals of that hour hold the record
+            k = at(tmy.timestamps_utc, f"2025-{m:02d}-{d:02d} {start:02d}:{minute:02d}", tz)
+            # per unit of installed PV = POA / 1000 W/m² (STC irradiance, IEC 60904-3,
+            # from memory), before the derate
+            assert abs(tmy.pv_pu[k] * 1000.0 - expect) <= slack, (r[:2], tmy.pv_pu[k])
+            # and the feeder's net load drops by pv_mw · pv_derate · that per-unit value
+            drop = dark.net_mw[1, k] - tmy.net_mw[1, k]
+            assert abs(drop - pv_mw * derate * expect / 1000.0) <= pv_mw * derate * slack \
+                / 1000.0
 
 
 def test_standard_offset_is_the_winter_offset():
