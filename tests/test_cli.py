@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import pandas as pd
 import pytest
@@ -131,3 +132,67 @@ def test_demo_whole_job(tmp_path, monkeypatch, capsys):
     assert "report.html" in text and "report.xlsx" in text
     # one result, every rendering: the CSV files, the sheets, the page and the console agree
     assert_plan_outputs_agree(out, text, drawn)
+
+
+def test_review_without_dask_is_bad_input_naming_the_install(tmp_path, monkeypatch, capsys):
+    """Without the optional Dask extra, review stops with exit 2, the install command and
+    nothing written (the README installs the extra as it installs the tool)."""
+    import sys
+
+    from smallnet import write_small_study
+
+    (tmp_path / "studies").mkdir()
+    write_small_study(tmp_path / "studies")
+    monkeypatch.setitem(sys.modules, "dask", None)
+    monkeypatch.setitem(sys.modules, "dask.distributed", None)
+    out = tmp_path / "review"
+    assert main(["review", str(tmp_path / "studies"), "--out", str(out)]) == 2
+    err = " ".join(capsys.readouterr().err.split())
+    assert "pip install '.[fleet]'" in err and "Nothing was written" in err
+    assert not out.exists()
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    assert "pip install '.[fleet]'" in readme and "pip install -e '.[fleet]'" not in readme
+
+
+def test_max_changes_help_counts_relays():
+    """--max-changes limits relays changed in the field (the planner's change cost is per
+    relay, a trip group once), and the help says so."""
+    from allocator.cli import build_parser
+
+    sub = next(a for a in build_parser()._actions if a.dest == "command")
+    text = " ".join(sub.choices["plan"].format_help().split())
+    assert "at most N relays may change setting in the field" in text
+    assert "feeders may change block" not in text
+
+
+def test_a_level_claims_its_own_time(tmp_path):
+    """A level not proven says how long it ran, not how long the whole plan took."""
+    from wbfactory import BASE_SETTINGS, base_feeders, flat_profiles, write_workbook
+
+    from allocator.pipeline import PlanOptions, PlanRequest, Sources, plan_study
+
+    fs = base_feeders(10)
+    for i, f in enumerate(fs):
+        f["current_block"] = ["S1", "S2", None][i % 3]
+    wb = write_workbook(tmp_path / "t.xlsx", settings=dict(BASE_SETTINGS), feeders=fs,
+                        profiles=flat_profiles())
+    res = plan_study(PlanRequest(Sources(wb), PlanOptions(time_limit_s=5)))
+    claims = [lv for lv in res.record["levels"] if "best found in" in lv["claim"]]
+    assert claims, "the instance has no level that is not proven"
+    for lv in claims:
+        sec = float(lv["seconds"])
+        want = f"{sec:.1f} s" if sec < 10 else f"{sec:.0f} s"
+        assert f"best found in {want}" in lv["claim"], (lv["claim"], sec)
+
+
+def test_piped_console_lines_have_no_trailing_spaces(tmp_path, monkeypatch, capsys):
+    """Piped output (a file, a log) ends no line with a space: the padding of the tables is
+    not written (common practice, no source)."""
+    from smallnet import write_small_study
+
+    monkeypatch.setenv("COLUMNS", "80")
+    wb = write_small_study(tmp_path)
+    assert main(["check", str(wb), "--out", str(tmp_path / "c"), "--format", "none"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert len(lines) > 10 and max(len(x) for x in lines) <= 80
+    assert [x for x in lines if x != x.rstrip(" ")] == []

@@ -32,7 +32,9 @@ def register(sub, common) -> None:
 def add_planner(pl) -> None:
     pl.add_argument("--time-limit", type=float, help="seconds for the whole plan (default: "
                                                       "the workbook's solver_time_limit_s)")
-    pl.add_argument("--max-changes", type=int, help="at most N feeders may change block")
+    pl.add_argument("--max-changes", type=int, help="at most N relays may change setting in "
+                    "the field (a trip group is one relay; remote-settable relays are not "
+                    "counted)")
     pl.add_argument("--solver", choices=("highs", "cbc"), default="highs",
                     help="MILP solver (default highs)")
     pl.add_argument("--seed", type=int, default=0, help="seed for the heuristic and solver")

@@ -12,10 +12,40 @@ from rich.table import Table
 from rich.text import Text
 
 
+class _Piped:
+    """Standard output for piped runs (a file, a log): each line without the spaces rich
+    pads it with.  Rich writes a whole print at once, so a line is never split between two
+    writes.  Looked up at each write, so a redirected ``sys.stdout`` is followed."""
+
+    def write(self, text: str) -> int:
+        import sys
+
+        sys.stdout.write("\n".join(line.rstrip(" ") for line in text.split("\n")))
+        return len(text)
+
+    def flush(self) -> None:
+        import sys
+
+        sys.stdout.flush()
+
+    def isatty(self) -> bool:
+        return False
+
+    @property
+    def encoding(self) -> str:
+        import sys
+
+        return getattr(sys.stdout, "encoding", None) or "utf-8"
+
 
 def make_console(quiet: bool = False) -> Console:
-    """The console every command prints to (no highlighting, no soft wrap)."""
-    return Console(quiet=quiet, highlight=False, soft_wrap=False)
+    """The console every command prints to (no highlighting, no soft wrap); piped, its
+    lines carry no trailing spaces."""
+    import sys
+
+    piped = not sys.stdout.isatty()
+    return Console(quiet=quiet, highlight=False, soft_wrap=False,
+                   file=_Piped() if piped else None)
 
 
 def _cell_len(markup: str) -> int:

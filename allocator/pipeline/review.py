@@ -285,6 +285,12 @@ def validate_review(req: ReviewRequest) -> list[StudyFiles]:
     Returns the studies found."""
     from ..report import parse_formats
 
+    try:
+        import dask.distributed  # noqa: F401
+    except ImportError:
+        raise InputError([Problem("review", "needs the optional Dask extra, which is not "
+                                  "installed: run pip install '.[fleet]' in the tool's folder "
+                                  "(as the tool itself was installed)")]) from None
     if req.workers < 1:
         raise InputError([Problem("--workers", f"{req.workers}: give 1 or more")])
     parse_formats(req.formats)

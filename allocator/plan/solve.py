@@ -419,7 +419,7 @@ def _claim(info: dict, seconds: float, unit: str = "") -> str:
     if info.get("proven_optimal"):
         return "optimal (proven)"
     b = info.get("bound")
-    txt = f"best found in {seconds:.0f} s"
+    txt = f"best found in {seconds:.1f} s" if seconds < 10 else f"best found in {seconds:.0f} s"
     if info.get("level") == LEVEL_NAMES["changes"] and b is not None and b > 1 - 1e-6:
         return txt + f"; at least {max(0, math.ceil(b - 1e-6))} {unit or 'changes'} are needed"
     if info.get("level") == LEVEL_NAMES["worst"] and b is not None and b > 1e-9:
@@ -521,7 +521,8 @@ def _claim_levels(ctx: _Ctx, levels, info1, sub_left, elapsed: float,
             # plans that keep the rule, so no bound or optimality is claimed with it
             info["proven_optimal"], info["bound"] = False, None
         info["proven_optimal"] = bool(info.get("proven_optimal")) and not sub_left
-        info["claim"] = _claim(info, elapsed, "relay changes")
+        # the level's own time (the whole run's when a level kept none)
+        info["claim"] = _claim(info, float(info.get("seconds", elapsed)), "relay changes")
     lb = None if capped else info1["bound"] if info1["bound"] is not None else (
         info1["objective"] if info1["status"] == "optimal" else None)
     if capped:
