@@ -71,6 +71,10 @@ class Settings:
     #: "report" (the shares if the switching stops are reported) or "required" (a schedule
     #: that leaves a block out of band if the switching stops in some period is not used)
     fail_safe: str = "report"
+    #: a weather file's site farther than this from the study site (km), or keeping another
+    #: standard time, is a warning; with weather_strict an error
+    weather_max_distance_km: float = 100.0
+    weather_strict: bool = False
 
     @property
     def rule_text(self) -> str:

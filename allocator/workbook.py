@@ -62,7 +62,8 @@ SETTING_KEYS_OPTIONAL = ("holiday_country", "holiday_subdivision", "pv_derate", 
                          "max_substation_share_pct", "deviation_tolerance_pct",
                          "band_margin_pp", "objective", "exporting_standard_relays",
                          "pv_tilt_deg", "pv_azimuth_deg", "max_switched_feeders",
-                         "max_switch_operations_per_year", "fail_safe")
+                         "max_switch_operations_per_year", "fail_safe",
+                         "weather_max_distance_km", "weather_strict")
 SCENARIO_COLUMNS = ("scenario", "pv")
 SCENARIO_OPTIONAL = ("pv_scale", "load_scale", "year")
 OBJECTIVES = ("fewest_changes", "closest_to_target")
@@ -518,7 +519,19 @@ def _planning_settings(sv: _SettingValues) -> dict[str, object]:
     if fail_safe not in FAIL_SAFE_CHOICES:
         sv.bad("fail_safe", f"expected 'report' or 'required', found '{fail_safe}'")
     return {"objective": objective, "exporting": exporting, "tilt": tilt,
-            "azimuth": azimuth, "caps": caps, "fail_safe": fail_safe}
+            "azimuth": azimuth, "caps": caps, "fail_safe": fail_safe,
+            **_weather_site_settings(sv)}
+
+
+def _weather_site_settings(sv: _SettingValues) -> dict[str, object]:
+    """weather_max_distance_km (km ≥ 0, default 100) and weather_strict (yes/no)."""
+    dist = sv.num("weather_max_distance_km", required=False, minimum=0,
+                  what="a distance in km ≥ 0")
+    strict = (sv.txt("weather_strict") or "no").lower()
+    if strict not in ("yes", "no"):
+        sv.bad("weather_strict", f"expected 'yes' or 'no', found '{strict}'")
+    return {"weather_km": 100.0 if dist is None else float(dist),
+            "weather_strict": strict == "yes"}
 
 
 #: the parsed settings without which no :class:`Settings` is built
@@ -547,7 +560,8 @@ def _settings_from(v: dict[str, object]) -> Settings:
         band_margin_pp=0.0 if margin is None else float(margin), objective=v["objective"],
         exporting_standard_relays=v["exporting"],
         pv_tilt_deg=0.0 if tilt is None else float(tilt), pv_azimuth_deg=v["azimuth"],
-        fail_safe=v["fail_safe"], **v["caps"],
+        fail_safe=v["fail_safe"], weather_max_distance_km=v["weather_km"],
+        weather_strict=v["weather_strict"], **v["caps"],
     )
 
 
@@ -1044,15 +1058,48 @@ def _parse_scenarios(col: Collector, rows: list[Row], study_year: int | None,
     return out
 
 
-def _weather_problems(col: Collector, scenarios: list[Scenario]) -> None:
-    """Read every weather file once so a bad one is reported with the workbook's problems."""
+def _weather_problems(col: Collector, scenarios: list[Scenario], settings: Settings | None,
+                      warnings: list[str]) -> None:
+    """Read every weather file once so a bad one is reported with the workbook's problems,
+    and compare its site with the study's (:func:`_weather_site`)."""
     from .weather import read_weather
 
     for sc in {s.weather_file: s for s in scenarios if s.pv == "weather"}.values():
         try:
-            read_weather(sc.weather_file)
+            w = read_weather(sc.weather_file)
         except InputError as exc:
             col.extend(exc.problems)
+            continue
+        if settings is not None:
+            for msg in _weather_site(w, settings):
+                if settings.weather_strict:
+                    col.add(msg, "scenarios", sc.row, "pv")
+                else:
+                    warnings.append(f"scenarios row {sc.row}: {msg}")
+
+
+def _weather_site(w, settings: Settings) -> list[str]:
+    """A weather file farther than ``weather_max_distance_km`` from the study site, or one
+    that keeps another standard time than the study's zone, named with both."""
+    import pandas as pd
+
+    from .weather import site_distance_km, zone_standard_offset
+
+    out = []
+    name = Path(w.path).name
+    km = site_distance_km(w, settings.latitude_deg, settings.longitude_deg)
+    if km > settings.weather_max_distance_km:
+        out.append(f"weather file {name} is for {w.site_name} ({w.latitude_deg:.2f}°, "
+                   f"{w.longitude_deg:.2f}°), {km:.0f} km from the study site "
+                   f"({settings.latitude_deg:.2f}°, {settings.longitude_deg:.2f}°); more than "
+                   f"weather_max_distance_km = {settings.weather_max_distance_km:g}")
+    year = pd.date_range(f"{settings.year}-01-01", f"{settings.year + 1}-01-01", freq="D",
+                         tz="UTC")
+    std = zone_standard_offset(year, settings.timezone).total_seconds() / 3600.0
+    if abs(std - w.utc_offset_h) > 1e-9:
+        out.append(f"weather file {name} keeps standard time UTC{w.utc_offset_h:+g} h; the "
+                   f"study zone {settings.timezone} keeps UTC{std:+g} h")
+    return out
 
 
 def _open_sheets(p: Path, col: Collector) -> dict[str, tuple[list[str], list[Row]]]:
@@ -1127,7 +1174,7 @@ def _parse_system_sheet(col: Collector, sheets: dict[str, tuple[list[str], list[
 
 
 def _parse_optional(col: Collector, sheets: dict[str, tuple[list[str], list[Row]]],
-                    settings: Settings | None, p: Path
+                    settings: Settings | None, p: Path, warnings: list[str]
                     ) -> tuple[list[Scenario], list[Period]]:
     """The optional ``scenarios`` (with their weather files) and ``periods`` sheets."""
     scenarios: list[Scenario] = []
@@ -1136,7 +1183,7 @@ def _parse_optional(col: Collector, sheets: dict[str, tuple[list[str], list[Row]
         if _require_columns(col, "scenarios", h, SCENARIO_COLUMNS):
             scenarios = _parse_scenarios(col, rows, settings.year if settings else None,
                                          p.resolve().parent)
-            _weather_problems(col, scenarios)
+            _weather_problems(col, scenarios, settings, warnings)
     periods: list[Period] = []
     if "periods" in sheets:
         h, rows = sheets["periods"]
@@ -1156,7 +1203,7 @@ def read_study(path: str | os.PathLike) -> Study:
     settings, warnings, blocks, month_season, profiles, feeders = _parse_required(col, sheets)
     warnings += _cross_checks(col, settings, blocks, feeders)
     system, system_rows = _parse_system_sheet(col, sheets)
-    scenarios, periods = _parse_optional(col, sheets, settings, p)
+    scenarios, periods = _parse_optional(col, sheets, settings, p, warnings)
     _explain_formula_blanks(p, col, {name: h for name, (h, _) in sheets.items()})
     col.raise_if_any()
     assert settings is not None and profiles is not None

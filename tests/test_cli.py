@@ -196,3 +196,23 @@ def test_piped_console_lines_have_no_trailing_spaces(tmp_path, monkeypatch, caps
     lines = capsys.readouterr().out.splitlines()
     assert len(lines) > 10 and max(len(x) for x in lines) <= 80
     assert [x for x in lines if x != x.rstrip(" ")] == []
+
+
+def test_year_lines_say_no_feeder_exports(tmp_path):
+    """A year without export says so in words a person would use ("no feeder exports at any
+    interval", not "no feeders export at some interval")."""
+    import io
+
+    from rich.console import Console
+
+    from allocator.console.demo import year_lines
+    from allocator.scenarios import build_years
+    from allocator.workbook import read_study
+    from smallnet import write_small_study
+
+    st = read_study(write_small_study(tmp_path))
+    no_pv = [y for y in build_years(st) if y.scenario == "no_pv"]
+    buf = io.StringIO()
+    year_lines(Console(file=buf, width=200), st, no_pv)
+    text = buf.getvalue()
+    assert "no feeder exports at any interval" in text and "at some interval" not in text

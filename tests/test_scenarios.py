@@ -238,3 +238,41 @@ def test_demo_plan_for_clear_sky_alone_fails_the_overcast_year(tmp_path):
                  "--format", "none", "--quiet"]) == 0
     both = json.loads((tmp_path / "q" / "summary.json").read_text())
     assert both["compliant"] is True and both["scenarios_judged"] == ["clear_sky", "no_pv"]
+
+
+def _haversine_km(lat1, lon1, lat2, lon2):
+    """Great-circle distance on a sphere of radius 6371 km (the haversine formula; the mean
+    Earth radius from memory)."""
+    import math
+
+    p1, p2 = math.radians(lat1), math.radians(lat2)
+    a = (math.sin((p2 - p1) / 2) ** 2
+         + math.cos(p1) * math.cos(p2) * math.sin(math.radians(lon2 - lon1) / 2) ** 2)
+    return 2 * 6371.0 * math.asin(math.sqrt(a))
+
+
+def test_weather_file_far_away_is_named(tmp_path):
+    """A weather file for another site and standard time: a warning naming both sites, the
+    distance and both offsets; an error with weather_strict = yes; none for a study at the
+    file's own site and zone.  Greensboro's header (TMY3, pvlib data folder): 36.1° N,
+    79.95° W, UTC−5."""
+    import re
+
+    rows = [{"scenario": "tmy", "pv": f"weather:{GREENSBORO}"}]
+    st = read_study(_wb(tmp_path, rows))
+    warns = [w for w in st.warnings if "723170TYA.CSV" in w]
+    assert len(warns) == 2 and all(w.startswith("scenarios row 2:") for w in warns)
+    km = float(re.search(r"\), (\d+) km from the study site", warns[0])[1])
+    assert km == pytest.approx(_haversine_km(36.1, -79.95, 50.0, 10.0), abs=15)
+    assert "(50.00°, 10.00°)" in warns[0] and "weather_max_distance_km = 100" in warns[0]
+    assert "UTC-5 h" in warns[1] and "Europe/Berlin keeps UTC+1 h" in warns[1]
+    with pytest.raises(InputError) as e:
+        read_study(_wb(tmp_path, rows, name="strict.xlsx",
+                       settings={"weather_strict": "yes"}))
+    probs = [p for p in e.value.problems if "723170TYA.CSV" in p.message]
+    assert len(probs) == 2 and {(p.sheet, p.row, p.column) for p in probs} == {
+        ("scenarios", 2, "pv")}
+    home = read_study(_wb(tmp_path, rows, name="home.xlsx", settings={
+        "latitude": 36.1, "longitude": -79.9, "timezone": "America/New_York",
+        "holiday_country": None}))
+    assert not [w for w in home.warnings if "723170TYA.CSV" in w]

@@ -15,10 +15,12 @@ def year_lines(console: Console, study, years) -> None:
     """One line per scenario: intervals, feeders, demand range, feeders that export."""
     for y in years:
         n_exp = int(((y.net_mw < 0).any(axis=1)).sum())
+        exports = ("no feeder exports at any interval" if n_exp == 0 else
+                   f"{vocab.count(n_exp, 'feeder')} {'exports' if n_exp == 1 else 'export'} "
+                   "at some interval")
         console.print(f"Scenario {y.scenario}: {y.n_intervals} intervals × "
                       f"{len(study.feeders)} feeders; demand {y.demand_mw.min():.0f}–"
-                      f"{y.demand_mw.max():.0f} MW; {vocab.count(n_exp, 'feeder')} "
-                      f"{'exports' if n_exp == 1 else 'export'} at some interval.")
+                      f"{y.demand_mw.max():.0f} MW; {exports}.")
 
 
 def _largest_losses(fb: dict, fa: dict, console: Console) -> None:
