@@ -73,12 +73,13 @@ def write_field_files(fp: FieldPlan, out: Path) -> dict[str, Path]:
 def write_plan_files(fp: FieldPlan, record: dict, out: Path) -> dict[str, Path]:
     """plan.csv and plan.json, and for a schedule schedule.csv and switching.csv."""
     out.mkdir(parents=True, exist_ok=True)
-    paths = {"plan": out / "plan.csv", "plan_json": out / "plan.json"}
+    plan_csv, plan_json, schedule_csv, switching_csv = (out / n for n in PLAN_FILES)
+    paths = {"plan": plan_csv, "plan_json": plan_json}
     write_csv(plan_table(fp), paths["plan"])
     write_json(record, paths["plan_json"])
     if fp.schedule is not None:
-        paths["schedule"] = out / "schedule.csv"
-        paths["switching"] = out / "switching.csv"
+        paths["schedule"] = schedule_csv
+        paths["switching"] = switching_csv
         write_csv(pd.DataFrame(schedule_rows(fp.study, fp.schedule),
                                columns=["feeder_id", "period", "block"]), paths["schedule"])
         write_csv(fp.switching, paths["switching"])
@@ -88,7 +89,7 @@ def write_plan_files(fp: FieldPlan, record: dict, out: Path) -> dict[str, Path]:
 def write_frequency_files(table: pd.DataFrame, summary: dict, out: Path) -> dict[str, Path]:
     """frequency.csv (a ``scenario`` column first) and frequency.json."""
     out.mkdir(parents=True, exist_ok=True)
-    paths = {"frequency": out / "frequency.csv", "frequency_json": out / "frequency.json"}
+    paths = dict(zip(("frequency", "frequency_json"), (out / n for n in FREQUENCY_FILES)))
     write_csv(table, paths["frequency"])
     write_json(summary, paths["frequency_json"])
     return paths

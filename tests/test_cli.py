@@ -216,3 +216,14 @@ def test_year_lines_say_no_feeder_exports(tmp_path):
     year_lines(Console(file=buf, width=200), st, no_pv)
     text = buf.getvalue()
     assert "no feeder exports at any interval" in text and "at some interval" not in text
+
+
+def test_arming_choices_are_the_pipelines():
+    """The --arming choices are the pipeline's (the CLI writes them out to keep --help free of
+    planner imports)."""
+    from allocator.cli import build_parser
+    from allocator.pipeline.plan import ARMING
+
+    sub = next(a for a in build_parser()._actions if a.dest == "command")
+    arming = next(a for a in sub.choices["plan"]._actions if a.dest == "arming")
+    assert tuple(arming.choices) == ARMING

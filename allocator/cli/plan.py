@@ -38,6 +38,7 @@ def add_planner(pl) -> None:
     pl.add_argument("--solver", choices=("highs", "cbc"), default="highs",
                     help="MILP solver (default highs)")
     pl.add_argument("--seed", type=int, default=0, help="seed for the heuristic and solver")
+    # the words of pipeline.plan.ARMING, written here so that --help imports no planner
     pl.add_argument("--arming", choices=("auto", "fixed", "switched"), default="auto",
                     help="with remotely switchable feeders and periods: 'auto' (default) "
                          "plans both and puts a schedule in service only where it is "

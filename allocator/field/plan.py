@@ -28,7 +28,7 @@ from ..check import ScenarioChecks, as_set, run_checks
 from ..domain import Study
 from ..plan.record import NO_CHANGES, ChangeCounts
 from ..year import study_calendar_year
-from .changes import RelayChange, as_schedule, remote_relays
+from .changes import as_schedule, remote_relays
 from .statement import statement_basis, statement_table
 from .switching import switching_table
 from .visits import VisitOrder, visit_order, visit_order_table
@@ -66,11 +66,6 @@ class FieldPlan:
     def compares(self) -> bool:
         """True when the allocation is compared with the one in service now."""
         return self.now_idx is not None
-
-    @property
-    def changes(self) -> tuple[RelayChange, ...]:
-        """The relays changed in the field, in the order of their first feeder."""
-        return self.order.changes if self.order is not None else ()
 
 
 def _feeder_change(study: Study, now: np.ndarray, field_idx: np.ndarray,
